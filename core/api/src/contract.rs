@@ -1,0 +1,219 @@
+//! The analysis trait every plugin implements, what it declares about itself, and the input the
+//! runner hands it (test description, validated parameters, criteria, datasets).
+
+use std::collections::BTreeMap;
+
+use serde::{Deserialize, Serialize};
+
+use crate::data::Dataset;
+use crate::outcome::AnalysisOutput;
+
+/// The kinds of test a campaign can hold.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum TestKind {
+    DepthDose,
+    Profile,
+    Plane,
+    Volume,
+    PointSet,
+    PointDose,
+    MuCheck,
+}
+
+impl TestKind {
+    /// Every kind, in the order documented for the campaign file.
+    pub const ALL: [TestKind; 7] = [
+        TestKind::DepthDose,
+        TestKind::Profile,
+        TestKind::Plane,
+        TestKind::Volume,
+        TestKind::PointSet,
+        TestKind::PointDose,
+        TestKind::MuCheck,
+    ];
+
+    /// The kebab-case name used in campaign files.
+    pub fn name(self) -> &'static str {
+        match self {
+            TestKind::DepthDose => "depth-dose",
+            TestKind::Profile => "profile",
+            TestKind::Plane => "plane",
+            TestKind::Volume => "volume",
+            TestKind::PointSet => "point-set",
+            TestKind::PointDose => "point-dose",
+            TestKind::MuCheck => "mu-check",
+        }
+    }
+
+    /// Parse a campaign-file name.
+    pub fn from_name(name: &str) -> Option<TestKind> {
+        TestKind::ALL.into_iter().find(|k| k.name() == name)
+    }
+}
+
+/// Type of a plugin parameter, with its admissible range.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "type", rename_all = "kebab-case")]
+pub enum ParamType {
+    Number { min: Option<f64>, max: Option<f64> },
+    Integer { min: Option<i64>, max: Option<i64> },
+    Bool,
+    Choice { choices: Vec<String> },
+    Text,
+}
+
+/// One parameter a plugin accepts in a test's `params:` block.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ParamSpec {
+    /// kebab-case key.
+    pub name: String,
+    pub kind: ParamType,
+    /// Default as JSON; `None` means the parameter is optional with no default.
+    pub default: Option<serde_json::Value>,
+    /// Unit of a number, e.g. "mm"; empty when none.
+    pub unit: String,
+    pub description: String,
+}
+
+/// What a plugin says about itself before it is used.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PluginManifest {
+    /// Stable kebab-case id used in campaign files.
+    pub name: String,
+    /// Semantic version of the plugin.
+    pub version: String,
+    pub description: String,
+    /// Test kinds the plugin can analyse.
+    pub kinds: Vec<TestKind>,
+    pub params: Vec<ParamSpec>,
+}
+
+/// Whether dose differences are relative to one value for all points or to each reference point.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Normalisation {
+    Global,
+    Local,
+}
+
+/// One gamma criterion of a criteria set (Low et al 1998; defaults from AAPM TG-218).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct GammaCriterion {
+    pub dose_percent: f64,
+    pub dta_mm: f64,
+    /// Reference points below this percentage of the normalisation dose are not evaluated.
+    pub threshold_percent: f64,
+    pub normalisation: Normalisation,
+    /// Global normalisation dose in Gy; `None` means the maximum of the reference.
+    pub normalisation_dose_gy: Option<f64>,
+    /// Pass rate (%) at or above which the test passes.
+    pub tolerance_pass_percent: f64,
+    /// Pass rate (%) below which the test fails.
+    pub action_pass_percent: f64,
+}
+
+/// Tolerance and action level for a magnitude-type quantity.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Levels {
+    pub tolerance: f64,
+    pub action: f64,
+}
+
+/// A named set of criteria from the campaign file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CriteriaSet {
+    pub name: String,
+    /// Point dose difference levels, in percent.
+    pub dose_difference_percent: Option<Levels>,
+    pub gamma: Vec<GammaCriterion>,
+    /// Levels for named metrics (plugin-defined metric ids), in the metric's unit.
+    pub metrics: BTreeMap<String, Levels>,
+}
+
+/// The beam a test was delivered with, from the campaign's machine description.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct BeamInfo {
+    pub id: String,
+    pub modality: String,
+    pub energy: f64,
+    pub fff: bool,
+}
+
+/// Identity of the test being analysed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TestInfo {
+    pub site: String,
+    pub id: String,
+    pub name: String,
+    pub kind: TestKind,
+    pub machine: String,
+    pub beam: Option<BeamInfo>,
+}
+
+/// Everything an analysis receives. Parameters have been validated against the plugin's
+/// [`ParamSpec`]s and completed with defaults.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AnalysisInput {
+    pub test: TestInfo,
+    pub params: BTreeMap<String, serde_json::Value>,
+    pub criteria: CriteriaSet,
+    pub measured: Option<Dataset>,
+    pub calculated: Option<Dataset>,
+}
+
+impl AnalysisInput {
+    /// A number parameter (validated by the runner, so a missing one is a plugin bug reported
+    /// as an error, never a panic).
+    pub fn number(&self, name: &str) -> Result<f64, AnalysisError> {
+        self.params
+            .get(name)
+            .and_then(serde_json::Value::as_f64)
+            .ok_or_else(|| AnalysisError::new(format!("parameter `{name}` is missing")))
+    }
+
+    /// An optional number parameter.
+    pub fn number_opt(&self, name: &str) -> Option<f64> {
+        self.params.get(name).and_then(serde_json::Value::as_f64)
+    }
+
+    /// A text or choice parameter.
+    pub fn text(&self, name: &str) -> Result<&str, AnalysisError> {
+        self.params
+            .get(name)
+            .and_then(serde_json::Value::as_str)
+            .ok_or_else(|| AnalysisError::new(format!("parameter `{name}` is missing")))
+    }
+}
+
+/// Why an analysis could not produce a result. The runner records it as status `error`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct AnalysisError {
+    pub message: String,
+}
+
+impl AnalysisError {
+    pub fn new(message: impl Into<String>) -> Self {
+        AnalysisError {
+            message: message.into(),
+        }
+    }
+}
+
+impl std::fmt::Display for AnalysisError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.message)
+    }
+}
+
+impl std::error::Error for AnalysisError {}
+
+/// An analysis plugin. Implementations must be pure: the same input gives the same output,
+/// with no clock, randomness or file access, so that runs are reproducible.
+pub trait Analysis: Send + Sync {
+    /// Name, version, accepted kinds and parameters.
+    fn manifest(&self) -> PluginManifest;
+
+    /// Analyse one test.
+    fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError>;
+}

@@ -1,0 +1,19 @@
+//! beamproof-api: the small, stable contract between the beamproof runner and its analysis
+//! plugins. It holds the dose data types, the result types, the [`Analysis`] trait and the C ABI
+//! through which dynamic plugins are loaded. It depends on serde alone, so plugins build fast.
+
+pub mod abi;
+mod contract;
+mod data;
+mod outcome;
+
+pub use contract::{
+    Analysis, AnalysisError, AnalysisInput, BeamInfo, CriteriaSet, GammaCriterion, Levels,
+    Normalisation, ParamSpec, ParamType, PluginManifest, TestInfo, TestKind,
+};
+pub use data::{
+    Curve, CurveAxis, Dataset, DatasetData, DoseUnit, Grid, PointSet, SINGLETON_AXIS_TOLERANCE_MM,
+};
+pub use outcome::{
+    AnalysisOutput, Band, Figure, Limits, Metric, Reference, Series, SeriesStyle, Status, Table,
+};

@@ -1,0 +1,227 @@
+//! What an analysis returns: metrics with status, tables, figures described as data, notes and
+//! the published references its method follows.
+
+use serde::{Deserialize, Serialize};
+
+/// Verdict of one metric, one analysis or one test. Ordered from best to worst, so the status of
+/// a group is the maximum of its members.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Status {
+    /// Within tolerance.
+    Pass,
+    /// Past tolerance but within the action level.
+    Warn,
+    /// Past the action level.
+    Fail,
+    /// The analysis could not be carried out.
+    Error,
+}
+
+impl Status {
+    /// Upper-case word used in tables and reports.
+    pub fn word(self) -> &'static str {
+        match self {
+            Status::Pass => "PASS",
+            Status::Warn => "WARN",
+            Status::Fail => "FAIL",
+            Status::Error => "ERROR",
+        }
+    }
+
+    /// Status of a deviation whose magnitude is compared with a tolerance and an action level
+    /// (both magnitudes, tolerance <= action). Equality counts as within: `|d| <= tol` passes.
+    /// A NaN deviation is an error.
+    pub fn from_deviation(deviation: f64, tolerance: f64, action: f64) -> Status {
+        let d = deviation.abs();
+        if d.is_nan() {
+            Status::Error
+        } else if d <= tolerance {
+            Status::Pass
+        } else if d <= action {
+            Status::Warn
+        } else {
+            Status::Fail
+        }
+    }
+
+    /// Status of a quantity that must stay at or above a floor, such as a gamma pass rate:
+    /// pass at or above `tolerance`, warn at or above `action`, fail below (tolerance >= action).
+    pub fn from_floor(value: f64, tolerance: f64, action: f64) -> Status {
+        if value.is_nan() {
+            Status::Error
+        } else if value >= tolerance {
+            Status::Pass
+        } else if value >= action {
+            Status::Warn
+        } else {
+            Status::Fail
+        }
+    }
+
+    /// Worst status of a collection; `None` for an empty one.
+    pub fn worst<I: IntoIterator<Item = Status>>(statuses: I) -> Option<Status> {
+        statuses.into_iter().max()
+    }
+}
+
+/// The limits a metric was judged against, as printed beside it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Limits {
+    /// How the limits apply, e.g. "|value| <= limit" or "value >= limit".
+    pub rule: String,
+    pub tolerance: f64,
+    pub action: f64,
+}
+
+/// One named number with its unit, the limits it was judged against and its status.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Metric {
+    /// Stable machine name (kebab-case), e.g. `max-abs-difference`.
+    pub id: String,
+    /// Human label.
+    pub label: String,
+    pub value: f64,
+    /// Unit text, e.g. "%", "mm", "Gy"; empty for a pure number.
+    pub unit: String,
+    /// Present when the metric was judged; informational metrics have none.
+    pub limits: Option<Limits>,
+    pub status: Option<Status>,
+}
+
+/// A table of text cells; numbers are formatted by the analysis, which knows their precision.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Table {
+    pub title: String,
+    pub columns: Vec<String>,
+    pub rows: Vec<Vec<String>>,
+}
+
+/// How a series is drawn.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum SeriesStyle {
+    Line,
+    Markers,
+}
+
+/// A named (x, y) series.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Series {
+    pub name: String,
+    pub style: SeriesStyle,
+    pub x: Vec<f64>,
+    pub y: Vec<f64>,
+}
+
+/// A horizontal band drawn behind a chart, e.g. a tolerance band.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Band {
+    pub label: String,
+    pub low: f64,
+    pub high: f64,
+}
+
+/// Figures are described as data; the report decides how to draw them.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "figure", rename_all = "kebab-case")]
+pub enum Figure {
+    /// Line or marker chart.
+    Chart {
+        title: String,
+        x_label: String,
+        y_label: String,
+        series: Vec<Series>,
+        bands: Vec<Band>,
+    },
+    /// Histogram with `edges.len() == counts.len() + 1`.
+    Histogram {
+        title: String,
+        x_label: String,
+        edges: Vec<f64>,
+        counts: Vec<u64>,
+    },
+    /// A 2D map on a rectilinear grid; `values[iy * x_mm.len() + ix]`, `None` where undefined
+    /// (JSON has no NaN).
+    Map {
+        title: String,
+        quantity: String,
+        unit: String,
+        x_label: String,
+        y_label: String,
+        x_mm: Vec<f64>,
+        y_mm: Vec<f64>,
+        values: Vec<Option<f64>>,
+    },
+}
+
+/// A published source the analysis follows, cited in the report's bibliography.
+#[derive(Debug, Clone, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+pub struct Reference {
+    /// Short key, e.g. "TG-218".
+    pub key: String,
+    /// Full citation.
+    pub citation: String,
+}
+
+/// The complete result of one analysis of one test.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
+pub struct AnalysisOutput {
+    pub metrics: Vec<Metric>,
+    pub tables: Vec<Table>,
+    pub figures: Vec<Figure>,
+    /// Remarks for the reader, e.g. points skipped and why.
+    pub notes: Vec<String>,
+    pub references: Vec<Reference>,
+    /// Overall status; when `None` the runner takes the worst metric status (pass if none judged).
+    pub status: Option<Status>,
+}
+
+impl AnalysisOutput {
+    /// The status to record: the explicit one, else the worst judged metric, else pass.
+    pub fn overall_status(&self) -> Status {
+        self.status
+            .or_else(|| Status::worst(self.metrics.iter().filter_map(|m| m.status)))
+            .unwrap_or(Status::Pass)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn deviation_levels_include_their_boundary() {
+        // Convention (common practice, no source): a value exactly at a limit is within it.
+        assert_eq!(Status::from_deviation(2.0, 2.0, 3.0), Status::Pass);
+        assert_eq!(Status::from_deviation(-2.5, 2.0, 3.0), Status::Warn);
+        assert_eq!(Status::from_deviation(3.0001, 2.0, 3.0), Status::Fail);
+        assert_eq!(Status::from_deviation(f64::NAN, 2.0, 3.0), Status::Error);
+    }
+
+    #[test]
+    fn floor_levels_follow_pass_rate_convention() {
+        // TG-218 (Miften et al 2018): tolerance 95 %, action 90 % passing.
+        assert_eq!(Status::from_floor(95.0, 95.0, 90.0), Status::Pass);
+        assert_eq!(Status::from_floor(92.0, 95.0, 90.0), Status::Warn);
+        assert_eq!(Status::from_floor(89.9, 95.0, 90.0), Status::Fail);
+    }
+
+    #[test]
+    fn overall_status_is_worst_metric() {
+        let m = |s| Metric {
+            id: "m".into(),
+            label: "m".into(),
+            value: 0.0,
+            unit: String::new(),
+            limits: None,
+            status: s,
+        };
+        let out = AnalysisOutput {
+            metrics: vec![m(Some(Status::Pass)), m(None), m(Some(Status::Warn))],
+            ..Default::default()
+        };
+        assert_eq!(out.overall_status(), Status::Warn);
+        assert_eq!(AnalysisOutput::default().overall_status(), Status::Pass);
+    }
+}
