@@ -1,1 +1,7 @@
-//! placeholder
+//! beamproof-engine: reads and checks campaigns, reads dose files, runs analyses and writes
+//! checksummed run folders.
+
+pub mod diag;
+pub mod yaml;
+pub mod campaign;
+pub mod readers;
