@@ -3,6 +3,10 @@
 
 use serde::{Deserialize, Serialize};
 
+/// Absolute slack applied when a value is compared with a limit: far below any clinically
+/// meaningful difference, far above the rounding error of decimal inputs.
+pub const LIMIT_SLACK: f64 = 1e-9;
+
 /// Verdict of one metric, one analysis or one test. Ordered from best to worst, so the status of
 /// a group is the maximum of its members.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
@@ -30,15 +34,16 @@ impl Status {
     }
 
     /// Status of a deviation whose magnitude is compared with a tolerance and an action level
-    /// (both magnitudes, tolerance <= action). Equality counts as within: `|d| <= tol` passes.
-    /// A NaN deviation is an error.
+    /// (both magnitudes, tolerance <= action). Equality counts as within: `|d| <= tol` passes,
+    /// up to [`LIMIT_SLACK`] so that values equal to a limit on paper (2.04 Gy against 2.00 Gy
+    /// is 2 %) do not fail through binary rounding. A NaN deviation is an error.
     pub fn from_deviation(deviation: f64, tolerance: f64, action: f64) -> Status {
         let d = deviation.abs();
         if d.is_nan() {
             Status::Error
-        } else if d <= tolerance {
+        } else if d <= tolerance + LIMIT_SLACK {
             Status::Pass
-        } else if d <= action {
+        } else if d <= action + LIMIT_SLACK {
             Status::Warn
         } else {
             Status::Fail
@@ -50,9 +55,9 @@ impl Status {
     pub fn from_floor(value: f64, tolerance: f64, action: f64) -> Status {
         if value.is_nan() {
             Status::Error
-        } else if value >= tolerance {
+        } else if value >= tolerance - LIMIT_SLACK {
             Status::Pass
-        } else if value >= action {
+        } else if value >= action - LIMIT_SLACK {
             Status::Warn
         } else {
             Status::Fail
