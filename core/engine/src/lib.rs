@@ -5,3 +5,6 @@ pub mod diag;
 pub mod yaml;
 pub mod campaign;
 pub mod readers;
+pub mod checksum;
+pub mod registry;
+pub mod prepare;

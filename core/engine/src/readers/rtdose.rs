@@ -16,7 +16,7 @@ use dicom_dictionary_std::tags;
 use dicom_object::{DefaultDicomObject, InMemDicomObject};
 
 use crate::campaign::{DicomPlacement, PatientPosition};
-use crate::diag::Diagnostic;
+use crate::diag::{Diagnostic, error_chain};
 
 /// SOP Class UID of RT Dose Storage.
 pub const RT_DOSE_STORAGE: &str = "1.2.840.10008.5.1.4.1.1.481.2";
@@ -219,16 +219,6 @@ pub fn read(path: &Path, placement: Option<&DicomPlacement>) -> Result<(DoseUnit
     Ok((DoseUnit::Gy, DatasetData::Grid(place(path, &raw, placement)?)))
 }
 
-fn error_chain(e: &dyn std::error::Error) -> String {
-    let mut s = e.to_string();
-    let mut cur = e.source();
-    while let Some(c) = cur {
-        s.push_str(": ");
-        s.push_str(&c.to_string());
-        cur = c.source();
-    }
-    s
-}
 
 /// Element value as text; elements with VR UN are decoded from their raw bytes (dicom-rs
 /// otherwise returns the bytes as numbers).

@@ -1,0 +1,350 @@
+//! Turning a decoded campaign into a runnable plan for one machine: cross-references (beams,
+//! machines, plugins, parameters), input paths, and every input file read and checked. All
+//! problems of all tests are collected and returned together; nothing is analysed here.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use beamproof_api::{
+    BeamInfo, CriteriaSet, Dataset, DatasetData, ParamType, PluginManifest, TestKind,
+};
+
+use crate::campaign::{AnalysisSpec, Campaign, InputSpec, Machine, Pos, TestSpec};
+use crate::checksum::sha256_hex;
+use crate::diag::{Diagnostic, nearest};
+use crate::readers::read_dataset;
+use crate::registry::Registry;
+
+/// An input file as the run folder will hold it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct InputFile {
+    /// Path relative to the campaign folder, `/`-separated.
+    pub rel: String,
+    pub bytes: Vec<u8>,
+    pub sha256: String,
+}
+
+/// A dataset ready for analysis, with the file it came from.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedInput {
+    pub rel: String,
+    pub dataset: Dataset,
+}
+
+/// One analysis with validated parameters (defaults filled in).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedAnalysis {
+    pub plugin: String,
+    pub params: BTreeMap<String, serde_json::Value>,
+}
+
+/// One test, ready to run.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedTest {
+    pub site_id: String,
+    pub site_name: String,
+    pub spec: TestSpec,
+    pub beam: Option<BeamInfo>,
+    pub criteria: CriteriaSet,
+    pub measured: Option<PreparedInput>,
+    pub calculated: Option<PreparedInput>,
+    pub analyses: Vec<PreparedAnalysis>,
+}
+
+/// Everything a run of one machine needs.
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    pub machine: Machine,
+    pub tests: Vec<PreparedTest>,
+    /// Every input file once, sorted by path.
+    pub inputs: Vec<InputFile>,
+}
+
+/// Which machine to run: the one named, or the only one.
+pub fn choose_machine<'c>(campaign: &'c Campaign, requested: Option<&str>) -> Result<&'c Machine, Diagnostic> {
+    let ids: Vec<&str> = campaign.machines.iter().map(|m| m.id.as_str()).collect();
+    match requested {
+        Some(id) => campaign.machine(id).ok_or_else(|| {
+            let help = match nearest(id, ids.iter().copied()) {
+                Some(n) => format!("did you mean `{n}`? the campaign describes: {}", ids.join(", ")),
+                None => format!("the campaign describes: {}", ids.join(", ")),
+            };
+            Diagnostic::file(&campaign.path, format!("machine `{id}` is not described in the campaign")).help(help)
+        }),
+        None if campaign.machines.len() == 1 => Ok(&campaign.machines[0]),
+        None => Err(Diagnostic::file(&campaign.path, "the campaign describes several machines; choose one")
+            .help(format!("add `--machine ID`, one of: {}", ids.join(", ")))),
+    }
+}
+
+/// Check and read everything for `machine`. Returns every problem found.
+pub fn prepare(campaign: &Campaign, registry: &Registry, machine: &Machine) -> Result<Prepared, Vec<Diagnostic>> {
+    let mut diags = Vec::new();
+    let mut tests = Vec::new();
+    let mut files: BTreeMap<String, InputFile> = BTreeMap::new();
+    let at = |pos: Pos, msg: String| Diagnostic::at(&campaign.path, pos.line, pos.column, msg);
+    for site in &campaign.sites {
+        for spec in &site.tests {
+            if let Some(ms) = &spec.machines {
+                for (m, pos) in ms {
+                    if campaign.machine(m).is_none() {
+                        diags.push(at(*pos, format!("test `{}` names machine `{m}`, which is not described", spec.id))
+                            .help(format!("machines: {}", campaign.machines.iter().map(|m| m.id.as_str()).collect::<Vec<_>>().join(", "))));
+                    }
+                }
+            }
+            if !spec.applies_to(&machine.id) {
+                continue;
+            }
+            let before = diags.len();
+            let beam = beam_info(campaign, machine, spec, &mut diags);
+            let analyses = analyses(campaign, registry, spec, &mut diags);
+            let measured = input(campaign, machine, spec.measured.as_ref(), &mut files, &mut diags);
+            let calculated = input(campaign, machine, spec.calculated.as_ref(), &mut files, &mut diags);
+            if diags.len() == before {
+                if let Err(d) = check_shapes(campaign, spec, measured.as_ref(), calculated.as_ref()) {
+                    diags.push(d);
+                    continue;
+                }
+                // The decoder has checked that the criteria set exists.
+                let Some(criteria) = campaign.criteria_set(&spec.criteria.0).cloned() else {
+                    continue;
+                };
+                tests.push(PreparedTest {
+                    site_id: site.id.clone(),
+                    site_name: site.name.clone(),
+                    spec: spec.clone(),
+                    beam,
+                    criteria,
+                    measured,
+                    calculated,
+                    analyses,
+                });
+            }
+        }
+    }
+    if tests.is_empty() && diags.is_empty() {
+        diags.push(Diagnostic::file(&campaign.path, format!("no test applies to machine `{}`", machine.id))
+            .help("check the tests' `machines:` lists"));
+    }
+    if diags.is_empty() {
+        Ok(Prepared { machine: machine.clone(), tests, inputs: files.into_values().collect() })
+    } else {
+        Err(diags)
+    }
+}
+
+fn beam_info(campaign: &Campaign, machine: &Machine, spec: &TestSpec, diags: &mut Vec<Diagnostic>) -> Option<BeamInfo> {
+    let (id, pos) = spec.beam.as_ref()?;
+    match machine.beams.iter().find(|b| &b.id == id) {
+        Some(b) => Some(BeamInfo { id: b.id.clone(), modality: b.modality.clone(), energy: b.energy, fff: b.fff }),
+        None => {
+            let ids: Vec<&str> = machine.beams.iter().map(|b| b.id.as_str()).collect();
+            let help = match nearest(id, ids.iter().copied()) {
+                Some(n) => format!("did you mean `{n}`?"),
+                None => format!("beams of `{}`: {}", machine.id, ids.join(", ")),
+            };
+            diags.push(Diagnostic::at(&campaign.path, pos.line, pos.column, format!("machine `{}` has no beam `{id}`", machine.id)).help(help));
+            None
+        }
+    }
+}
+
+fn analyses(campaign: &Campaign, registry: &Registry, spec: &TestSpec, diags: &mut Vec<Diagnostic>) -> Vec<PreparedAnalysis> {
+    let mut out = Vec::new();
+    for a in &spec.analyses {
+        let at = |msg: String| Diagnostic::at(&campaign.path, a.pos.line, a.pos.column, msg);
+        let Some(plugin) = registry.get(&a.plugin) else {
+            let names: Vec<&str> = registry.names().collect();
+            let help = match nearest(&a.plugin, names.iter().copied()) {
+                Some(n) => format!("did you mean `{n}`?"),
+                None => format!("installed analyses: {}; a dynamic plugin's folder goes in `plugin-dirs` or `--plugin-dir`", names.join(", ")),
+            };
+            diags.push(at(format!("no analysis plugin named `{}`", a.plugin)).help(help));
+            continue;
+        };
+        if !plugin.manifest.kinds.contains(&spec.kind) {
+            let kinds: Vec<&str> = plugin.manifest.kinds.iter().map(|k| k.name()).collect();
+            diags.push(at(format!("plugin `{}` does not analyse `{}` tests", a.plugin, spec.kind.name()))
+                .help(format!("it accepts: {}", kinds.join(", "))));
+            continue;
+        }
+        match validate_params(&campaign.path, a, &plugin.manifest) {
+            Ok(params) => out.push(PreparedAnalysis { plugin: a.plugin.clone(), params }),
+            Err(mut d) => diags.append(&mut d),
+        }
+    }
+    out
+}
+
+/// Check a test's parameters against the plugin's declared parameters and fill in defaults.
+pub fn validate_params(file: &Path, a: &AnalysisSpec, manifest: &PluginManifest) -> Result<BTreeMap<String, serde_json::Value>, Vec<Diagnostic>> {
+    let mut diags = Vec::new();
+    let mut out = BTreeMap::new();
+    for (name, value, pos) in &a.params {
+        let at = |msg: String| Diagnostic::at(file, pos.line, pos.column, msg);
+        let Some(spec) = manifest.params.iter().find(|p| &p.name == name) else {
+            let names: Vec<&str> = manifest.params.iter().map(|p| p.name.as_str()).collect();
+            let help = match nearest(name, names.iter().copied()) {
+                Some(n) => format!("did you mean `{n}`?"),
+                None if names.is_empty() => format!("`{}` takes no parameters", manifest.name),
+                None => format!("parameters of `{}`: {}", manifest.name, names.join(", ")),
+            };
+            diags.push(at(format!("unknown parameter `{name}` for plugin `{}`", manifest.name)).help(help));
+            continue;
+        };
+        let problem = match (&spec.kind, value) {
+            (ParamType::Number { min, max }, serde_json::Value::Number(n)) => {
+                let v = n.as_f64().unwrap_or(f64::NAN);
+                range_problem(v, *min, *max)
+            }
+            (ParamType::Integer { min, max }, serde_json::Value::Number(n)) if n.is_i64() => {
+                let v = n.as_i64().unwrap_or(0);
+                range_problem(v as f64, min.map(|m| m as f64), max.map(|m| m as f64))
+            }
+            (ParamType::Bool, serde_json::Value::Bool(_)) | (ParamType::Text, serde_json::Value::String(_)) => None,
+            (ParamType::Choice { choices }, serde_json::Value::String(s)) if choices.contains(s) => None,
+            (ParamType::Choice { choices }, _) => Some(format!("must be one of: {}", choices.join(", "))),
+            (kind, _) => Some(format!("must be {}", kind_word(kind))),
+        };
+        match problem {
+            Some(p) => diags.push(at(format!("parameter `{name}` of `{}` {p}, found {value}", manifest.name)).help(spec.description.clone())),
+            None => {
+                out.insert(name.clone(), value.clone());
+            }
+        }
+    }
+    for spec in &manifest.params {
+        if let (false, Some(d)) = (out.contains_key(&spec.name), &spec.default) {
+            out.insert(spec.name.clone(), d.clone());
+        }
+    }
+    if diags.is_empty() { Ok(out) } else { Err(diags) }
+}
+
+fn range_problem(v: f64, min: Option<f64>, max: Option<f64>) -> Option<String> {
+    match (min, max) {
+        (Some(lo), _) if v < lo => Some(format!("must be at least {lo}")),
+        (_, Some(hi)) if v > hi => Some(format!("must be at most {hi}")),
+        _ => None,
+    }
+}
+
+fn kind_word(kind: &ParamType) -> &'static str {
+    match kind {
+        ParamType::Number { .. } => "a number",
+        ParamType::Integer { .. } => "a whole number",
+        ParamType::Bool => "true or false",
+        ParamType::Choice { .. } => "one of the listed words",
+        ParamType::Text => "text",
+    }
+}
+
+/// Input paths must be relative and stay inside the campaign folder, so that a run folder can
+/// hold a copy of every input at the same relative place.
+fn clean_relative(p: &str) -> Option<String> {
+    let path = Path::new(p);
+    if path.is_absolute() || p.contains('\\') {
+        return None;
+    }
+    let mut parts = Vec::new();
+    for c in path.components() {
+        match c {
+            std::path::Component::Normal(s) => parts.push(s.to_str()?.to_string()),
+            std::path::Component::CurDir => {}
+            _ => return None,
+        }
+    }
+    (!parts.is_empty()).then(|| parts.join("/"))
+}
+
+fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files: &mut BTreeMap<String, InputFile>, diags: &mut Vec<Diagnostic>) -> Option<PreparedInput> {
+    let spec = spec?;
+    let written = spec.path_for(&machine.id);
+    let at = |msg: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg);
+    let Some(rel) = clean_relative(&written) else {
+        diags.push(at(format!("input path `{written}` leaves the campaign folder"))
+            .help("give paths relative to the campaign file, without `..`, so the run folder can keep a copy of every input"));
+        return None;
+    };
+    let path = campaign.resolve(&rel);
+    let bytes = match std::fs::read(&path) {
+        Ok(b) => b,
+        Err(e) => {
+            let for_machine = if spec.template.contains("{machine}") { format!(" (for machine `{}`)", machine.id) } else { String::new() };
+            diags.push(at(format!("input file `{rel}`{for_machine} cannot be read: {}", e.kind().to_string().to_lowercase()))
+                .help(format!("expected at {}", path.display())));
+            return None;
+        }
+    };
+    match read_dataset(&path, &rel, spec.placement.as_ref()) {
+        Ok(dataset) => {
+            files.entry(rel.clone()).or_insert_with(|| InputFile { rel: rel.clone(), sha256: sha256_hex(&bytes), bytes });
+            Some(PreparedInput { rel, dataset })
+        }
+        Err(d) => {
+            diags.push(d);
+            None
+        }
+    }
+}
+
+/// The data shapes each test kind takes, checked before any analysis runs.
+fn check_shapes(campaign: &Campaign, spec: &TestSpec, measured: Option<&PreparedInput>, calculated: Option<&PreparedInput>) -> Result<(), Diagnostic> {
+    let at = |msg: String, help: &str| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg).help(help);
+    type ShapeOk = fn(&DatasetData) -> bool;
+    let depth: ShapeOk = |d| matches!(d, DatasetData::Curve(c) if c.axis == beamproof_api::CurveAxis::Depth);
+    let lateral: ShapeOk = |d| matches!(d, DatasetData::Curve(c) if c.axis != beamproof_api::CurveAxis::Depth);
+    let points: ShapeOk = |d| matches!(d, DatasetData::Points(_));
+    let grid: ShapeOk = |d| matches!(d, DatasetData::Grid(_));
+    let plane: ShapeOk = |d| matches!(d, DatasetData::Grid(g) if g.dimensions() == 2);
+    let volume: ShapeOk = |d| matches!(d, DatasetData::Grid(g) if g.dimensions() == 3);
+    let points_or_grid: ShapeOk = |d| matches!(d, DatasetData::Points(_) | DatasetData::Grid(_));
+    let (want_m, want_c, words): (Option<ShapeOk>, Option<ShapeOk>, &str) = match spec.kind {
+        TestKind::DepthDose => (Some(depth), Some(depth), "measured and calculated depth curves (`# axis: depth`)"),
+        TestKind::Profile => (Some(lateral), Some(lateral), "measured and calculated profiles (`# axis: x`, `y` or `diagonal`)"),
+        TestKind::Plane => (Some(plane), Some(grid), "a measured 2D plane and a calculated plane or volume"),
+        TestKind::Volume => (Some(volume), Some(volume), "measured and calculated 3D grids"),
+        TestKind::PointSet => (Some(points), Some(grid), "measured points and a calculated dose grid"),
+        TestKind::PointDose => (Some(points), Some(points_or_grid), "measured points and calculated points or a dose grid"),
+        TestKind::MuCheck => (None, None, ""),
+    };
+    for (role, want, got) in [("measured", want_m, measured), ("calculated", want_c, calculated)] {
+        let Some(ok) = want else { continue };
+        match got {
+            None => return Err(at(format!("a `{}` test needs `{role}` data", spec.kind.name()), &format!("give {words}"))),
+            Some(inp) if !ok(&inp.dataset.data) => {
+                return Err(at(
+                    format!("`{role}` file `{}` holds a {}, which does not fit a `{}` test", inp.rel, inp.dataset.shape_name(), spec.kind.name()),
+                    &format!("a `{}` test takes {words}", spec.kind.name()),
+                ));
+            }
+            Some(_) => {}
+        }
+    }
+    if let (Some(m), Some(c)) = (measured, calculated)
+        && m.dataset.unit != c.dataset.unit
+    {
+        return Err(at(
+            format!(
+                "mismatched dose units: measured `{}` is in {}, calculated `{}` in {}",
+                m.rel, m.dataset.unit.label(), c.rel, c.dataset.unit.label()
+            ),
+            "give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)",
+        ));
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn input_paths_stay_inside_the_campaign_folder() {
+        assert_eq!(clean_relative("./data/lin-a/p.csv").as_deref(), Some("data/lin-a/p.csv"));
+        assert_eq!(clean_relative("../secret.csv"), None);
+        assert_eq!(clean_relative("/abs/p.csv"), None);
+        assert_eq!(clean_relative("data/../../x"), None);
+    }
+}
