@@ -8,3 +8,5 @@ pub mod readers;
 pub mod checksum;
 pub mod registry;
 pub mod prepare;
+pub mod output;
+pub mod run;

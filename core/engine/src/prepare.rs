@@ -28,6 +28,7 @@ pub struct InputFile {
 #[derive(Debug, Clone, PartialEq)]
 pub struct PreparedInput {
     pub rel: String,
+    pub sha256: String,
     pub dataset: Dataset,
 }
 
@@ -279,8 +280,9 @@ fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files
     };
     match read_dataset(&path, &rel, spec.placement.as_ref()) {
         Ok(dataset) => {
-            files.entry(rel.clone()).or_insert_with(|| InputFile { rel: rel.clone(), sha256: sha256_hex(&bytes), bytes });
-            Some(PreparedInput { rel, dataset })
+            let sha256 = sha256_hex(&bytes);
+            files.entry(rel.clone()).or_insert_with(|| InputFile { rel: rel.clone(), sha256: sha256.clone(), bytes });
+            Some(PreparedInput { rel, sha256, dataset })
         }
         Err(d) => {
             diags.push(d);

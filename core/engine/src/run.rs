@@ -1,0 +1,321 @@
+//! Running a prepared campaign: every analysis of every test, in campaign order. A failing or
+//! broken analysis is recorded as an error of its test and never stops the campaign. The result
+//! is the run record written as `results.json`.
+
+use std::collections::BTreeMap;
+
+use beamproof_api::{AnalysisInput, AnalysisOutput, CriteriaSet, Reference, Status, TestInfo};
+use serde::Serialize;
+
+use crate::campaign::{Campaign, Tps};
+use crate::prepare::{Prepared, PreparedTest};
+use crate::registry::{Origin, Registry};
+
+/// Format tag of `results.json`.
+pub const RESULTS_FORMAT: &str = "beamproof-results/1";
+
+/// The cautions printed by the CLI and in every report.
+pub const CAUTIONS: [&str; 3] = [
+    "Results must be reviewed and signed by a qualified medical physicist before any clinical use.",
+    "beamproof is not a medical device and is not certified for clinical use; it supports, and never replaces, professional judgement.",
+    "Local regulations, institutional policy and licensed professional practice prevail over anything this report states.",
+];
+
+#[derive(Debug, Clone, Serialize)]
+pub struct RunRecord {
+    pub format: &'static str,
+    pub software: Software,
+    pub campaign: CampaignRecord,
+    pub machine: MachineRecord,
+    pub run: RunInfo,
+    pub plugins: Vec<PluginRecord>,
+    pub criteria: Vec<CriteriaSet>,
+    pub sites: Vec<SiteRecord>,
+    pub summary: Summary,
+    pub references: Vec<Reference>,
+    pub cautions: Vec<&'static str>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Software {
+    pub name: &'static str,
+    pub version: &'static str,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CampaignRecord {
+    pub id: String,
+    pub title: String,
+    pub institution: String,
+    /// Path of the campaign copy inside the run folder.
+    pub file: String,
+    pub sha256: String,
+    pub tps: TpsRecord,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TpsRecord {
+    pub name: String,
+    pub version: String,
+    pub beam_model: String,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct MachineRecord {
+    pub id: String,
+    pub description: String,
+    pub beams: Vec<BeamRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct BeamRecord {
+    pub id: String,
+    pub modality: String,
+    pub energy: f64,
+    pub fff: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct RunInfo {
+    /// The run date (an input: `--date` or the campaign), never the wall clock.
+    pub date: String,
+    /// Command that reproduces the run from inside the run folder.
+    pub reproduce: String,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct PluginRecord {
+    pub name: String,
+    pub version: String,
+    /// `built-in` or `dynamic`.
+    pub origin: &'static str,
+    /// File name and checksum of a dynamic plugin.
+    pub file: Option<String>,
+    pub sha256: Option<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SiteRecord {
+    pub id: String,
+    pub name: String,
+    pub tests: Vec<TestRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct InputRecord {
+    pub role: &'static str,
+    /// Path inside the run folder.
+    pub file: String,
+    pub sha256: String,
+    /// Unit and shape as read.
+    pub unit: String,
+    pub shape: String,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TestRecord {
+    pub id: String,
+    pub name: String,
+    pub kind: String,
+    pub beam: Option<String>,
+    pub criteria: String,
+    pub status: Status,
+    pub inputs: Vec<InputRecord>,
+    pub analyses: Vec<AnalysisRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct AnalysisRecord {
+    pub plugin: String,
+    pub version: String,
+    pub params: BTreeMap<String, serde_json::Value>,
+    pub status: Status,
+    /// Why the analysis could not run (status `error`).
+    pub error: Option<String>,
+    pub output: Option<AnalysisOutput>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Summary {
+    pub tests: usize,
+    pub pass: usize,
+    pub warn: usize,
+    pub fail: usize,
+    pub error: usize,
+    /// `GO` only when no test failed or errored.
+    pub verdict: &'static str,
+    /// Tests that failed or errored, as `site/test: status`.
+    pub reasons: Vec<String>,
+    /// Tests with warnings.
+    pub warnings: Vec<String>,
+}
+
+impl RunRecord {
+    /// Pretty JSON with a final newline; field order is fixed by the structs and maps are
+    /// sorted, so the same run gives the same bytes.
+    pub fn to_json(&self) -> Vec<u8> {
+        let mut v = serde_json::to_vec_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}").into_bytes());
+        v.push(b'\n');
+        v
+    }
+
+    /// True when the verdict is GO.
+    pub fn is_go(&self) -> bool {
+        self.summary.verdict == "GO"
+    }
+}
+
+/// Inside the run folder, inputs and the campaign copy live under this folder.
+pub const INPUTS_DIR: &str = "inputs";
+
+/// Run every prepared test. `progress` is called after each test with (done, total, test id).
+pub fn run(
+    campaign: &Campaign,
+    prepared: &Prepared,
+    registry: &Registry,
+    date: &str,
+    mut progress: impl FnMut(usize, usize, &str),
+) -> RunRecord {
+    let total = prepared.tests.len();
+    let mut sites: Vec<SiteRecord> = Vec::new();
+    for (i, t) in prepared.tests.iter().enumerate() {
+        let record = run_test(t, &prepared.machine.id, registry);
+        match sites.last_mut() {
+            Some(s) if s.id == t.site_id => s.tests.push(record),
+            _ => sites.push(SiteRecord { id: t.site_id.clone(), name: t.site_name.clone(), tests: vec![record] }),
+        }
+        progress(i + 1, total, &t.spec.id);
+    }
+    let campaign_name = campaign.path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "campaign.yaml".into());
+    let summary = summarise(&sites);
+    let mut references: Vec<Reference> = sites
+        .iter()
+        .flat_map(|s| &s.tests)
+        .flat_map(|t| &t.analyses)
+        .filter_map(|a| a.output.as_ref())
+        .flat_map(|o| o.references.iter().cloned())
+        .collect();
+    references.sort();
+    references.dedup();
+    let Tps { name, version, beam_model } = campaign.tps.clone();
+    RunRecord {
+        format: RESULTS_FORMAT,
+        software: Software { name: "beamproof", version: env!("CARGO_PKG_VERSION") },
+        campaign: CampaignRecord {
+            id: campaign.id.clone(),
+            title: campaign.title.clone(),
+            institution: campaign.institution.clone(),
+            file: format!("{INPUTS_DIR}/{campaign_name}"),
+            sha256: crate::checksum::sha256_hex(&campaign.bytes),
+            tps: TpsRecord { name, version, beam_model },
+        },
+        machine: MachineRecord {
+            id: prepared.machine.id.clone(),
+            description: prepared.machine.description.clone(),
+            beams: prepared.machine.beams.iter().map(|b| BeamRecord { id: b.id.clone(), modality: b.modality.clone(), energy: b.energy, fff: b.fff }).collect(),
+        },
+        run: RunInfo {
+            date: date.to_string(),
+            reproduce: format!("beamproof run {INPUTS_DIR}/{campaign_name} --machine {} --date {date}", prepared.machine.id),
+        },
+        plugins: registry
+            .plugins()
+            .iter()
+            .map(|p| PluginRecord {
+                name: p.manifest.name.clone(),
+                version: p.manifest.version.clone(),
+                origin: match p.origin {
+                    Origin::BuiltIn => "built-in",
+                    Origin::Dynamic { .. } => "dynamic",
+                },
+                file: match &p.origin {
+                    Origin::Dynamic { path, .. } => path.file_name().map(|n| n.to_string_lossy().into_owned()),
+                    Origin::BuiltIn => None,
+                },
+                sha256: match &p.origin {
+                    Origin::Dynamic { sha256, .. } => Some(sha256.clone()),
+                    Origin::BuiltIn => None,
+                },
+            })
+            .collect(),
+        criteria: campaign.criteria.clone(),
+        sites,
+        summary,
+        references,
+        cautions: CAUTIONS.to_vec(),
+    }
+}
+
+fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord {
+    let input = AnalysisInput {
+        test: TestInfo {
+            site: t.site_id.clone(),
+            id: t.spec.id.clone(),
+            name: t.spec.name.clone(),
+            kind: t.spec.kind,
+            machine: machine.to_string(),
+            beam: t.beam.clone(),
+        },
+        params: BTreeMap::new(),
+        criteria: t.criteria.clone(),
+        measured: t.measured.as_ref().map(|m| m.dataset.clone()),
+        calculated: t.calculated.as_ref().map(|c| c.dataset.clone()),
+    };
+    let analyses: Vec<AnalysisRecord> = t
+        .analyses
+        .iter()
+        .map(|a| {
+            let plugin = registry.get(&a.plugin);
+            let version = plugin.map(|p| p.manifest.version.clone()).unwrap_or_default();
+            let result = match plugin {
+                Some(p) => p.analyse(&AnalysisInput { params: a.params.clone(), ..input.clone() }),
+                None => Err(format!("plugin `{}` is not loaded", a.plugin)),
+            };
+            match result {
+                Ok(output) => AnalysisRecord { plugin: a.plugin.clone(), version, params: a.params.clone(), status: output.overall_status(), error: None, output: Some(output) },
+                Err(e) => AnalysisRecord { plugin: a.plugin.clone(), version, params: a.params.clone(), status: Status::Error, error: Some(e), output: None },
+            }
+        })
+        .collect();
+    let inputs = [("measured", &t.measured), ("calculated", &t.calculated)]
+        .into_iter()
+        .filter_map(|(role, i)| {
+            let i = i.as_ref()?;
+            Some(InputRecord {
+                role,
+                file: format!("{INPUTS_DIR}/{}", i.rel),
+                sha256: i.sha256.clone(),
+                unit: i.dataset.unit.label().to_string(),
+                shape: i.dataset.shape_name().to_string(),
+            })
+        })
+        .collect();
+    TestRecord {
+        id: t.spec.id.clone(),
+        name: t.spec.name.clone(),
+        kind: t.spec.kind.name().to_string(),
+        beam: t.beam.as_ref().map(|b| b.id.clone()),
+        criteria: t.criteria.name.clone(),
+        status: Status::worst(analyses.iter().map(|a| a.status)).unwrap_or(Status::Error),
+        inputs,
+        analyses,
+    }
+}
+
+fn summarise(sites: &[SiteRecord]) -> Summary {
+    let all: Vec<(&SiteRecord, &TestRecord)> = sites.iter().flat_map(|s| s.tests.iter().map(move |t| (s, t))).collect();
+    let count = |st: Status| all.iter().filter(|(_, t)| t.status == st).count();
+    let label = |s: &SiteRecord, t: &TestRecord| format!("{}/{}: {}", s.id, t.id, t.status.word());
+    let reasons: Vec<String> = all.iter().filter(|(_, t)| t.status >= Status::Fail).map(|(s, t)| label(s, t)).collect();
+    let warnings: Vec<String> = all.iter().filter(|(_, t)| t.status == Status::Warn).map(|(s, t)| label(s, t)).collect();
+    Summary {
+        tests: all.len(),
+        pass: count(Status::Pass),
+        warn: count(Status::Warn),
+        fail: count(Status::Fail),
+        error: count(Status::Error),
+        verdict: if reasons.is_empty() { "GO" } else { "NO-GO" },
+        reasons,
+        warnings,
+    }
+}
