@@ -1,0 +1,263 @@
+//! The `beamproof` command as a library: argument parsing, error rendering and exit codes.
+//! Glue only; the work is done by beamproof-engine (campaign, inputs, analyses) and
+//! beamproof-report (PDF). `main.rs` calls [`main_with`] with the process's streams; tests call
+//! it with buffers.
+//!
+//! Exit codes: 0 success (run: verdict GO), 1 run finished with NO-GO (a test failed or could
+//! not be analysed), 2 could not run (bad input or usage), 3 verification found changed or
+//! missing files.
+
+use std::ffi::OsString;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use beamproof_engine::campaign::Campaign;
+use beamproof_engine::checksum::verify_run;
+use beamproof_engine::diag::{Diagnostic, render_all};
+use beamproof_engine::prepare::{choose_machine, prepare};
+use beamproof_engine::registry::{Origin, Registry};
+use beamproof_engine::run::{CAUTIONS, run};
+use clap::{Parser, Subcommand};
+
+/// Success; for `run`, the verdict is GO.
+pub const EXIT_GO: u8 = 0;
+/// `run` finished and the verdict is NO-GO.
+pub const EXIT_NO_GO: u8 = 1;
+/// Bad input or usage: nothing was run or written.
+pub const EXIT_CANNOT_RUN: u8 = 2;
+/// `verify` found changed or missing files.
+pub const EXIT_VERIFY_FAILED: u8 = 3;
+
+const AFTER_HELP: &str = "\
+Exit codes: 0 success (GO), 1 ran with failures or errors (NO-GO), 2 could not run, 3 verification failed.
+
+Cautions: results must be reviewed and signed by a qualified medical physicist before clinical use.
+beamproof is not a medical device. Local regulations and licensed practice prevail.";
+
+#[derive(Parser)]
+#[command(name = "beamproof", version, about = "Commissioning and beam-model validation campaigns for radiotherapy linacs, with checksummed PDF reports", after_help = AFTER_HELP)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Check a campaign file and read every input, without running any analysis
+    Check {
+        campaign: PathBuf,
+        /// Check only this machine (default: every machine of the campaign)
+        #[arg(long)]
+        machine: Option<String>,
+        /// Extra folder of dynamic plugins (repeatable)
+        #[arg(long = "plugin-dir")]
+        plugin_dirs: Vec<PathBuf>,
+    },
+    /// Run a campaign for one machine and write a run folder with results, report and manifest
+    Run {
+        campaign: PathBuf,
+        /// Machine to run (needed when the campaign describes several)
+        #[arg(long)]
+        machine: Option<String>,
+        /// Run folder to create (default: runs/CAMPAIGN-MACHINE-DATE); never overwritten
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Run date YYYY-MM-DD recorded in the results (default: the campaign's `date`)
+        #[arg(long)]
+        date: Option<String>,
+        /// Extra folder of dynamic plugins (repeatable)
+        #[arg(long = "plugin-dir")]
+        plugin_dirs: Vec<PathBuf>,
+    },
+    /// Re-compute every checksum of a run folder's manifest
+    Verify { run_dir: PathBuf },
+    /// List the built-in plugins and those found in plugin folders
+    Plugins {
+        /// Also load the plugin folders named by this campaign
+        #[arg(long)]
+        campaign: Option<PathBuf>,
+        /// Folder of dynamic plugins (repeatable)
+        #[arg(long = "plugin-dir")]
+        plugin_dirs: Vec<PathBuf>,
+    },
+}
+
+/// Write a line to the command's standard output; a closed pipe is not an error worth a panic.
+macro_rules! outln {
+    ($io:expr, $($arg:tt)*) => {{ let _ = writeln!($io.out, $($arg)*); }};
+}
+
+/// A failure already rendered for the terminal, with its exit code.
+struct Failure {
+    text: String,
+    code: u8,
+}
+
+impl From<Vec<Diagnostic>> for Failure {
+    fn from(d: Vec<Diagnostic>) -> Self {
+        Failure { text: render_all(&d), code: EXIT_CANNOT_RUN }
+    }
+}
+
+impl From<Diagnostic> for Failure {
+    fn from(d: Diagnostic) -> Self {
+        vec![d].into()
+    }
+}
+
+/// Output streams and whether stderr is a terminal (for the progress bar).
+pub struct Io<'a> {
+    pub out: &'a mut dyn Write,
+    pub err: &'a mut dyn Write,
+    pub progress: bool,
+}
+
+/// Run the command line `args` (including the program name) and return the exit code.
+pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
+    let cli = match Cli::try_parse_from(args) {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = write!(io.err, "{}", e.render());
+            return if e.use_stderr() { EXIT_CANNOT_RUN } else { EXIT_GO };
+        }
+    };
+    let result = match cli.command {
+        Command::Check { campaign, machine, plugin_dirs } => check(io, &campaign, machine.as_deref(), &plugin_dirs),
+        Command::Run { campaign, machine, out, date, plugin_dirs } => {
+            run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs)
+        }
+        Command::Verify { run_dir } => verify(io, &run_dir),
+        Command::Plugins { campaign, plugin_dirs } => plugins(io, campaign.as_deref(), &plugin_dirs),
+    };
+    match result {
+        Ok(code) => code,
+        Err(f) => {
+            let _ = writeln!(io.err, "{}", f.text);
+            f.code
+        }
+    }
+}
+
+fn load(campaign: &Path, extra_dirs: &[PathBuf]) -> Result<(Campaign, Registry), Failure> {
+    let c = Campaign::load(campaign)?;
+    let mut dirs: Vec<PathBuf> = c.plugin_dirs.iter().map(|(p, _)| c.dir.join(p)).collect();
+    dirs.extend(extra_dirs.iter().cloned());
+    let registry = Registry::with_dirs(&dirs)?;
+    Ok((c, registry))
+}
+
+fn check(io: &mut Io, campaign: &Path, machine: Option<&str>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
+    let (c, registry) = load(campaign, plugin_dirs)?;
+    let machines = match machine {
+        Some(m) => vec![choose_machine(&c, Some(m))?.clone()],
+        None => c.machines.clone(),
+    };
+    let mut diags: Vec<Diagnostic> = Vec::new();
+    let mut n_tests = 0;
+    for m in &machines {
+        match prepare(&c, &registry, m) {
+            Ok(p) => n_tests += p.tests.len(),
+            Err(ds) => {
+                for d in ds {
+                    if !diags.contains(&d) {
+                        diags.push(d);
+                    }
+                }
+            }
+        }
+    }
+    if !diags.is_empty() {
+        return Err(diags.into());
+    }
+    let ids: Vec<&str> = machines.iter().map(|m| m.id.as_str()).collect();
+    outln!(io, "{}: ok ({n_tests} test runs over machines {}; every input read)", campaign.display(), ids.join(", "));
+    Ok(EXIT_GO)
+}
+
+fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option<PathBuf>, date: Option<String>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
+    let (c, registry) = load(campaign, plugin_dirs)?;
+    let m = choose_machine(&c, machine)?.clone();
+    let date = match date.or_else(|| c.date.clone()) {
+        Some(d) if beamproof_engine::campaign::valid_iso_date(&d) => d,
+        Some(d) => return Err(Diagnostic::file(campaign, format!("run date `{d}` is not a valid date")).help("write --date YYYY-MM-DD").into()),
+        None => {
+            return Err(Diagnostic::file(campaign, "no run date: the results record the date the measurements were analysed")
+                .help("add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD")
+                .into());
+        }
+    };
+    let out = out.unwrap_or_else(|| PathBuf::from("runs").join(format!("{}-{}-{date}", c.id, m.id)));
+    if out.exists() {
+        return Err(Failure {
+            text: format!("error: run folder {} already exists; runs are never overwritten\n  = help: choose another folder with --out", out.display()),
+            code: EXIT_CANNOT_RUN,
+        });
+    }
+    let prepared = prepare(&c, &registry, &m)?;
+    let bar = if io.progress {
+        indicatif::ProgressBar::new(prepared.tests.len() as u64)
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
+    let record = run(&c, &prepared, &registry, &date, |done, _, id| {
+        bar.set_position(done as u64);
+        bar.set_message(id.to_string());
+    });
+    bar.finish_and_clear();
+    let json = record.to_json();
+    let templates = c.templates.as_ref().map(|(p, _)| c.dir.join(p));
+    let pdf = beamproof_report::render_pdf(&json, templates.as_deref())
+        .map_err(|e| Failure { text: format!("error: the report could not be made: {e}\n  = help: fix the template, or remove `report: templates:` to use the built-in one"), code: EXIT_CANNOT_RUN })?;
+    beamproof_engine::output::write_run_folder(&out, &c, &prepared, &json, &pdf)
+        .map_err(|e| Failure { text: format!("error: {e}\n  = help: choose another folder with --out, or check free space and permissions"), code: EXIT_CANNOT_RUN })?;
+    let s = &record.summary;
+    outln!(io, "run folder: {}", out.display());
+    outln!(io, "machine {} · {} tests: {} pass, {} warn, {} fail, {} error", m.id, s.tests, s.pass, s.warn, s.fail, s.error);
+    outln!(io, "verdict: {} (advisory)", s.verdict);
+    for r in &s.reasons {
+        outln!(io, "  - {r}");
+    }
+    outln!(io, "");
+    for caution in CAUTIONS {
+        outln!(io, "caution: {caution}");
+    }
+    Ok(if record.is_go() { EXIT_GO } else { EXIT_NO_GO })
+}
+
+fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
+    let v = verify_run(run_dir).map_err(|e| Failure { text: format!("error: {e}\n  = help: give a run folder made by `beamproof run`"), code: EXIT_CANNOT_RUN })?;
+    for f in &v.findings {
+        outln!(io, "{f}");
+    }
+    for u in &v.uncovered {
+        outln!(io, "not covered by the manifest: {u}");
+    }
+    if v.findings.is_empty() {
+        outln!(io, "{}: all {} files match the manifest", run_dir.display(), v.ok.len());
+        Ok(EXIT_GO)
+    } else {
+        outln!(io, "{}: {} problem(s); {} files match", run_dir.display(), v.findings.len(), v.ok.len());
+        Ok(EXIT_VERIFY_FAILED)
+    }
+}
+
+fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
+    let registry = match campaign {
+        Some(c) => load(c, plugin_dirs)?.1,
+        None => Registry::with_dirs(plugin_dirs)?,
+    };
+    for p in registry.plugins() {
+        let origin = match &p.origin {
+            Origin::BuiltIn => "built-in".to_string(),
+            Origin::Dynamic { path, .. } => path.display().to_string(),
+        };
+        let kinds: Vec<&str> = p.manifest.kinds.iter().map(|k| k.name()).collect();
+        outln!(io, "{} {}  [{}]  {}", p.manifest.name, p.manifest.version, kinds.join(", "), origin);
+        outln!(io, "    {}", p.manifest.description);
+        for param in &p.manifest.params {
+            let default = param.default.as_ref().map(|d| format!(" (default {d})")).unwrap_or_default();
+            outln!(io, "    - {}{}: {}", param.name, default, param.description);
+        }
+    }
+    Ok(EXIT_GO)
+}
