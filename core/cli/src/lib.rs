@@ -11,10 +11,10 @@ use std::ffi::OsString;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
-use beamproof_engine::campaign::Campaign;
+use beamproof_engine::campaign::{Campaign, Machine};
 use beamproof_engine::checksum::verify_run;
 use beamproof_engine::diag::{Diagnostic, render_all};
-use beamproof_engine::prepare::{choose_machine, prepare};
+use beamproof_engine::prepare::{Prepared, choose_machine, prepare};
 use beamproof_engine::registry::{Origin, Registry};
 use beamproof_engine::run::{CAUTIONS, run};
 use clap::{Parser, Subcommand};
@@ -138,25 +138,37 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
     }
 }
 
-fn load(campaign: &Path, extra_dirs: &[PathBuf]) -> Result<(Campaign, Registry), Failure> {
-    let c = Campaign::load(campaign)?;
-    let mut dirs: Vec<PathBuf> = c.plugin_dirs.iter().map(|(p, _)| c.dir.join(p)).collect();
-    dirs.extend(extra_dirs.iter().cloned());
-    let registry = Registry::with_dirs(&dirs)?;
-    Ok((c, registry))
+/// Which machines a command prepares.
+enum Machines<'a> {
+    All,
+    One(Option<&'a str>),
 }
 
-fn check(io: &mut Io, campaign: &Path, machine: Option<&str>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
-    let (c, registry) = load(campaign, plugin_dirs)?;
-    let machines = match machine {
-        Some(m) => vec![choose_machine(&c, Some(m))?.clone()],
-        None => c.machines.clone(),
+/// Load the campaign, the plugins and every input for the chosen machines, collecting every
+/// problem of every stage before giving up, so the user sees them all at once.
+fn gather(campaign: &Path, machines: Machines, extra_dirs: &[PathBuf]) -> Result<(Campaign, Registry, Vec<Prepared>), Failure> {
+    let (c, mut diags) = Campaign::load_partial(campaign);
+    let Some(c) = c else {
+        return Err(diags.into());
     };
-    let mut diags: Vec<Diagnostic> = Vec::new();
-    let mut n_tests = 0;
-    for m in &machines {
+    let mut dirs: Vec<PathBuf> = c.plugin_dirs.iter().map(|(p, _)| c.dir.join(p)).collect();
+    dirs.extend(extra_dirs.iter().cloned());
+    let registry = Registry::with_dirs(&dirs).unwrap_or_else(|d| {
+        diags.extend(d);
+        Registry::built_in()
+    });
+    let chosen: Vec<Machine> = match machines {
+        Machines::All => c.machines.clone(),
+        Machines::One(id) => match choose_machine(&c, id) {
+            Ok(m) => vec![m.clone()],
+            Err(d) if diags.is_empty() => return Err(d.into()),
+            Err(_) => Vec::new(),
+        },
+    };
+    let mut prepared = Vec::new();
+    for m in &chosen {
         match prepare(&c, &registry, m) {
-            Ok(p) => n_tests += p.tests.len(),
+            Ok(p) => prepared.push(p),
             Err(ds) => {
                 for d in ds {
                     if !diags.contains(&d) {
@@ -166,17 +178,24 @@ fn check(io: &mut Io, campaign: &Path, machine: Option<&str>, plugin_dirs: &[Pat
             }
         }
     }
-    if !diags.is_empty() {
-        return Err(diags.into());
-    }
-    let ids: Vec<&str> = machines.iter().map(|m| m.id.as_str()).collect();
+    if diags.is_empty() { Ok((c, registry, prepared)) } else { Err(diags.into()) }
+}
+
+fn check(io: &mut Io, campaign: &Path, machine: Option<&str>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
+    let which = if machine.is_some() { Machines::One(machine) } else { Machines::All };
+    let (_, _, prepared) = gather(campaign, which, plugin_dirs)?;
+    let n_tests: usize = prepared.iter().map(|p| p.tests.len()).sum();
+    let ids: Vec<&str> = prepared.iter().map(|p| p.machine.id.as_str()).collect();
     outln!(io, "{}: ok ({n_tests} test runs over machines {}; every input read)", campaign.display(), ids.join(", "));
     Ok(EXIT_GO)
 }
 
 fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option<PathBuf>, date: Option<String>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
-    let (c, registry) = load(campaign, plugin_dirs)?;
-    let m = choose_machine(&c, machine)?.clone();
+    let (c, registry, mut prepared) = gather(campaign, Machines::One(machine), plugin_dirs)?;
+    let Some(prepared) = prepared.pop() else {
+        return Err(Diagnostic::file(campaign, "no machine to run").into());
+    };
+    let m = prepared.machine.clone();
     let date = match date.or_else(|| c.date.clone()) {
         Some(d) if beamproof_engine::campaign::valid_iso_date(&d) => d,
         Some(d) => return Err(Diagnostic::file(campaign, format!("run date `{d}` is not a valid date")).help("write --date YYYY-MM-DD").into()),
@@ -193,7 +212,6 @@ fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option
             code: EXIT_CANNOT_RUN,
         });
     }
-    let prepared = prepare(&c, &registry, &m)?;
     let bar = if io.progress {
         indicatif::ProgressBar::new(prepared.tests.len() as u64)
     } else {
@@ -243,7 +261,7 @@ fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
 
 fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
     let registry = match campaign {
-        Some(c) => load(c, plugin_dirs)?.1,
+        Some(c) => gather(c, Machines::All, plugin_dirs)?.1,
         None => Registry::with_dirs(plugin_dirs)?,
     };
     for p in registry.plugins() {

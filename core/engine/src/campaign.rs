@@ -98,7 +98,7 @@ pub struct Campaign {
     pub templates: Option<(PathBuf, Pos)>,
 }
 
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct Tps {
     pub name: String,
     pub version: String,
@@ -212,6 +212,23 @@ impl TestSpec {
 impl Campaign {
     /// Read and decode a campaign file, reporting every structural problem at once.
     pub fn load(path: &Path) -> Result<Campaign, Vec<Diagnostic>> {
+        match Campaign::load_partial(path) {
+            (Some(c), d) if d.is_empty() => Ok(c),
+            (_, d) => Err(d),
+        }
+    }
+
+    /// Read and decode as much as possible: the campaign without the parts that have problems,
+    /// and every problem. `None` when the file cannot be read or is not valid YAML. Used to go
+    /// on checking references and input files, so that all problems are reported in one pass.
+    pub fn load_partial(path: &Path) -> (Option<Campaign>, Vec<Diagnostic>) {
+        match Campaign::decode(path) {
+            Ok(pair) => pair,
+            Err(d) => (None, d),
+        }
+    }
+
+    fn decode(path: &Path) -> Result<(Option<Campaign>, Vec<Diagnostic>), Vec<Diagnostic>> {
         let bytes = std::fs::read(path).map_err(|e| {
             vec![
                 Diagnostic::file(path, format!("cannot read the campaign file: {e}"))
@@ -230,10 +247,7 @@ impl Campaign {
             diags: Vec::new(),
         };
         let campaign = d.campaign(&root, path, &bytes);
-        match campaign {
-            Some(c) if d.diags.is_empty() => Ok(c),
-            _ => Err(d.diags),
-        }
+        Ok((campaign, d.diags))
     }
 
     pub fn machine(&self, id: &str) -> Option<&Machine> {
@@ -473,12 +487,17 @@ impl<'f> Decoder<'f> {
             }),
             None => Some(Vec::new()),
         };
-        let criteria = self
-            .required(&f, "criteria", "add a `criteria:` mapping with at least one named criteria set")
-            .and_then(|n| self.criteria(n));
+        let criteria_node = self.required(&f, "criteria", "add a `criteria:` mapping with at least one named criteria set");
+        let criteria = criteria_node.and_then(|n| self.criteria(n));
+        // Tests are checked against every criteria name written, so that a set with an error
+        // of its own does not also make each test that uses it fail.
+        let criteria_names: Vec<String> = match criteria_node.map(|n| &n.value) {
+            Some(Value::Map(entries)) => entries.iter().filter_map(|(k, _)| k.scalar().map(str::to_string)).collect(),
+            _ => Vec::new(),
+        };
         let sites = self
             .required(&f, "sites", "add a `sites:` list with at least one site holding tests")
-            .and_then(|n| self.sites(n, criteria.as_deref().unwrap_or(&[])));
+            .and_then(|n| self.sites(n, &criteria_names));
         let templates = match f.get("report") {
             Some(n) => self.fields(n, "`report`", REPORT_KEYS).and_then(|r| {
                 let t = r.get("templates")?;
@@ -495,15 +514,15 @@ impl<'f> Decoder<'f> {
             path: path.to_path_buf(),
             dir,
             bytes: bytes.to_vec(),
-            id: id?,
-            title: title?,
-            institution: institution?,
+            id: id.unwrap_or_default(),
+            title: title.unwrap_or_default(),
+            institution: institution.unwrap_or_default(),
             date,
-            tps: tps?,
-            machines: machines?,
-            plugin_dirs: plugin_dirs?,
-            criteria: criteria?,
-            sites: sites?,
+            tps: tps.unwrap_or_default(),
+            machines: machines.unwrap_or_default(),
+            plugin_dirs: plugin_dirs.unwrap_or_default(),
+            criteria: criteria.unwrap_or_default(),
+            sites: sites.unwrap_or_default(),
             templates,
         })
     }
@@ -527,19 +546,16 @@ impl<'f> Decoder<'f> {
             return None;
         }
         let mut out: Vec<Machine> = Vec::new();
-        let mut ok = true;
         for item in items {
             let Some(m) = self.machine(item) else {
-                ok = false;
                 continue;
             };
             if out.iter().any(|o| o.id == m.id) {
                 self.report(item, format!("machine id `{}` is used twice", m.id), "give each machine its own id");
-                ok = false;
             }
             out.push(m);
         }
-        ok.then_some(out)
+        Some(out)
     }
 
     fn machine(&mut self, n: &Node) -> Option<Machine> {
@@ -550,23 +566,21 @@ impl<'f> Decoder<'f> {
         let beams = beams_node.and_then(|b| {
             let items = self.list(b, "`beams`")?;
             let mut out: Vec<Beam> = Vec::new();
-            let mut ok = true;
             for item in items {
                 match self.beam(item) {
                     Some(beam) if out.iter().any(|o| o.id == beam.id) => {
                         self.report(item, format!("beam id `{}` is used twice", beam.id), "give each beam of a machine its own id");
-                        ok = false;
                     }
                     Some(beam) => out.push(beam),
-                    None => ok = false,
+                    None => {}
                 }
             }
-            ok.then_some(out)
+            Some(out)
         });
         Some(Machine {
             id: id?,
             description,
-            beams: beams?,
+            beams: beams.unwrap_or_default(),
             pos: Pos::of(n),
         })
     }
@@ -603,20 +617,11 @@ impl<'f> Decoder<'f> {
             );
             return None;
         };
-        let mut out = Vec::new();
-        let mut ok = true;
-        for (k, v) in entries {
-            let name = k.scalar().unwrap_or_default().to_string();
-            match self.criteria_set(&name, v) {
-                Some(c) => out.push(c),
-                None => ok = false,
-            }
-        }
-        if out.is_empty() && ok {
+        if entries.is_empty() {
             self.report(n, "`criteria` is empty", "define at least one criteria set");
             return None;
         }
-        ok.then_some(out)
+        Some(entries.iter().filter_map(|(k, v)| self.criteria_set(k.scalar().unwrap_or_default(), v)).collect())
     }
 
     fn levels(&mut self, n: &Node, what: &'static str, unit: &str) -> Option<Levels> {
@@ -700,55 +705,51 @@ impl<'f> Decoder<'f> {
         })
     }
 
-    fn sites(&mut self, n: &Node, criteria: &[CriteriaSet]) -> Option<Vec<Site>> {
+    fn sites(&mut self, n: &Node, criteria: &[String]) -> Option<Vec<Site>> {
         let items = self.list(n, "`sites`")?;
         if items.is_empty() {
             self.report(n, "`sites` is empty", "add at least one site with tests");
             return None;
         }
         let mut out: Vec<Site> = Vec::new();
-        let mut ok = true;
         for item in items {
             match self.site(item, criteria) {
                 Some(s) if out.iter().any(|o| o.id == s.id) => {
                     self.report(item, format!("site id `{}` is used twice", s.id), "give each site its own id");
-                    ok = false;
                 }
                 Some(s) => out.push(s),
-                None => ok = false,
+                None => {}
             }
         }
-        ok.then_some(out)
+        Some(out)
     }
 
-    fn site(&mut self, n: &Node, criteria: &[CriteriaSet]) -> Option<Site> {
+    fn site(&mut self, n: &Node, criteria: &[String]) -> Option<Site> {
         let f = self.fields(n, "a site", SITE_KEYS)?;
         let id = self.ident(&f, "id", "add `id:` with the site's identifier, e.g. `standard-fields`");
         let name = self.req_string(&f, "name", "add `name:` with the site's title");
         let tests = self.required(&f, "tests", "add `tests:` listing the site's tests").and_then(|t| {
             let items = self.list(t, "`tests`")?;
             let mut out: Vec<TestSpec> = Vec::new();
-            let mut ok = true;
             for item in items {
                 match self.test(item, criteria) {
                     Some(s) if out.iter().any(|o| o.id == s.id) => {
                         self.report(item, format!("test id `{}` is used twice in this site", s.id), "give each test of a site its own id");
-                        ok = false;
                     }
                     Some(s) => out.push(s),
-                    None => ok = false,
+                    None => {}
                 }
             }
-            ok.then_some(out)
+            Some(out)
         });
         Some(Site {
             id: id?,
             name: name?,
-            tests: tests?,
+            tests: tests.unwrap_or_default(),
         })
     }
 
-    fn test(&mut self, n: &Node, criteria: &[CriteriaSet]) -> Option<TestSpec> {
+    fn test(&mut self, n: &Node, criteria: &[String]) -> Option<TestSpec> {
         let f = self.fields(n, "a test", TEST_KEYS)?;
         let id = self.ident(&f, "id", "add `id:` with the test's identifier");
         let name = self.req_string(&f, "name", "add `name:` with a short description of the test");
@@ -785,10 +786,10 @@ impl<'f> Decoder<'f> {
         };
         let criteria_ref = self.required(&f, "criteria", "add `criteria:` naming one of the campaign's criteria sets").and_then(|c| {
             let s = self.string(c, "`criteria`")?;
-            if !criteria.iter().any(|cs| cs.name == s) {
-                let help = match nearest(&s, criteria.iter().map(|c| c.name.as_str())) {
+            if !criteria.contains(&s) {
+                let help = match nearest(&s, criteria.iter().map(String::as_str)) {
                     Some(n) => format!("did you mean `{n}`?"),
-                    None => format!("defined criteria sets: {}", criteria.iter().map(|c| c.name.as_str()).collect::<Vec<_>>().join(", ")),
+                    None => format!("defined criteria sets: {}", criteria.join(", ")),
                 };
                 self.report(c, format!("criteria set `{s}` is not defined"), help);
                 return None;

@@ -273,7 +273,11 @@ fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files
         Ok(b) => b,
         Err(e) => {
             let for_machine = if spec.template.contains("{machine}") { format!(" (for machine `{}`)", machine.id) } else { String::new() };
-            diags.push(at(format!("input file `{rel}`{for_machine} cannot be read: {}", e.kind().to_string().to_lowercase()))
+            let why = match e.kind() {
+                std::io::ErrorKind::NotFound => "it does not exist".to_string(),
+                _ => e.to_string(),
+            };
+            diags.push(at(format!("input file `{rel}`{for_machine} cannot be read: {why}"))
                 .help(format!("expected at {}", path.display())));
             return None;
         }
