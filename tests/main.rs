@@ -1,1 +1,8 @@
-//! integration
+//! beamproof's integration tests, one binary with modules by theme.
+
+mod campaign_errors;
+mod dynamic_plugins;
+mod rtdose_reader;
+mod runs;
+mod schema;
+mod support;

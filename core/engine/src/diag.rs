@@ -52,18 +52,18 @@ impl Diagnostic {
     /// caret when the source text is given, and the help line.
     pub fn render(&self, source: Option<&str>) -> String {
         let mut out = format!("error: {}\n  --> {}\n", self.message, self.location());
+        let mut gutter = 1;
         if let Some(text) = source.and_then(|s| s.lines().nth(self.line.checked_sub(1)?)) {
             let num = self.line.to_string();
-            let pad = " ".repeat(num.len());
-            let caret_pad = " ".repeat(self.column.saturating_sub(1));
-            let _ = write!(
-                out,
-                "{pad} |\n{num} | {text}\n{pad} | {caret_pad}^\n",
-                text = text.trim_end()
-            );
+            gutter = num.len();
+            let pad = " ".repeat(gutter);
+            let _ = write!(out, "{pad} |\n{num} | {text}\n", text = text.trim_end());
+            if self.column > 0 {
+                let _ = writeln!(out, "{pad} | {}^", " ".repeat(self.column - 1));
+            }
         }
         if let Some(h) = &self.help {
-            let _ = writeln!(out, "  = help: {h}");
+            let _ = writeln!(out, "{} = help: {h}", " ".repeat(gutter));
         }
         out
     }

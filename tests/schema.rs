@@ -1,0 +1,47 @@
+//! The JSON Schema shipped for editors must accept exactly the keys the checker accepts.
+
+use std::collections::BTreeSet;
+
+use beamproof_engine::campaign as c;
+
+use crate::support::root;
+
+fn keys(schema: &serde_json::Value, pointer: &str) -> BTreeSet<String> {
+    schema
+        .pointer(pointer)
+        .and_then(|p| p.as_object())
+        .unwrap_or_else(|| panic!("schema has no {pointer}"))
+        .keys()
+        .cloned()
+        .collect()
+}
+
+fn set(list: &[&str]) -> BTreeSet<String> {
+    list.iter().map(|s| s.to_string()).collect()
+}
+
+#[test]
+fn schema_keys_match_the_checker() {
+    let text = std::fs::read_to_string(root().join("docs/campaign.schema.json")).expect("schema file");
+    let schema: serde_json::Value = serde_json::from_str(&text).expect("schema is JSON");
+    let pairs: [(&str, &[&str]); 11] = [
+        ("/properties", c::CAMPAIGN_KEYS),
+        ("/$defs/tps/properties", c::TPS_KEYS),
+        ("/$defs/machine/properties", c::MACHINE_KEYS),
+        ("/$defs/beam/properties", c::BEAM_KEYS),
+        ("/$defs/levels/properties", c::LEVELS_KEYS),
+        ("/$defs/criteria-set/properties", c::CRITERIA_KEYS),
+        ("/$defs/gamma/properties", c::GAMMA_KEYS),
+        ("/$defs/site/properties", c::SITE_KEYS),
+        ("/$defs/test/properties", c::TEST_KEYS),
+        ("/$defs/input/oneOf/1/properties", c::INPUT_KEYS),
+        ("/$defs/analysis/oneOf/1/properties", c::ANALYSIS_KEYS),
+    ];
+    for (pointer, list) in pairs {
+        assert_eq!(keys(&schema, pointer), set(list), "schema {pointer} differs from the checker");
+    }
+    assert_eq!(keys(&schema, "/$defs/report/properties"), set(c::REPORT_KEYS));
+    let kinds: Vec<&str> = schema.pointer("/$defs/test/properties/kind/enum").and_then(|v| v.as_array()).expect("kind enum").iter().filter_map(|v| v.as_str()).collect();
+    let ours: Vec<&str> = beamproof_api::TestKind::ALL.iter().map(|k| k.name()).collect();
+    assert_eq!(kinds, ours);
+}
