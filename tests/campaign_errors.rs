@@ -11,10 +11,21 @@ fn fails(campaign: &Path) -> String {
     let c = cli(&["check", campaign.to_str().expect("utf8")]);
     assert_eq!(c.code, 2, "check should fail: {}", c.stdout);
     let out = dir.join("run-out");
-    let r = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-a", "--out", out.to_str().expect("utf8")]);
+    let r = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-a",
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     assert_eq!(r.code, 2, "run should fail: {}", r.stdout);
     assert!(!out.exists(), "a failed run left an output folder");
-    let leftovers: Vec<_> = std::fs::read_dir(dir).expect("dir").filter_map(Result::ok).filter(|e| e.file_name().to_string_lossy().contains(".partial-")).collect();
+    let leftovers: Vec<_> = std::fs::read_dir(dir)
+        .expect("dir")
+        .filter_map(Result::ok)
+        .filter(|e| e.file_name().to_string_lossy().contains(".partial-"))
+        .collect();
     assert!(leftovers.is_empty(), "a failed run left a partial folder");
     relative(&c.stderr, dir)
 }
@@ -29,37 +40,77 @@ fn edit(path: &Path, from: &str, to: &str) {
 fn malformed_yaml_points_at_the_syntax_error() {
     let dir = scratch("err-yaml");
     let c = dir.join("campaign.yaml");
-    std::fs::write(&c, "beamproof-campaign: 1\nid: x\nmachines: [lin-a, {id: b\ntitle: y\n").expect("write");
+    std::fs::write(
+        &c,
+        "beamproof-campaign: 1\nid: x\nmachines: [lin-a, {id: b\ntitle: y\n",
+    )
+    .expect("write");
     let msg = fails(&c);
-    assert_eq!(msg, "error: YAML syntax error: while parsing a flow mapping, did not find expected ',' or '}'\n  --> campaign.yaml:4:6\n  |\n4 | title: y\n  |      ^\n  = help: fix the YAML syntax at this place (indentation, a missing `:` or an unclosed quote are common causes)\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: YAML syntax error: while parsing a flow mapping, did not find expected ',' or '}'\n  --> campaign.yaml:4:6\n  |\n4 | title: y\n  |      ^\n  = help: fix the YAML syntax at this place (indentation, a missing `:` or an unclosed quote are common causes)\n\n1 problem found; nothing was run\n"
+    );
 }
 
 #[test]
 fn every_structural_reference_and_file_problem_is_reported_at_once() {
     let campaign = demo_copy("err-many");
     edit(&campaign, "title: 6 MV", "titel: 6 MV");
-    edit(&campaign, "energy: 10, fff: true}\n  - id: lin-b", "energy: ten, fff: true}\n  - id: lin-b");
-    edit(&campaign, "measured: data/{machine}/output-6x.csv", "measured: data/{machine}/output-6x-typo.csv");
-    edit(&campaign, "calculated: data/tps/prostate-points.csv", "calculated: data/tps/missing.csv");
-    edit(&campaign, "analyses: [point-dose]\n      - id: output-6x", "analyses: [point-dos]\n      - id: output-6x");
+    edit(
+        &campaign,
+        "energy: 10, fff: true}\n  - id: lin-b",
+        "energy: ten, fff: true}\n  - id: lin-b",
+    );
+    edit(
+        &campaign,
+        "measured: data/{machine}/output-6x.csv",
+        "measured: data/{machine}/output-6x-typo.csv",
+    );
+    edit(
+        &campaign,
+        "calculated: data/tps/prostate-points.csv",
+        "calculated: data/tps/missing.csv",
+    );
+    edit(
+        &campaign,
+        "analyses: [point-dose]\n      - id: output-6x",
+        "analyses: [point-dos]\n      - id: output-6x",
+    );
     let msg = fails(&campaign);
-    assert_eq!(msg, "error: unknown key `titel` in the campaign\n  --> campaign.yaml:6:1\n  |\n6 | titel: 6 MV beam model validation, bunkers 1 and 2\n  | ^\n  = help: did you mean `title`?\n\nerror: the campaign is missing the required key `title`\n  --> campaign.yaml:4:1\n  |\n4 | beamproof-campaign: 1\n  | ^\n  = help: add `title:` with the campaign's title\n\nerror: `energy` must be a number, found `ten`\n  --> campaign.yaml:20:47\n   |\n20 |       - {id: 10fff, modality: photon, energy: ten, fff: true}\n   |                                               ^\n   = help: write a plain number (MV for photons, MeV for electrons)\n\nerror: no analysis plugin named `point-dos`\n  --> campaign.yaml:49:20\n   |\n49 |         analyses: [point-dos]\n   |                    ^\n   = help: did you mean `point-dose`?\n\nerror: input file `data/lin-a/output-6x-typo.csv` (for machine `lin-a`) cannot be read: it does not exist\n  --> campaign.yaml:54:19\n   |\n54 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-a/output-6x-typo.csv\n\nerror: input file `data/tps/missing.csv` cannot be read: it does not exist\n  --> campaign.yaml:66:21\n   |\n66 |         calculated: data/tps/missing.csv\n   |                     ^\n   = help: expected at data/tps/missing.csv\n\nerror: input file `data/lin-b/output-6x-typo.csv` (for machine `lin-b`) cannot be read: it does not exist\n  --> campaign.yaml:54:19\n   |\n54 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-b/output-6x-typo.csv\n\n7 problems found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: unknown key `titel` in the campaign\n  --> campaign.yaml:6:1\n  |\n6 | titel: 6 MV beam model validation, bunkers 1 and 2\n  | ^\n  = help: did you mean `title`?\n\nerror: the campaign is missing the required key `title`\n  --> campaign.yaml:4:1\n  |\n4 | beamproof-campaign: 1\n  | ^\n  = help: add `title:` with the campaign's title\n\nerror: `energy` must be a number, found `ten`\n  --> campaign.yaml:20:47\n   |\n20 |       - {id: 10fff, modality: photon, energy: ten, fff: true}\n   |                                               ^\n   = help: write a plain number (MV for photons, MeV for electrons)\n\nerror: no analysis plugin named `point-dos`\n  --> campaign.yaml:49:20\n   |\n49 |         analyses: [point-dos]\n   |                    ^\n   = help: did you mean `point-dose`?\n\nerror: input file `data/lin-a/output-6x-typo.csv` (for machine `lin-a`) cannot be read: it does not exist\n  --> campaign.yaml:54:19\n   |\n54 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-a/output-6x-typo.csv\n\nerror: input file `data/tps/missing.csv` cannot be read: it does not exist\n  --> campaign.yaml:66:21\n   |\n66 |         calculated: data/tps/missing.csv\n   |                     ^\n   = help: expected at data/tps/missing.csv\n\nerror: input file `data/lin-b/output-6x-typo.csv` (for machine `lin-b`) cannot be read: it does not exist\n  --> campaign.yaml:54:19\n   |\n54 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-b/output-6x-typo.csv\n\n7 problems found; nothing was run\n"
+    );
 }
 
 #[test]
 fn csv_with_a_bad_number_names_file_and_line() {
     let campaign = demo_copy("err-csv");
-    edit(&campaign.with_file_name("data/lin-a/prostate-chamber.csv"), "rectum,0.0,-5.0,-35.0", "rectum,0.0,-5.O,-35.0");
+    edit(
+        &campaign.with_file_name("data/lin-a/prostate-chamber.csv"),
+        "rectum,0.0,-5.0,-35.0",
+        "rectum,0.0,-5.O,-35.0",
+    );
     let msg = fails(&campaign);
-    assert_eq!(msg, "error: `-5.O` in column `y` is not a number\n  --> data/lin-a/prostate-chamber.csv:9\n  |\n9 | rectum,0.0,-5.O,-35.0,1.1249\n  = help: write a plain decimal number such as 1.25 (dot as decimal separator)\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: `-5.O` in column `y` is not a number\n  --> data/lin-a/prostate-chamber.csv:9\n  |\n9 | rectum,0.0,-5.O,-35.0,1.1249\n  = help: write a plain decimal number such as 1.25 (dot as decimal separator)\n\n1 problem found; nothing was run\n"
+    );
 }
 
 #[test]
 fn dicom_that_is_not_rt_dose_is_refused() {
     let campaign = demo_copy("err-not-rtdose");
-    std::fs::copy(root().join("tests/fixtures/rtdose/ct_image.dcm"), campaign.with_file_name("data/tps/open-6x-10x10.dcm")).expect("copy");
+    std::fs::copy(
+        root().join("tests/fixtures/rtdose/ct_image.dcm"),
+        campaign.with_file_name("data/tps/open-6x-10x10.dcm"),
+    )
+    .expect("copy");
     let msg = fails(&campaign);
-    assert_eq!(msg, "error: not an RT Dose object: SOP Class UID 1.2.840.10008.5.1.4.1.1.2, modality CT\n  --> data/tps/open-6x-10x10.dcm\n  = help: give the RT Dose file exported by the planning system (SOP Class 1.2.840.10008.5.1.4.1.1.481.2)\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: not an RT Dose object: SOP Class UID 1.2.840.10008.5.1.4.1.1.2, modality CT\n  --> data/tps/open-6x-10x10.dcm\n  = help: give the RT Dose file exported by the planning system (SOP Class 1.2.840.10008.5.1.4.1.1.481.2)\n\n1 problem found; nothing was run\n"
+    );
 }
 
 #[test]
@@ -69,21 +120,39 @@ fn truncated_dicom_is_refused() {
     let bytes = std::fs::read(&path).expect("read");
     std::fs::write(&path, &bytes[..bytes.len() / 2]).expect("write");
     let msg = fails(&campaign);
-    assert_eq!(msg, "error: cannot read as DICOM: Could not read data set token: Could not read 221892 value bytes for element tagged (7FE0,0010): Could not read value from source at position 816: failed to fill whole buffer\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file must be a complete DICOM Part 10 file (with the DICM preamble); re-export it from the planning system\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: cannot read as DICOM: Could not read data set token: Could not read 221892 value bytes for element tagged (7FE0,0010): Could not read value from source at position 816: failed to fill whole buffer\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file must be a complete DICOM Part 10 file (with the DICM preamble); re-export it from the planning system\n\n1 problem found; nothing was run\n"
+    );
 }
 
 #[test]
 fn mismatched_units_are_named() {
     let campaign = demo_copy("err-units");
-    edit(&campaign.with_file_name("data/tps/output-6x.csv"), "# dose-unit: Gy", "# dose-unit: %");
+    edit(
+        &campaign.with_file_name("data/tps/output-6x.csv"),
+        "# dose-unit: Gy",
+        "# dose-unit: %",
+    );
     let msg = fails(&campaign);
-    assert_eq!(msg, "error: mismatched dose units: measured `data/lin-a/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:50:9\n   |\n50 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\nerror: mismatched dose units: measured `data/lin-b/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:50:9\n   |\n50 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\n2 problems found; nothing was run\n");
+    assert_eq!(
+        msg,
+        "error: mismatched dose units: measured `data/lin-a/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:50:9\n   |\n50 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\nerror: mismatched dose units: measured `data/lin-b/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:50:9\n   |\n50 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\n2 problems found; nothing was run\n"
+    );
 }
 
 #[test]
 fn unknown_machine_gets_a_suggestion() {
     let campaign = demo_copy("err-machine");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-c"]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-c",
+    ]);
     assert_eq!(o.code, 2);
-    assert_eq!(relative(&o.stderr, campaign.parent().expect("dir")), "error: machine `lin-c` is not described in the campaign\n  --> campaign.yaml\n  = help: did you mean `lin-a`? the campaign describes: lin-a, lin-b\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        relative(&o.stderr, campaign.parent().expect("dir")),
+        "error: machine `lin-c` is not described in the campaign\n  --> campaign.yaml\n  = help: did you mean `lin-a`? the campaign describes: lin-a, lin-b\n\n1 problem found; nothing was run\n"
+    );
 }

@@ -13,11 +13,23 @@ fn plugin_dirs() -> &'static (PathBuf, PathBuf) {
     static DIRS: OnceLock<(PathBuf, PathBuf)> = OnceLock::new();
     DIRS.get_or_init(|| {
         let target = root().join("target").join("plugin-tests");
-        let lib = format!("{}beamproof_plugin_example_dynamic{}", std::env::consts::DLL_PREFIX, std::env::consts::DLL_SUFFIX);
+        let lib = format!(
+            "{}beamproof_plugin_example_dynamic{}",
+            std::env::consts::DLL_PREFIX,
+            std::env::consts::DLL_SUFFIX
+        );
         let build = |features: &[&str], dest: &str| -> PathBuf {
             let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
             let mut cmd = std::process::Command::new(cargo);
-            cmd.current_dir(root()).args(["build", "-q", "-p", "beamproof-plugin-example-dynamic", "--target-dir"]).arg(&target);
+            cmd.current_dir(root())
+                .args([
+                    "build",
+                    "-q",
+                    "-p",
+                    "beamproof-plugin-example-dynamic",
+                    "--target-dir",
+                ])
+                .arg(&target);
             for f in features {
                 cmd.args(["--features", f]);
             }
@@ -38,7 +50,8 @@ fn plugin_dirs() -> &'static (PathBuf, PathBuf) {
 #[test]
 fn the_example_plugin_loads_and_declares_itself() {
     let (good, _) = plugin_dirs();
-    let reg = Registry::with_dirs(std::slice::from_ref(good)).unwrap_or_else(|d| panic!("{}", d[0].render(None)));
+    let reg = Registry::with_dirs(std::slice::from_ref(good))
+        .unwrap_or_else(|d| panic!("{}", d[0].render(None)));
     let p = reg.get("mean-dose-ratio").expect("loaded");
     assert_eq!(p.manifest.version, env!("CARGO_PKG_VERSION"));
     assert!(reg.get("point-dose").is_some(), "built-ins stay available");
@@ -52,7 +65,11 @@ fn campaign_with(name: &str, analyses: &str, plugin_dir: &Path) -> PathBuf {
         analyses,
         1,
     );
-    let text = text.replacen("criteria:\n", &format!("plugin-dirs: [{}]\ncriteria:\n", plugin_dir.display()), 1);
+    let text = text.replacen(
+        "criteria:\n",
+        &format!("plugin-dirs: [{}]\ncriteria:\n", plugin_dir.display()),
+        1,
+    );
     std::fs::write(&campaign, text).expect("write");
     campaign
 }
@@ -60,43 +77,96 @@ fn campaign_with(name: &str, analyses: &str, plugin_dir: &Path) -> PathBuf {
 #[test]
 fn a_dynamic_analysis_runs_beside_the_built_in_one() {
     let (good, _) = plugin_dirs();
-    let campaign = campaign_with("dyn-run", "          - point-dose\n          - mean-dose-ratio", good);
+    let campaign = campaign_with(
+        "dyn-run",
+        "          - point-dose\n          - mean-dose-ratio",
+        good,
+    );
     let out = campaign.with_file_name("run");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-b", "--out", out.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-b",
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
-    let r: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results")).expect("json");
+    let r: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results"))
+            .expect("json");
     let a = &r["sites"][1]["tests"][0]["analyses"][1];
     assert_eq!(a["plugin"], "mean-dose-ratio");
     // Mean of lin-b prostate readings over mean of planned doses (demo data): computed here
     // from the same CSV values the plugin received.
-    let measured = [2.000 * (1.0 - 0.004), 1.962 * (1.0 + 0.009), 1.105 * (1.0 - 0.015)];
+    let measured = [
+        2.000 * (1.0 - 0.004),
+        1.962 * (1.0 + 0.009),
+        1.105 * (1.0 - 0.015),
+    ];
     let planned = [2.000, 1.962, 1.105];
-    let rounded: Vec<f64> = measured.iter().map(|v| (v * 1e4_f64).round() / 1e4).collect();
+    let rounded: Vec<f64> = measured
+        .iter()
+        .map(|v| (v * 1e4_f64).round() / 1e4)
+        .collect();
     let expected = 100.0 * (planned.iter().sum::<f64>() / rounded.iter().sum::<f64>() - 1.0);
     let got = a["output"]["metrics"][0]["value"].as_f64().expect("value");
     assert!((got - expected).abs() < 1e-9, "{got} vs {expected}");
     let plugins = r["plugins"].as_array().expect("plugins");
-    assert!(plugins.iter().any(|p| p["name"] == "mean-dose-ratio" && p["origin"] == "dynamic" && p["sha256"].as_str().is_some_and(|s| s.len() == 64)));
+    assert!(plugins.iter().any(|p| p["name"] == "mean-dose-ratio"
+        && p["origin"] == "dynamic"
+        && p["sha256"].as_str().is_some_and(|s| s.len() == 64)));
 }
 
 #[test]
 fn a_panic_inside_a_plugin_becomes_an_error_of_that_test_only() {
     let (good, _) = plugin_dirs();
-    let campaign = campaign_with("dyn-panic", "          - plugin: mean-dose-ratio\n            params: {fail-on-purpose: true}", good);
+    let campaign = campaign_with(
+        "dyn-panic",
+        "          - plugin: mean-dose-ratio\n            params: {fail-on-purpose: true}",
+        good,
+    );
     let out = campaign.with_file_name("run");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-b", "--out", out.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-b",
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 1, "{}", o.stderr);
-    assert!(o.stdout.contains("  - pelvis/prostate-chamber: ERROR\n"), "{}", o.stdout);
-    let r: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results")).expect("json");
-    assert_eq!(r["sites"][1]["tests"][0]["analyses"][0]["error"], "plugin panicked: failing on purpose, as the test asked");
-    assert_eq!(r["sites"][0]["tests"][0]["status"], "warn", "the other tests still ran");
+    assert!(
+        o.stdout.contains("  - pelvis/prostate-chamber: ERROR\n"),
+        "{}",
+        o.stdout
+    );
+    let r: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results"))
+            .expect("json");
+    assert_eq!(
+        r["sites"][1]["tests"][0]["analyses"][0]["error"],
+        "plugin panicked: failing on purpose, as the test asked"
+    );
+    assert_eq!(
+        r["sites"][0]["tests"][0]["status"], "warn",
+        "the other tests still ran"
+    );
 }
 
 #[test]
 fn a_plugin_built_for_another_abi_is_refused_clearly() {
     let (_, wrong) = plugin_dirs();
     let campaign = demo_copy("dyn-wrong-abi");
-    let o = cli(&["check", campaign.to_str().expect("utf8"), "--plugin-dir", wrong.to_str().expect("utf8")]);
+    let o = cli(&[
+        "check",
+        campaign.to_str().expect("utf8"),
+        "--plugin-dir",
+        wrong.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 2);
-    assert_eq!(relative(&o.stderr, wrong), "error: plugin ABI 999.0 is not supported; this beamproof reads ABI 1.x (up to 1.0)\n  --> libbeamproof_plugin_example_dynamic.so\n  = help: rebuild the plugin against the beamproof-api crate of this release (ABI 1.0)\n\n1 problem found; nothing was run\n");
+    assert_eq!(
+        relative(&o.stderr, wrong),
+        "error: plugin ABI 999.0 is not supported; this beamproof reads ABI 1.x (up to 1.0)\n  --> libbeamproof_plugin_example_dynamic.so\n  = help: rebuild the plugin against the beamproof-api crate of this release (ABI 1.0)\n\n1 problem found; nothing was run\n"
+    );
 }

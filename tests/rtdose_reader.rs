@@ -16,10 +16,20 @@ fn close(a: f64, b: f64, rel: f64) -> bool {
 }
 
 fn check_against_pydicom(name: &str) {
-    let expected: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(fixture(&format!("{name}.expected.json"))).expect("expected json")).expect("json");
-    let grid = read_raw(&fixture(&format!("{name}.dcm"))).unwrap_or_else(|d| panic!("{name}: {}", d.render(None)));
-    let floats = |key: &str| -> Vec<f64> { expected[key].as_array().expect(key).iter().filter_map(|v| v.as_f64()).collect() };
+    let expected: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(fixture(&format!("{name}.expected.json"))).expect("expected json"),
+    )
+    .expect("json");
+    let grid = read_raw(&fixture(&format!("{name}.dcm")))
+        .unwrap_or_else(|d| panic!("{name}: {}", d.render(None)));
+    let floats = |key: &str| -> Vec<f64> {
+        expected[key]
+            .as_array()
+            .expect(key)
+            .iter()
+            .filter_map(|v| v.as_f64())
+            .collect()
+    };
     // Geometry as pydicom reads it: DICOM PS3.3 C.7.6.2 / C.8.8.3.
     assert_eq!(grid.x, floats("x"), "{name} x");
     assert_eq!(grid.y, floats("y"), "{name} y");
@@ -28,12 +38,25 @@ fn check_against_pydicom(name: &str) {
     let sum: f64 = grid.dose_gy.iter().sum();
     let max = grid.dose_gy.iter().copied().fold(f64::MIN, f64::max);
     // pydicom: pixel_array * DoseGridScaling; summation order differs, hence 1e-12 relative.
-    assert!(close(sum, expected["dose_sum"].as_f64().expect("sum"), 1e-12), "{name} sum {sum}");
-    assert!(close(max, expected["dose_max"].as_f64().expect("max"), 1e-15), "{name} max {max}");
+    assert!(
+        close(sum, expected["dose_sum"].as_f64().expect("sum"), 1e-12),
+        "{name} sum {sum}"
+    );
+    assert!(
+        close(max, expected["dose_max"].as_f64().expect("max"), 1e-15),
+        "{name} max {max}"
+    );
     for s in expected["samples"].as_array().expect("samples") {
-        let (k, j, i) = (s["frame"].as_u64().expect("k") as usize, s["row"].as_u64().expect("j") as usize, s["column"].as_u64().expect("i") as usize);
+        let (k, j, i) = (
+            s["frame"].as_u64().expect("k") as usize,
+            s["row"].as_u64().expect("j") as usize,
+            s["column"].as_u64().expect("i") as usize,
+        );
         let got = grid.dose_gy[(k * rows + j) * cols + i];
-        assert!(close(got, s["dose"].as_f64().expect("dose"), 1e-15), "{name} voxel ({k},{j},{i}) {got}");
+        assert!(
+            close(got, s["dose"].as_f64().expect("dose"), 1e-15),
+            "{name} voxel ({k},{j},{i}) {got}"
+        );
     }
 }
 
@@ -55,5 +78,8 @@ fn single_frame_16_bit_plane() {
 #[test]
 fn a_ct_image_is_refused_by_name() {
     let e = read_raw(&fixture("ct_image.dcm")).expect_err("not RT Dose");
-    assert_eq!(e.message, "not an RT Dose object: SOP Class UID 1.2.840.10008.5.1.4.1.1.2, modality CT");
+    assert_eq!(
+        e.message,
+        "not an RT Dose object: SOP Class UID 1.2.840.10008.5.1.4.1.1.2, modality CT"
+    );
 }

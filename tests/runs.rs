@@ -7,33 +7,63 @@ use crate::support::{cli, demo_copy, scratch};
 fn run_demo(name: &str, machine: &str) -> (PathBuf, crate::support::Outcome) {
     let campaign = demo_copy(name);
     let out = campaign.with_file_name("run");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", machine, "--out", out.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        machine,
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     (out, o)
 }
 
 fn results(out: &Path) -> serde_json::Value {
-    serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results.json")).expect("json")
+    serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results.json"))
+        .expect("json")
 }
 
 #[test]
 fn demo_lin_a_is_no_go_with_the_output_error_named() {
     let (out, o) = run_demo("run-lin-a", "lin-a");
     assert_eq!(o.code, 1, "NO-GO exit code; stderr: {}", o.stderr);
-    assert!(o.stdout.contains("verdict: NO-GO (advisory)\n  - standard-fields/output-6x: FAIL\n"), "{}", o.stdout);
-    assert!(o.stdout.contains("caution: Results must be reviewed and signed by a qualified medical physicist"));
+    assert!(
+        o.stdout
+            .contains("verdict: NO-GO (advisory)\n  - standard-fields/output-6x: FAIL\n"),
+        "{}",
+        o.stdout
+    );
+    assert!(
+        o.stdout.contains(
+            "caution: Results must be reviewed and signed by a qualified medical physicist"
+        )
+    );
     let r = results(&out);
     assert_eq!(r["summary"]["verdict"], "NO-GO");
     let output_test = &r["sites"][0]["tests"][1];
     assert_eq!(output_test["id"], "output-6x");
     // Venselaar et al 2001 difference, 100 (Dc - Dm) / Dm, with Dm = 207.2 cGy, Dc = 2.000 Gy:
     // -3.4749 % (arithmetic on the demo's invented numbers).
-    let d = output_test["analyses"][0]["output"]["metrics"][0]["value"].as_f64().expect("value");
+    let d = output_test["analyses"][0]["output"]["metrics"][0]["value"]
+        .as_f64()
+        .expect("value");
     assert!((d - 100.0 * (2.0 - 2.072) / 2.072).abs() < 1e-9, "{d}");
     assert_eq!(output_test["status"], "fail");
-    for f in ["results.json", "report.pdf", "manifest.sha256", "inputs/campaign.yaml", "inputs/data/tps/open-6x-10x10.dcm", "inputs/data/lin-a/output-6x.csv"] {
+    for f in [
+        "results.json",
+        "report.pdf",
+        "manifest.sha256",
+        "inputs/campaign.yaml",
+        "inputs/data/tps/open-6x-10x10.dcm",
+        "inputs/data/lin-a/output-6x.csv",
+    ] {
         assert!(out.join(f).is_file(), "{f} missing from the run folder");
     }
-    assert!(std::fs::read(out.join("report.pdf")).expect("pdf").starts_with(b"%PDF-"));
+    assert!(
+        std::fs::read(out.join("report.pdf"))
+            .expect("pdf")
+            .starts_with(b"%PDF-")
+    );
 }
 
 #[test]
@@ -42,7 +72,10 @@ fn demo_lin_b_is_go_with_a_warning() {
     assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
     let r = results(&out);
     assert_eq!(r["summary"]["verdict"], "GO");
-    assert_eq!(r["summary"]["warnings"], serde_json::json!(["standard-fields/cax-6x-10x10: WARN"]));
+    assert_eq!(
+        r["summary"]["warnings"],
+        serde_json::json!(["standard-fields/cax-6x-10x10: WARN"])
+    );
 }
 
 #[test]
@@ -50,14 +83,31 @@ fn two_runs_give_identical_bytes_and_the_run_folder_reruns_itself() {
     let (a, _) = run_demo("determinism-a", "lin-a");
     let (b, _) = run_demo("determinism-b", "lin-a");
     for f in ["results.json", "report.pdf", "manifest.sha256"] {
-        assert_eq!(std::fs::read(a.join(f)).expect("a"), std::fs::read(b.join(f)).expect("b"), "{f} differs between runs");
+        assert_eq!(
+            std::fs::read(a.join(f)).expect("a"),
+            std::fs::read(b.join(f)).expect("b"),
+            "{f} differs between runs"
+        );
     }
     // The run folder holds the campaign and every input at the same relative place.
     let again = scratch("determinism-rerun").join("run");
-    let o = cli(&["run", a.join("inputs/campaign.yaml").to_str().expect("utf8"), "--machine", "lin-a", "--date", "2026-11-20", "--out", again.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        a.join("inputs/campaign.yaml").to_str().expect("utf8"),
+        "--machine",
+        "lin-a",
+        "--date",
+        "2026-11-20",
+        "--out",
+        again.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 1, "{}", o.stderr);
     for f in ["results.json", "report.pdf"] {
-        assert_eq!(std::fs::read(a.join(f)).expect("a"), std::fs::read(again.join(f)).expect("rerun"), "{f} differs on re-run");
+        assert_eq!(
+            std::fs::read(a.join(f)).expect("a"),
+            std::fs::read(again.join(f)).expect("rerun"),
+            "{f} differs on re-run"
+        );
     }
 }
 
@@ -66,9 +116,16 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let (out, _) = run_demo("verify", "lin-a");
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
-    assert!(o.stdout.ends_with("all 9 files match the manifest\n"), "{}", o.stdout);
+    assert!(
+        o.stdout.ends_with("all 9 files match the manifest\n"),
+        "{}",
+        o.stdout
+    );
     let manifest = std::fs::read_to_string(out.join("manifest.sha256")).expect("manifest");
-    let files: Vec<&str> = manifest.lines().filter_map(|l| l.split_once("  ").map(|(_, p)| p)).collect();
+    let files: Vec<&str> = manifest
+        .lines()
+        .filter_map(|l| l.split_once("  ").map(|(_, p)| p))
+        .collect();
     assert_eq!(files.len(), 9);
     for f in &files {
         let path = out.join(f);
@@ -79,12 +136,19 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         std::fs::write(&path, &changed).expect("write");
         let o = cli(&["verify", out.to_str().expect("utf8")]);
         assert_eq!(o.code, 3, "flipping a bit of {f} went unnoticed");
-        assert!(o.stdout.starts_with(&format!("changed: {f}\n")), "{}", o.stdout);
+        assert!(
+            o.stdout.starts_with(&format!("changed: {f}\n")),
+            "{}",
+            o.stdout
+        );
         std::fs::write(&path, &original).expect("restore");
     }
     std::fs::remove_file(out.join("report.pdf")).expect("remove");
     let o = cli(&["verify", out.to_str().expect("utf8")]);
-    assert_eq!((o.code, o.stdout.lines().next()), (3, Some("missing: report.pdf")));
+    assert_eq!(
+        (o.code, o.stdout.lines().next()),
+        (3, Some("missing: report.pdf"))
+    );
 }
 
 #[test]
@@ -92,13 +156,26 @@ fn an_existing_run_folder_is_never_overwritten() {
     let (out, _) = run_demo("no-overwrite", "lin-a");
     let before = std::fs::read(out.join("manifest.sha256")).expect("manifest");
     let campaign = out.with_file_name("campaign.yaml");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-b", "--out", out.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-b",
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 2);
     assert_eq!(
         o.stderr,
-        format!("error: run folder {} already exists; runs are never overwritten\n  = help: choose another folder with --out\n", out.display())
+        format!(
+            "error: run folder {} already exists; runs are never overwritten\n  = help: choose another folder with --out\n",
+            out.display()
+        )
     );
-    assert_eq!(std::fs::read(out.join("manifest.sha256")).expect("manifest"), before);
+    assert_eq!(
+        std::fs::read(out.join("manifest.sha256")).expect("manifest"),
+        before
+    );
 }
 
 #[test]
@@ -106,11 +183,22 @@ fn hostile_text_is_printed_literally_in_the_report() {
     let campaign = demo_copy("hostile");
     let text = std::fs::read_to_string(&campaign).expect("read");
     let hostile = r##"title: "#panic(\"boom\") $x^2$ *bold* _u_ @ref <lbl> // not a comment [b] {c} \\ 1. = head""##;
-    let changed = text.replacen("title: 6 MV beam model validation, bunkers 1 and 2", hostile, 1);
+    let changed = text.replacen(
+        "title: 6 MV beam model validation, bunkers 1 and 2",
+        hostile,
+        1,
+    );
     assert_ne!(changed, text);
     std::fs::write(&campaign, changed).expect("write");
     let out = campaign.with_file_name("run");
-    let o = cli(&["run", campaign.to_str().expect("utf8"), "--machine", "lin-b", "--out", out.to_str().expect("utf8")]);
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-b",
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
     assert_eq!(o.code, 0, "{}", o.stderr);
     let json = std::fs::read(out.join("results.json")).expect("results");
     let source = beamproof_report::render_source(&json, None).expect("source");

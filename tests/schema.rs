@@ -22,7 +22,8 @@ fn set(list: &[&str]) -> BTreeSet<String> {
 
 #[test]
 fn schema_keys_match_the_checker() {
-    let text = std::fs::read_to_string(root().join("docs/campaign.schema.json")).expect("schema file");
+    let text =
+        std::fs::read_to_string(root().join("docs/campaign.schema.json")).expect("schema file");
     let schema: serde_json::Value = serde_json::from_str(&text).expect("schema is JSON");
     let pairs: [(&str, &[&str]); 11] = [
         ("/properties", c::CAMPAIGN_KEYS),
@@ -38,10 +39,26 @@ fn schema_keys_match_the_checker() {
         ("/$defs/analysis/oneOf/1/properties", c::ANALYSIS_KEYS),
     ];
     for (pointer, list) in pairs {
-        assert_eq!(keys(&schema, pointer), set(list), "schema {pointer} differs from the checker");
+        assert_eq!(
+            keys(&schema, pointer),
+            set(list),
+            "schema {pointer} differs from the checker"
+        );
     }
-    assert_eq!(keys(&schema, "/$defs/report/properties"), set(c::REPORT_KEYS));
-    let kinds: Vec<&str> = schema.pointer("/$defs/test/properties/kind/enum").and_then(|v| v.as_array()).expect("kind enum").iter().filter_map(|v| v.as_str()).collect();
-    let ours: Vec<&str> = beamproof_api::TestKind::ALL.iter().map(|k| k.name()).collect();
+    assert_eq!(
+        keys(&schema, "/$defs/report/properties"),
+        set(c::REPORT_KEYS)
+    );
+    let kinds: Vec<&str> = schema
+        .pointer("/$defs/test/properties/kind/enum")
+        .and_then(|v| v.as_array())
+        .expect("kind enum")
+        .iter()
+        .filter_map(|v| v.as_str())
+        .collect();
+    let ours: Vec<&str> = beamproof_api::TestKind::ALL
+        .iter()
+        .map(|k| k.name())
+        .collect();
     assert_eq!(kinds, ours);
 }

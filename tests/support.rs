@@ -6,7 +6,10 @@ use std::path::{Path, PathBuf};
 
 /// Repository root.
 pub fn root() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).parent().map(Path::to_path_buf).unwrap_or_default()
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default()
 }
 
 /// A fresh, empty folder for one test under `target/test-scratch/`.
@@ -49,12 +52,23 @@ pub struct Outcome {
 pub fn cli(args: &[&str]) -> Outcome {
     let mut out = Vec::new();
     let mut err = Vec::new();
-    let argv: Vec<OsString> = std::iter::once("beamproof").chain(args.iter().copied()).map(OsString::from).collect();
+    let argv: Vec<OsString> = std::iter::once("beamproof")
+        .chain(args.iter().copied())
+        .map(OsString::from)
+        .collect();
     let code = {
-        let mut io = beamproof_cli::Io { out: &mut out, err: &mut err, progress: false };
+        let mut io = beamproof_cli::Io {
+            out: &mut out,
+            err: &mut err,
+            progress: false,
+        };
         beamproof_cli::main_with(argv, &mut io)
     };
-    Outcome { code, stdout: String::from_utf8_lossy(&out).into_owned(), stderr: String::from_utf8_lossy(&err).into_owned() }
+    Outcome {
+        code,
+        stdout: String::from_utf8_lossy(&out).into_owned(),
+        stderr: String::from_utf8_lossy(&err).into_owned(),
+    }
 }
 
 /// Replace a folder prefix in text, so messages can be compared whole.

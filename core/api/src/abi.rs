@@ -50,7 +50,7 @@ pub struct BpStr {
 
 impl BpStr {
     /// Borrow a string slice for one call.
-    pub fn from_str(s: &str) -> BpStr {
+    pub fn borrow(s: &str) -> BpStr {
         BpStr {
             ptr: s.as_ptr(),
             len: s.len(),
@@ -206,7 +206,9 @@ fn move_arrays_in(v: &mut Value, samples: &[f64]) -> Result<(), String> {
             );
             Ok(())
         }
-        Value::Array(items) => items.iter_mut().try_for_each(|i| move_arrays_in(i, samples)),
+        Value::Array(items) => items
+            .iter_mut()
+            .try_for_each(|i| move_arrays_in(i, samples)),
         Value::Object(m) => m.values_mut().try_for_each(|i| move_arrays_in(i, samples)),
         _ => Ok(()),
     }
@@ -295,7 +297,9 @@ macro_rules! export_plugin {
         fn __beamproof_plugin() -> &'static dyn $crate::Analysis {
             static PLUGIN: ::std::sync::OnceLock<::std::boxed::Box<dyn $crate::Analysis>> =
                 ::std::sync::OnceLock::new();
-            PLUGIN.get_or_init(|| ::std::boxed::Box::new($ctor)).as_ref()
+            PLUGIN
+                .get_or_init(|| ::std::boxed::Box::new($ctor))
+                .as_ref()
         }
         unsafe extern "C" fn __beamproof_manifest(out: *mut $crate::abi::BpBuf) -> i32 {
             // SAFETY: forwarded from the host, which upholds the ABI contract.
@@ -308,7 +312,9 @@ macro_rules! export_plugin {
             out: *mut $crate::abi::BpBuf,
         ) -> i32 {
             // SAFETY: forwarded from the host, which upholds the ABI contract.
-            unsafe { $crate::abi::serve_analyse(__beamproof_plugin, input, samples, n_samples, out) }
+            unsafe {
+                $crate::abi::serve_analyse(__beamproof_plugin, input, samples, n_samples, out)
+            }
         }
         static __BEAMPROOF_DESCRIPTOR: $crate::abi::PluginDescriptor =
             $crate::abi::PluginDescriptor::new(__beamproof_manifest, __beamproof_analyse);
@@ -400,7 +406,7 @@ pub unsafe fn call_analyse(
     // SAFETY: json and samples outlive the call; `out` is a valid out-parameter.
     let status = unsafe {
         (desc.analyse)(
-            BpStr::from_str(&json),
+            BpStr::borrow(&json),
             samples.as_ptr(),
             samples.len(),
             &mut out,
@@ -466,7 +472,10 @@ mod tests {
     fn wire_encoding_round_trips_bit_for_bit() {
         let input = sample_input();
         let (json, samples) = encode_input(&input).expect("encode");
-        assert!(!json.contains("1.999999"), "arrays must travel in the buffer");
+        assert!(
+            !json.contains("1.999999"),
+            "arrays must travel in the buffer"
+        );
         assert_eq!(samples.len(), 2 * 4 + 2 + 1 + 1 + 2);
         let back = decode_input(&json, &samples).expect("decode");
         assert_eq!(back, input);

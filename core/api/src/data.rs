@@ -211,7 +211,12 @@ mod tests {
     #[test]
     fn trilinear_sampling_is_exact_for_linear_dose() {
         let g = ramp_grid();
-        for &(x, y, z) in &[(0.3, 0.5, 0.0), (-2.0, 0.0, -1.0), (4.0, 3.0, 1.0), (1.7, 2.2, 0.4)] {
+        for &(x, y, z) in &[
+            (0.3, 0.5, 0.0),
+            (-2.0, 0.0, -1.0),
+            (4.0, 3.0, 1.0),
+            (1.7, 2.2, 0.4),
+        ] {
             let got = g.sample(x, y, z).expect("inside");
             let want = 2.0 * x + 3.0 * y - z + 10.0;
             assert!((got - want).abs() < 1e-12, "{got} vs {want} at {x},{y},{z}");

@@ -15,5 +15,6 @@ pub use data::{
     Curve, CurveAxis, Dataset, DatasetData, DoseUnit, Grid, PointSet, SINGLETON_AXIS_TOLERANCE_MM,
 };
 pub use outcome::{
-    AnalysisOutput, Band, Figure, LIMIT_SLACK, Limits, Metric, Reference, Series, SeriesStyle, Status, Table,
+    AnalysisOutput, Band, Figure, LIMIT_SLACK, Limits, Metric, Reference, Series, SeriesStyle,
+    Status, Table,
 };

@@ -95,7 +95,10 @@ struct Failure {
 
 impl From<Vec<Diagnostic>> for Failure {
     fn from(d: Vec<Diagnostic>) -> Self {
-        Failure { text: render_all(&d), code: EXIT_CANNOT_RUN }
+        Failure {
+            text: render_all(&d),
+            code: EXIT_CANNOT_RUN,
+        }
     }
 }
 
@@ -118,16 +121,31 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
         Ok(c) => c,
         Err(e) => {
             let _ = write!(io.err, "{}", e.render());
-            return if e.use_stderr() { EXIT_CANNOT_RUN } else { EXIT_GO };
+            return if e.use_stderr() {
+                EXIT_CANNOT_RUN
+            } else {
+                EXIT_GO
+            };
         }
     };
     let result = match cli.command {
-        Command::Check { campaign, machine, plugin_dirs } => check(io, &campaign, machine.as_deref(), &plugin_dirs),
-        Command::Run { campaign, machine, out, date, plugin_dirs } => {
-            run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs)
-        }
+        Command::Check {
+            campaign,
+            machine,
+            plugin_dirs,
+        } => check(io, &campaign, machine.as_deref(), &plugin_dirs),
+        Command::Run {
+            campaign,
+            machine,
+            out,
+            date,
+            plugin_dirs,
+        } => run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs),
         Command::Verify { run_dir } => verify(io, &run_dir),
-        Command::Plugins { campaign, plugin_dirs } => plugins(io, campaign.as_deref(), &plugin_dirs),
+        Command::Plugins {
+            campaign,
+            plugin_dirs,
+        } => plugins(io, campaign.as_deref(), &plugin_dirs),
     };
     match result {
         Ok(code) => code,
@@ -146,7 +164,11 @@ enum Machines<'a> {
 
 /// Load the campaign, the plugins and every input for the chosen machines, collecting every
 /// problem of every stage before giving up, so the user sees them all at once.
-fn gather(campaign: &Path, machines: Machines, extra_dirs: &[PathBuf]) -> Result<(Campaign, Registry, Vec<Prepared>), Failure> {
+fn gather(
+    campaign: &Path,
+    machines: Machines,
+    extra_dirs: &[PathBuf],
+) -> Result<(Campaign, Registry, Vec<Prepared>), Failure> {
     let (c, mut diags) = Campaign::load_partial(campaign);
     let Some(c) = c else {
         return Err(diags.into());
@@ -178,19 +200,44 @@ fn gather(campaign: &Path, machines: Machines, extra_dirs: &[PathBuf]) -> Result
             }
         }
     }
-    if diags.is_empty() { Ok((c, registry, prepared)) } else { Err(diags.into()) }
+    if diags.is_empty() {
+        Ok((c, registry, prepared))
+    } else {
+        Err(diags.into())
+    }
 }
 
-fn check(io: &mut Io, campaign: &Path, machine: Option<&str>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
-    let which = if machine.is_some() { Machines::One(machine) } else { Machines::All };
+fn check(
+    io: &mut Io,
+    campaign: &Path,
+    machine: Option<&str>,
+    plugin_dirs: &[PathBuf],
+) -> Result<u8, Failure> {
+    let which = if machine.is_some() {
+        Machines::One(machine)
+    } else {
+        Machines::All
+    };
     let (_, _, prepared) = gather(campaign, which, plugin_dirs)?;
     let n_tests: usize = prepared.iter().map(|p| p.tests.len()).sum();
     let ids: Vec<&str> = prepared.iter().map(|p| p.machine.id.as_str()).collect();
-    outln!(io, "{}: ok ({n_tests} test runs over machines {}; every input read)", campaign.display(), ids.join(", "));
+    outln!(
+        io,
+        "{}: ok ({n_tests} test runs over machines {}; every input read)",
+        campaign.display(),
+        ids.join(", ")
+    );
     Ok(EXIT_GO)
 }
 
-fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option<PathBuf>, date: Option<String>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
+fn run_campaign(
+    io: &mut Io,
+    campaign: &Path,
+    machine: Option<&str>,
+    out: Option<PathBuf>,
+    date: Option<String>,
+    plugin_dirs: &[PathBuf],
+) -> Result<u8, Failure> {
     let (c, registry, mut prepared) = gather(campaign, Machines::One(machine), plugin_dirs)?;
     let Some(prepared) = prepared.pop() else {
         return Err(Diagnostic::file(campaign, "no machine to run").into());
@@ -198,17 +245,30 @@ fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option
     let m = prepared.machine.clone();
     let date = match date.or_else(|| c.date.clone()) {
         Some(d) if beamproof_engine::campaign::valid_iso_date(&d) => d,
-        Some(d) => return Err(Diagnostic::file(campaign, format!("run date `{d}` is not a valid date")).help("write --date YYYY-MM-DD").into()),
+        Some(d) => {
+            return Err(
+                Diagnostic::file(campaign, format!("run date `{d}` is not a valid date"))
+                    .help("write --date YYYY-MM-DD")
+                    .into(),
+            );
+        }
         None => {
-            return Err(Diagnostic::file(campaign, "no run date: the results record the date the measurements were analysed")
-                .help("add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD")
-                .into());
+            return Err(Diagnostic::file(
+                campaign,
+                "no run date: the results record the date the measurements were analysed",
+            )
+            .help("add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD")
+            .into());
         }
     };
-    let out = out.unwrap_or_else(|| PathBuf::from("runs").join(format!("{}-{}-{date}", c.id, m.id)));
+    let out =
+        out.unwrap_or_else(|| PathBuf::from("runs").join(format!("{}-{}-{date}", c.id, m.id)));
     if out.exists() {
         return Err(Failure {
-            text: format!("error: run folder {} already exists; runs are never overwritten\n  = help: choose another folder with --out", out.display()),
+            text: format!(
+                "error: run folder {} already exists; runs are never overwritten\n  = help: choose another folder with --out",
+                out.display()
+            ),
             code: EXIT_CANNOT_RUN,
         });
     }
@@ -230,7 +290,16 @@ fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option
         .map_err(|e| Failure { text: format!("error: {e}\n  = help: choose another folder with --out, or check free space and permissions"), code: EXIT_CANNOT_RUN })?;
     let s = &record.summary;
     outln!(io, "run folder: {}", out.display());
-    outln!(io, "machine {} · {} tests: {} pass, {} warn, {} fail, {} error", m.id, s.tests, s.pass, s.warn, s.fail, s.error);
+    outln!(
+        io,
+        "machine {} · {} tests: {} pass, {} warn, {} fail, {} error",
+        m.id,
+        s.tests,
+        s.pass,
+        s.warn,
+        s.fail,
+        s.error
+    );
     outln!(io, "verdict: {} (advisory)", s.verdict);
     for r in &s.reasons {
         outln!(io, "  - {r}");
@@ -243,7 +312,10 @@ fn run_campaign(io: &mut Io, campaign: &Path, machine: Option<&str>, out: Option
 }
 
 fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
-    let v = verify_run(run_dir).map_err(|e| Failure { text: format!("error: {e}\n  = help: give a run folder made by `beamproof run`"), code: EXIT_CANNOT_RUN })?;
+    let v = verify_run(run_dir).map_err(|e| Failure {
+        text: format!("error: {e}\n  = help: give a run folder made by `beamproof run`"),
+        code: EXIT_CANNOT_RUN,
+    })?;
     for f in &v.findings {
         outln!(io, "{f}");
     }
@@ -251,10 +323,21 @@ fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
         outln!(io, "not covered by the manifest: {u}");
     }
     if v.findings.is_empty() {
-        outln!(io, "{}: all {} files match the manifest", run_dir.display(), v.ok.len());
+        outln!(
+            io,
+            "{}: all {} files match the manifest",
+            run_dir.display(),
+            v.ok.len()
+        );
         Ok(EXIT_GO)
     } else {
-        outln!(io, "{}: {} problem(s); {} files match", run_dir.display(), v.findings.len(), v.ok.len());
+        outln!(
+            io,
+            "{}: {} problem(s); {} files match",
+            run_dir.display(),
+            v.findings.len(),
+            v.ok.len()
+        );
         Ok(EXIT_VERIFY_FAILED)
     }
 }
@@ -270,10 +353,21 @@ fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Res
             Origin::Dynamic { path, .. } => path.display().to_string(),
         };
         let kinds: Vec<&str> = p.manifest.kinds.iter().map(|k| k.name()).collect();
-        outln!(io, "{} {}  [{}]  {}", p.manifest.name, p.manifest.version, kinds.join(", "), origin);
+        outln!(
+            io,
+            "{} {}  [{}]  {}",
+            p.manifest.name,
+            p.manifest.version,
+            kinds.join(", "),
+            origin
+        );
         outln!(io, "    {}", p.manifest.description);
         for param in &p.manifest.params {
-            let default = param.default.as_ref().map(|d| format!(" (default {d})")).unwrap_or_default();
+            let default = param
+                .default
+                .as_ref()
+                .map(|d| format!(" (default {d})"))
+                .unwrap_or_default();
             outln!(io, "    - {}{}: {}", param.name, default, param.description);
         }
     }

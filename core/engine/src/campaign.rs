@@ -303,7 +303,10 @@ impl<'f> Decoder<'f> {
         let Value::Map(entries) = &n.value else {
             self.report(
                 n,
-                format!("{what} must be a mapping of `key: value` lines, found {}", n.describe()),
+                format!(
+                    "{what} must be a mapping of `key: value` lines, found {}",
+                    n.describe()
+                ),
                 format!("accepted keys: {}", allowed.join(", ")),
             );
             return None;
@@ -412,7 +415,11 @@ impl<'f> Decoder<'f> {
     }
 
     fn req_number(&mut self, f: &Fields, key: &str, min: f64, max: f64, unit: &str) -> Option<f64> {
-        let n = self.required(f, key, &format!("add `{key}:` with a number{}", unit_hint(unit)))?;
+        let n = self.required(
+            f,
+            key,
+            &format!("add `{key}:` with a number{}", unit_hint(unit)),
+        )?;
         self.number(n, &format!("`{key}`"), min, max, unit)
     }
 
@@ -461,42 +468,79 @@ impl<'f> Decoder<'f> {
                 "use a beamproof release that reads this version, or convert the file",
             );
         }
-        let id = self.ident(&f, "id", "add `id:` with a short identifier for the campaign, e.g. `tps-2026`");
+        let id = self.ident(
+            &f,
+            "id",
+            "add `id:` with a short identifier for the campaign, e.g. `tps-2026`",
+        );
         let title = self.req_string(&f, "title", "add `title:` with the campaign's title");
-        let institution = self.req_string(&f, "institution", "add `institution:` with the clinic's name");
+        let institution = self.req_string(
+            &f,
+            "institution",
+            "add `institution:` with the clinic's name",
+        );
         let date = f.get("date").and_then(|n| {
             let s = self.string(n, "`date`")?;
             if valid_iso_date(&s) {
                 Some(s)
             } else {
-                self.report(n, format!("`date` `{s}` is not a valid date"), "write the date as YYYY-MM-DD, e.g. 2026-11-20");
+                self.report(
+                    n,
+                    format!("`date` `{s}` is not a valid date"),
+                    "write the date as YYYY-MM-DD, e.g. 2026-11-20",
+                );
                 None
             }
         });
-        let tps = self.required(&f, "tps", "add a `tps:` mapping with `name`, `version` and `beam-model`")
+        let tps = self
+            .required(
+                &f,
+                "tps",
+                "add a `tps:` mapping with `name`, `version` and `beam-model`",
+            )
             .and_then(|n| self.tps(n));
         let machines = self
-            .required(&f, "machines", "add a `machines:` list with at least one machine")
+            .required(
+                &f,
+                "machines",
+                "add a `machines:` list with at least one machine",
+            )
             .and_then(|n| self.machines(n));
         let plugin_dirs = match f.get("plugin-dirs") {
             Some(n) => self.list(n, "`plugin-dirs`").map(|items| {
                 items
                     .iter()
-                    .filter_map(|i| Some((PathBuf::from(self.string(i, "a plugin folder")?), Pos::of(i))))
+                    .filter_map(|i| {
+                        Some((
+                            PathBuf::from(self.string(i, "a plugin folder")?),
+                            Pos::of(i),
+                        ))
+                    })
                     .collect()
             }),
             None => Some(Vec::new()),
         };
-        let criteria_node = self.required(&f, "criteria", "add a `criteria:` mapping with at least one named criteria set");
+        let criteria_node = self.required(
+            &f,
+            "criteria",
+            "add a `criteria:` mapping with at least one named criteria set",
+        );
         let criteria = criteria_node.and_then(|n| self.criteria(n));
         // Tests are checked against every criteria name written, so that a set with an error
         // of its own does not also make each test that uses it fail.
         let criteria_names: Vec<String> = match criteria_node.map(|n| &n.value) {
-            Some(Value::Map(entries)) => entries.iter().filter_map(|(k, _)| k.scalar().map(str::to_string)).collect(),
+            Some(Value::Map(entries)) => entries
+                .iter()
+                .filter_map(|(k, _)| k.scalar().map(str::to_string))
+                .collect(),
             _ => Vec::new(),
         };
         let sites = self
-            .required(&f, "sites", "add a `sites:` list with at least one site holding tests")
+            .required(
+                &f,
+                "sites",
+                "add a `sites:` list with at least one site holding tests",
+            )
             .and_then(|n| self.sites(n, &criteria_names));
         let templates = match f.get("report") {
             Some(n) => self.fields(n, "`report`", REPORT_KEYS).and_then(|r| {
@@ -530,8 +574,16 @@ impl<'f> Decoder<'f> {
     fn tps(&mut self, n: &Node) -> Option<Tps> {
         let f = self.fields(n, "`tps`", TPS_KEYS)?;
         let name = self.req_string(&f, "name", "add `name:` with the planning system's name");
-        let version = self.req_string(&f, "version", "add `version:` with the planning system's version");
-        let beam_model = self.req_string(&f, "beam-model", "add `beam-model:` naming the beam model being validated");
+        let version = self.req_string(
+            &f,
+            "version",
+            "add `version:` with the planning system's version",
+        );
+        let beam_model = self.req_string(
+            &f,
+            "beam-model",
+            "add `beam-model:` naming the beam model being validated",
+        );
         Some(Tps {
             name: name?,
             version: version?,
@@ -551,7 +603,11 @@ impl<'f> Decoder<'f> {
                 continue;
             };
             if out.iter().any(|o| o.id == m.id) {
-                self.report(item, format!("machine id `{}` is used twice", m.id), "give each machine its own id");
+                self.report(
+                    item,
+                    format!("machine id `{}` is used twice", m.id),
+                    "give each machine its own id",
+                );
             }
             out.push(m);
         }
@@ -560,7 +616,11 @@ impl<'f> Decoder<'f> {
 
     fn machine(&mut self, n: &Node) -> Option<Machine> {
         let f = self.fields(n, "a machine", MACHINE_KEYS)?;
-        let id = self.ident(&f, "id", "add `id:` with the machine's identifier, e.g. `lin-a`");
+        let id = self.ident(
+            &f,
+            "id",
+            "add `id:` with the machine's identifier, e.g. `lin-a`",
+        );
         let description = self.opt_string(&f, "description").unwrap_or_default();
         let beams_node = self.required(&f, "beams", "add `beams:` listing the machine's beams");
         let beams = beams_node.and_then(|b| {
@@ -569,7 +629,11 @@ impl<'f> Decoder<'f> {
             for item in items {
                 match self.beam(item) {
                     Some(beam) if out.iter().any(|o| o.id == beam.id) => {
-                        self.report(item, format!("beam id `{}` is used twice", beam.id), "give each beam of a machine its own id");
+                        self.report(
+                            item,
+                            format!("beam id `{}` is used twice", beam.id),
+                            "give each beam of a machine its own id",
+                        );
                     }
                     Some(beam) => out.push(beam),
                     None => {}
@@ -588,13 +652,21 @@ impl<'f> Decoder<'f> {
     fn beam(&mut self, n: &Node) -> Option<Beam> {
         let f = self.fields(n, "a beam", BEAM_KEYS)?;
         let id = self.ident(&f, "id", "add `id:` with the beam's identifier, e.g. `6x`");
-        let modality = self.req_string(&f, "modality", "add `modality: photon` or `modality: electron`");
+        let modality = self.req_string(
+            &f,
+            "modality",
+            "add `modality: photon` or `modality: electron`",
+        );
         let modality = modality.and_then(|m| {
             if m == "photon" || m == "electron" {
                 Some(m)
             } else {
                 let node = f.get("modality")?;
-                self.report(node, format!("unknown modality `{m}`"), "write `photon` or `electron`");
+                self.report(
+                    node,
+                    format!("unknown modality `{m}`"),
+                    "write `photon` or `electron`",
+                );
                 None
             }
         });
@@ -612,7 +684,10 @@ impl<'f> Decoder<'f> {
         let Value::Map(entries) = &n.value else {
             self.report(
                 n,
-                format!("`criteria` must be a mapping of named criteria sets, found {}", n.describe()),
+                format!(
+                    "`criteria` must be a mapping of named criteria sets, found {}",
+                    n.describe()
+                ),
                 "write `criteria:` then one `name:` block per criteria set",
             );
             return None;
@@ -621,7 +696,12 @@ impl<'f> Decoder<'f> {
             self.report(n, "`criteria` is empty", "define at least one criteria set");
             return None;
         }
-        Some(entries.iter().filter_map(|(k, v)| self.criteria_set(k.scalar().unwrap_or_default(), v)).collect())
+        Some(
+            entries
+                .iter()
+                .filter_map(|(k, v)| self.criteria_set(k.scalar().unwrap_or_default(), v))
+                .collect(),
+        )
     }
 
     fn levels(&mut self, n: &Node, what: &'static str, unit: &str) -> Option<Levels> {
@@ -630,7 +710,11 @@ impl<'f> Decoder<'f> {
         let action = self.req_number(&f, "action", 0.0, 1e6, unit);
         let (tolerance, action) = (tolerance?, action?);
         if tolerance > action {
-            self.report(n, format!("tolerance {tolerance} is larger than action level {action}"), "the action level must be at least the tolerance");
+            self.report(
+                n,
+                format!("tolerance {tolerance} is larger than action level {action}"),
+                "the action level must be at least the tolerance",
+            );
             return None;
         }
         Some(Levels { tolerance, action })
@@ -654,7 +738,11 @@ impl<'f> Decoder<'f> {
         let mut metrics = BTreeMap::new();
         if let Some(m) = f.get("metrics") {
             let Value::Map(entries) = &m.value else {
-                self.report(m, "`metrics` must be a mapping of metric id to levels", "write `metric-id: {tolerance: 1, action: 2}`");
+                self.report(
+                    m,
+                    "`metrics` must be a mapping of metric id to levels",
+                    "write `metric-id: {tolerance: 1, action: 2}`",
+                );
                 return None;
             };
             for (k, v) in entries {
@@ -675,21 +763,31 @@ impl<'f> Decoder<'f> {
         let dose_percent = self.req_number(&f, "dose-percent", 0.01, 100.0, "%");
         let dta_mm = self.req_number(&f, "dta-mm", 0.01, 100.0, "mm");
         // Defaults follow AAPM TG-218 (Miften et al 2018): 10 % threshold, global, 95 % / 90 %.
-        let threshold_percent = self.opt_number(&f, "threshold-percent", 0.0, 99.0, "%").unwrap_or(10.0);
+        let threshold_percent = self
+            .opt_number(&f, "threshold-percent", 0.0, 99.0, "%")
+            .unwrap_or(10.0);
         let normalisation = match f.get("normalisation") {
             Some(nn) => match nn.scalar() {
                 Some("global") => Normalisation::Global,
                 Some("local") => Normalisation::Local,
                 _ => {
-                    self.report(nn, format!("unknown normalisation {}", show(nn)), "write `global` or `local`");
+                    self.report(
+                        nn,
+                        format!("unknown normalisation {}", show(nn)),
+                        "write `global` or `local`",
+                    );
                     return None;
                 }
             },
             None => Normalisation::Global,
         };
         let normalisation_dose_gy = self.opt_number(&f, "normalisation-dose-gy", 1e-6, 1e4, "Gy");
-        let tolerance_pass_percent = self.opt_number(&f, "tolerance-pass-percent", 0.0, 100.0, "%").unwrap_or(95.0);
-        let action_pass_percent = self.opt_number(&f, "action-pass-percent", 0.0, 100.0, "%").unwrap_or(90.0);
+        let tolerance_pass_percent = self
+            .opt_number(&f, "tolerance-pass-percent", 0.0, 100.0, "%")
+            .unwrap_or(95.0);
+        let action_pass_percent = self
+            .opt_number(&f, "action-pass-percent", 0.0, 100.0, "%")
+            .unwrap_or(90.0);
         if action_pass_percent > tolerance_pass_percent {
             self.report(n, format!("action pass rate {action_pass_percent} % is above tolerance pass rate {tolerance_pass_percent} %"), "the action pass rate must not exceed the tolerance pass rate");
             return None;
@@ -715,7 +813,11 @@ impl<'f> Decoder<'f> {
         for item in items {
             match self.site(item, criteria) {
                 Some(s) if out.iter().any(|o| o.id == s.id) => {
-                    self.report(item, format!("site id `{}` is used twice", s.id), "give each site its own id");
+                    self.report(
+                        item,
+                        format!("site id `{}` is used twice", s.id),
+                        "give each site its own id",
+                    );
                 }
                 Some(s) => out.push(s),
                 None => {}
@@ -726,22 +828,32 @@ impl<'f> Decoder<'f> {
 
     fn site(&mut self, n: &Node, criteria: &[String]) -> Option<Site> {
         let f = self.fields(n, "a site", SITE_KEYS)?;
-        let id = self.ident(&f, "id", "add `id:` with the site's identifier, e.g. `standard-fields`");
+        let id = self.ident(
+            &f,
+            "id",
+            "add `id:` with the site's identifier, e.g. `standard-fields`",
+        );
         let name = self.req_string(&f, "name", "add `name:` with the site's title");
-        let tests = self.required(&f, "tests", "add `tests:` listing the site's tests").and_then(|t| {
-            let items = self.list(t, "`tests`")?;
-            let mut out: Vec<TestSpec> = Vec::new();
-            for item in items {
-                match self.test(item, criteria) {
-                    Some(s) if out.iter().any(|o| o.id == s.id) => {
-                        self.report(item, format!("test id `{}` is used twice in this site", s.id), "give each test of a site its own id");
+        let tests = self
+            .required(&f, "tests", "add `tests:` listing the site's tests")
+            .and_then(|t| {
+                let items = self.list(t, "`tests`")?;
+                let mut out: Vec<TestSpec> = Vec::new();
+                for item in items {
+                    match self.test(item, criteria) {
+                        Some(s) if out.iter().any(|o| o.id == s.id) => {
+                            self.report(
+                                item,
+                                format!("test id `{}` is used twice in this site", s.id),
+                                "give each test of a site its own id",
+                            );
+                        }
+                        Some(s) => out.push(s),
+                        None => {}
                     }
-                    Some(s) => out.push(s),
-                    None => {}
                 }
-            }
-            Some(out)
-        });
+                Some(out)
+            });
         Some(Site {
             id: id?,
             name: name?,
@@ -752,7 +864,11 @@ impl<'f> Decoder<'f> {
     fn test(&mut self, n: &Node, criteria: &[String]) -> Option<TestSpec> {
         let f = self.fields(n, "a test", TEST_KEYS)?;
         let id = self.ident(&f, "id", "add `id:` with the test's identifier");
-        let name = self.req_string(&f, "name", "add `name:` with a short description of the test");
+        let name = self.req_string(
+            &f,
+            "name",
+            "add `name:` with a short description of the test",
+        );
         let kind = self.required(&f, "kind", "add `kind:`").and_then(|k| {
             let s = self.string(k, "`kind`")?;
             let kind = TestKind::from_name(&s);
@@ -766,7 +882,9 @@ impl<'f> Decoder<'f> {
             }
             kind
         });
-        let beam = f.get("beam").and_then(|b| Some((self.string(b, "`beam`")?, Pos::of(b))));
+        let beam = f
+            .get("beam")
+            .and_then(|b| Some((self.string(b, "`beam`")?, Pos::of(b))));
         let machines = match f.get("machines") {
             Some(m) => Some(
                 self.list(m, "`machines`")?
@@ -784,26 +902,47 @@ impl<'f> Decoder<'f> {
             Some(m) => Some(self.input(m, "`calculated`")?),
             None => None,
         };
-        let criteria_ref = self.required(&f, "criteria", "add `criteria:` naming one of the campaign's criteria sets").and_then(|c| {
-            let s = self.string(c, "`criteria`")?;
-            if !criteria.contains(&s) {
-                let help = match nearest(&s, criteria.iter().map(String::as_str)) {
-                    Some(n) => format!("did you mean `{n}`?"),
-                    None => format!("defined criteria sets: {}", criteria.join(", ")),
-                };
-                self.report(c, format!("criteria set `{s}` is not defined"), help);
-                return None;
-            }
-            Some((s, Pos::of(c)))
-        });
-        let analyses = self.required(&f, "analyses", "add `analyses:` listing the plugins to run, e.g. `analyses: [point-dose]`").and_then(|a| {
-            let items = self.list(a, "`analyses`")?;
-            if items.is_empty() {
-                self.report(a, "`analyses` is empty", "name at least one analysis plugin");
-                return None;
-            }
-            items.iter().map(|i| self.analysis(i)).collect::<Vec<_>>().into_iter().collect::<Option<Vec<_>>>()
-        });
+        let criteria_ref = self
+            .required(
+                &f,
+                "criteria",
+                "add `criteria:` naming one of the campaign's criteria sets",
+            )
+            .and_then(|c| {
+                let s = self.string(c, "`criteria`")?;
+                if !criteria.contains(&s) {
+                    let help = match nearest(&s, criteria.iter().map(String::as_str)) {
+                        Some(n) => format!("did you mean `{n}`?"),
+                        None => format!("defined criteria sets: {}", criteria.join(", ")),
+                    };
+                    self.report(c, format!("criteria set `{s}` is not defined"), help);
+                    return None;
+                }
+                Some((s, Pos::of(c)))
+            });
+        let analyses = self
+            .required(
+                &f,
+                "analyses",
+                "add `analyses:` listing the plugins to run, e.g. `analyses: [point-dose]`",
+            )
+            .and_then(|a| {
+                let items = self.list(a, "`analyses`")?;
+                if items.is_empty() {
+                    self.report(
+                        a,
+                        "`analyses` is empty",
+                        "name at least one analysis plugin",
+                    );
+                    return None;
+                }
+                items
+                    .iter()
+                    .map(|i| self.analysis(i))
+                    .collect::<Vec<_>>()
+                    .into_iter()
+                    .collect::<Option<Vec<_>>>()
+            });
         Some(TestSpec {
             id: id?,
             name: name?,
@@ -834,17 +973,28 @@ impl<'f> Decoder<'f> {
             let s = self.string(p, "`patient-position`")?;
             let v = PatientPosition::from_name(&s);
             if v.is_none() {
-                self.report(p, format!("unknown patient position `{s}`"), format!("one of: {}", PatientPosition::NAMES.join(", ")));
+                self.report(
+                    p,
+                    format!("unknown patient position `{s}`"),
+                    format!("one of: {}", PatientPosition::NAMES.join(", ")),
+                );
             }
             v
         });
         let iso = f.get("isocentre-mm").and_then(|i| {
             let items = self.list(i, "`isocentre-mm`")?;
             if items.len() != 3 {
-                self.report(i, format!("`isocentre-mm` needs 3 numbers, found {}", items.len()), "write `[x, y, z]` in the DICOM patient coordinates of the dose file, mm");
+                self.report(
+                    i,
+                    format!("`isocentre-mm` needs 3 numbers, found {}", items.len()),
+                    "write `[x, y, z]` in the DICOM patient coordinates of the dose file, mm",
+                );
                 return None;
             }
-            let v: Vec<f64> = items.iter().filter_map(|x| self.number(x, "an isocentre coordinate", -1e5, 1e5, "mm")).collect();
+            let v: Vec<f64> = items
+                .iter()
+                .filter_map(|x| self.number(x, "an isocentre coordinate", -1e5, 1e5, "mm"))
+                .collect();
             (v.len() == 3).then(|| [v[0], v[1], v[2]])
         });
         let placement = match (f.get("patient-position"), f.get("isocentre-mm")) {
@@ -854,7 +1004,11 @@ impl<'f> Decoder<'f> {
                 isocentre_mm: iso?,
             }),
             _ => {
-                self.report(n, format!("{what} gives only one of `patient-position` and `isocentre-mm`"), "a DICOM dose grid needs both to be placed in IEC 61217 coordinates");
+                self.report(
+                    n,
+                    format!("{what} gives only one of `patient-position` and `isocentre-mm`"),
+                    "a DICOM dose grid needs both to be placed in IEC 61217 coordinates",
+                );
                 return None;
             }
         };
@@ -874,15 +1028,29 @@ impl<'f> Decoder<'f> {
             });
         }
         let f = self.fields(n, "an analysis", ANALYSIS_KEYS)?;
-        let plugin = self.req_string(&f, "plugin", "add `plugin:` with the analysis plugin's name");
+        let plugin = self.req_string(
+            &f,
+            "plugin",
+            "add `plugin:` with the analysis plugin's name",
+        );
         let params = match f.get("params") {
             Some(p) => match &p.value {
                 Value::Map(entries) => entries
                     .iter()
-                    .map(|(k, v)| (k.scalar().unwrap_or_default().to_string(), v.to_json(), Pos::of(k)))
+                    .map(|(k, v)| {
+                        (
+                            k.scalar().unwrap_or_default().to_string(),
+                            v.to_json(),
+                            Pos::of(k),
+                        )
+                    })
                     .collect(),
                 _ => {
-                    self.report(p, "`params` must be a mapping", "write `params: {name: value}`");
+                    self.report(
+                        p,
+                        "`params` must be a mapping",
+                        "write `params: {name: value}`",
+                    );
                     return None;
                 }
             },

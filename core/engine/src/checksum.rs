@@ -10,12 +10,18 @@ pub const MANIFEST: &str = "manifest.sha256";
 
 /// Lower-case hex SHA-256 of `bytes`.
 pub fn sha256_hex(bytes: &[u8]) -> String {
-    Sha256::digest(bytes).iter().map(|b| format!("{b:02x}")).collect()
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 /// Manifest text for (relative path, bytes) pairs, sorted by path, `/` as separator.
 pub fn manifest_text(entries: &[(String, &[u8])]) -> String {
-    let mut lines: Vec<(String, String)> = entries.iter().map(|(p, b)| (p.clone(), sha256_hex(b))).collect();
+    let mut lines: Vec<(String, String)> = entries
+        .iter()
+        .map(|(p, b)| (p.clone(), sha256_hex(b)))
+        .collect();
     lines.sort();
     lines.iter().map(|(p, h)| format!("{h}  {p}\n")).collect()
 }
@@ -56,7 +62,11 @@ pub fn verify_run(dir: &Path) -> Result<Verification, String> {
     let manifest_path = dir.join(MANIFEST);
     let text = std::fs::read_to_string(&manifest_path)
         .map_err(|e| format!("cannot read {}: {e}", manifest_path.display()))?;
-    let mut v = Verification { ok: Vec::new(), findings: Vec::new(), uncovered: Vec::new() };
+    let mut v = Verification {
+        ok: Vec::new(),
+        findings: Vec::new(),
+        uncovered: Vec::new(),
+    };
     let mut listed = Vec::new();
     for (i, line) in text.lines().enumerate() {
         let Some((hash, rel)) = line.split_once("  ") else {
@@ -74,7 +84,11 @@ pub fn verify_run(dir: &Path) -> Result<Verification, String> {
             Err(_) => v.findings.push(Finding::Missing(rel.to_string())),
         }
     }
-    for entry in walkdir::WalkDir::new(dir).sort_by_file_name().into_iter().filter_map(Result::ok) {
+    for entry in walkdir::WalkDir::new(dir)
+        .sort_by_file_name()
+        .into_iter()
+        .filter_map(Result::ok)
+    {
         if !entry.file_type().is_file() {
             continue;
         }
@@ -94,7 +108,10 @@ fn safe_relative(rel: &str) -> bool {
 /// `path` relative to `base` with `/` separators.
 pub fn relative_slash(base: &Path, path: &Path) -> String {
     let rel: PathBuf = path.strip_prefix(base).unwrap_or(path).to_path_buf();
-    rel.components().map(|c| c.as_os_str().to_string_lossy().into_owned()).collect::<Vec<_>>().join("/")
+    rel.components()
+        .map(|c| c.as_os_str().to_string_lossy().into_owned())
+        .collect::<Vec<_>>()
+        .join("/")
 }
 
 #[cfg(test)]
@@ -104,7 +121,10 @@ mod tests {
     #[test]
     fn sha256_matches_the_fips_test_vector() {
         // FIPS 180-2, Appendix B.1: SHA-256("abc").
-        assert_eq!(sha256_hex(b"abc"), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+        assert_eq!(
+            sha256_hex(b"abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
     }
 
     #[test]

@@ -1,12 +1,12 @@
 //! beamproof-engine: reads and checks campaigns, reads dose files, runs analyses and writes
 //! checksummed run folders.
 
-pub mod diag;
-pub mod yaml;
 pub mod campaign;
-pub mod readers;
 pub mod checksum;
-pub mod registry;
-pub mod prepare;
+pub mod diag;
 pub mod output;
+pub mod prepare;
+pub mod readers;
+pub mod registry;
 pub mod run;
+pub mod yaml;

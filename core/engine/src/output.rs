@@ -19,32 +19,62 @@ pub enum OutputError {
     #[error("run folder {0} already exists; runs are never overwritten")]
     Exists(PathBuf),
     #[error("cannot write {path}: {source}")]
-    Io { path: PathBuf, source: std::io::Error },
+    Io {
+        path: PathBuf,
+        source: std::io::Error,
+    },
     #[error("input `{0}` has the same name as the campaign file")]
     NameClash(String),
 }
 
 fn io(path: &Path) -> impl FnOnce(std::io::Error) -> OutputError + '_ {
-    move |source| OutputError::Io { path: path.to_path_buf(), source }
+    move |source| OutputError::Io {
+        path: path.to_path_buf(),
+        source,
+    }
 }
 
 /// Write the run folder `out` atomically.
-pub fn write_run_folder(out: &Path, campaign: &Campaign, prepared: &Prepared, results_json: &[u8], report_pdf: &[u8]) -> Result<(), OutputError> {
+pub fn write_run_folder(
+    out: &Path,
+    campaign: &Campaign,
+    prepared: &Prepared,
+    results_json: &[u8],
+    report_pdf: &[u8],
+) -> Result<(), OutputError> {
     if out.exists() {
         return Err(OutputError::Exists(out.to_path_buf()));
     }
-    let campaign_name = campaign.path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "campaign.yaml".into());
+    let campaign_name = campaign
+        .path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "campaign.yaml".into());
     if prepared.inputs.iter().any(|i| i.rel == campaign_name) {
         return Err(OutputError::NameClash(campaign_name));
     }
-    let parent = out.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let parent = out
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
     std::fs::create_dir_all(parent).map_err(io(parent))?;
-    let name = out.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "run".into());
+    let name = out
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "run".into());
     let tmp = parent.join(format!(".{name}.partial-{}", std::process::id()));
     if tmp.exists() {
         std::fs::remove_dir_all(&tmp).map_err(io(&tmp))?;
     }
-    let result = fill(&tmp, &campaign_name, campaign, prepared, results_json, report_pdf).and_then(|()| {
+    let result = fill(
+        &tmp,
+        &campaign_name,
+        campaign,
+        prepared,
+        results_json,
+        report_pdf,
+    )
+    .and_then(|()| {
         if out.exists() {
             return Err(OutputError::Exists(out.to_path_buf()));
         }
@@ -56,9 +86,22 @@ pub fn write_run_folder(out: &Path, campaign: &Campaign, prepared: &Prepared, re
     result
 }
 
-fn fill(tmp: &Path, campaign_name: &str, campaign: &Campaign, prepared: &Prepared, results_json: &[u8], report_pdf: &[u8]) -> Result<(), OutputError> {
-    let mut files: Vec<(String, &[u8])> = vec![(format!("{INPUTS_DIR}/{campaign_name}"), &campaign.bytes)];
-    files.extend(prepared.inputs.iter().map(|i| (format!("{INPUTS_DIR}/{}", i.rel), i.bytes.as_slice())));
+fn fill(
+    tmp: &Path,
+    campaign_name: &str,
+    campaign: &Campaign,
+    prepared: &Prepared,
+    results_json: &[u8],
+    report_pdf: &[u8],
+) -> Result<(), OutputError> {
+    let mut files: Vec<(String, &[u8])> =
+        vec![(format!("{INPUTS_DIR}/{campaign_name}"), &campaign.bytes)];
+    files.extend(
+        prepared
+            .inputs
+            .iter()
+            .map(|i| (format!("{INPUTS_DIR}/{}", i.rel), i.bytes.as_slice())),
+    );
     files.push(("results.json".into(), results_json));
     files.push(("report.pdf".into(), report_pdf));
     for (rel, bytes) in &files {

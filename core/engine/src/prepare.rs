@@ -62,24 +62,41 @@ pub struct Prepared {
 }
 
 /// Which machine to run: the one named, or the only one.
-pub fn choose_machine<'c>(campaign: &'c Campaign, requested: Option<&str>) -> Result<&'c Machine, Diagnostic> {
+pub fn choose_machine<'c>(
+    campaign: &'c Campaign,
+    requested: Option<&str>,
+) -> Result<&'c Machine, Diagnostic> {
     let ids: Vec<&str> = campaign.machines.iter().map(|m| m.id.as_str()).collect();
     match requested {
         Some(id) => campaign.machine(id).ok_or_else(|| {
             let help = match nearest(id, ids.iter().copied()) {
-                Some(n) => format!("did you mean `{n}`? the campaign describes: {}", ids.join(", ")),
+                Some(n) => format!(
+                    "did you mean `{n}`? the campaign describes: {}",
+                    ids.join(", ")
+                ),
                 None => format!("the campaign describes: {}", ids.join(", ")),
             };
-            Diagnostic::file(&campaign.path, format!("machine `{id}` is not described in the campaign")).help(help)
+            Diagnostic::file(
+                &campaign.path,
+                format!("machine `{id}` is not described in the campaign"),
+            )
+            .help(help)
         }),
         None if campaign.machines.len() == 1 => Ok(&campaign.machines[0]),
-        None => Err(Diagnostic::file(&campaign.path, "the campaign describes several machines; choose one")
-            .help(format!("add `--machine ID`, one of: {}", ids.join(", ")))),
+        None => Err(Diagnostic::file(
+            &campaign.path,
+            "the campaign describes several machines; choose one",
+        )
+        .help(format!("add `--machine ID`, one of: {}", ids.join(", ")))),
     }
 }
 
 /// Check and read everything for `machine`. Returns every problem found.
-pub fn prepare(campaign: &Campaign, registry: &Registry, machine: &Machine) -> Result<Prepared, Vec<Diagnostic>> {
+pub fn prepare(
+    campaign: &Campaign,
+    registry: &Registry,
+    machine: &Machine,
+) -> Result<Prepared, Vec<Diagnostic>> {
     let mut diags = Vec::new();
     let mut tests = Vec::new();
     let mut files: BTreeMap<String, InputFile> = BTreeMap::new();
@@ -89,8 +106,24 @@ pub fn prepare(campaign: &Campaign, registry: &Registry, machine: &Machine) -> R
             if let Some(ms) = &spec.machines {
                 for (m, pos) in ms {
                     if campaign.machine(m).is_none() {
-                        diags.push(at(*pos, format!("test `{}` names machine `{m}`, which is not described", spec.id))
-                            .help(format!("machines: {}", campaign.machines.iter().map(|m| m.id.as_str()).collect::<Vec<_>>().join(", "))));
+                        diags.push(
+                            at(
+                                *pos,
+                                format!(
+                                    "test `{}` names machine `{m}`, which is not described",
+                                    spec.id
+                                ),
+                            )
+                            .help(format!(
+                                "machines: {}",
+                                campaign
+                                    .machines
+                                    .iter()
+                                    .map(|m| m.id.as_str())
+                                    .collect::<Vec<_>>()
+                                    .join(", ")
+                            )),
+                        );
                     }
                 }
             }
@@ -100,10 +133,23 @@ pub fn prepare(campaign: &Campaign, registry: &Registry, machine: &Machine) -> R
             let before = diags.len();
             let beam = beam_info(campaign, machine, spec, &mut diags);
             let analyses = analyses(campaign, registry, spec, &mut diags);
-            let measured = input(campaign, machine, spec.measured.as_ref(), &mut files, &mut diags);
-            let calculated = input(campaign, machine, spec.calculated.as_ref(), &mut files, &mut diags);
+            let measured = input(
+                campaign,
+                machine,
+                spec.measured.as_ref(),
+                &mut files,
+                &mut diags,
+            );
+            let calculated = input(
+                campaign,
+                machine,
+                spec.calculated.as_ref(),
+                &mut files,
+                &mut diags,
+            );
             if diags.len() == before {
-                if let Err(d) = check_shapes(campaign, spec, measured.as_ref(), calculated.as_ref()) {
+                if let Err(d) = check_shapes(campaign, spec, measured.as_ref(), calculated.as_ref())
+                {
                     diags.push(d);
                     continue;
                 }
@@ -125,33 +171,65 @@ pub fn prepare(campaign: &Campaign, registry: &Registry, machine: &Machine) -> R
         }
     }
     if tests.is_empty() && diags.is_empty() {
-        diags.push(Diagnostic::file(&campaign.path, format!("no test applies to machine `{}`", machine.id))
-            .help("check the tests' `machines:` lists"));
+        diags.push(
+            Diagnostic::file(
+                &campaign.path,
+                format!("no test applies to machine `{}`", machine.id),
+            )
+            .help("check the tests' `machines:` lists"),
+        );
     }
     if diags.is_empty() {
-        Ok(Prepared { machine: machine.clone(), tests, inputs: files.into_values().collect() })
+        Ok(Prepared {
+            machine: machine.clone(),
+            tests,
+            inputs: files.into_values().collect(),
+        })
     } else {
         Err(diags)
     }
 }
 
-fn beam_info(campaign: &Campaign, machine: &Machine, spec: &TestSpec, diags: &mut Vec<Diagnostic>) -> Option<BeamInfo> {
+fn beam_info(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: &TestSpec,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<BeamInfo> {
     let (id, pos) = spec.beam.as_ref()?;
     match machine.beams.iter().find(|b| &b.id == id) {
-        Some(b) => Some(BeamInfo { id: b.id.clone(), modality: b.modality.clone(), energy: b.energy, fff: b.fff }),
+        Some(b) => Some(BeamInfo {
+            id: b.id.clone(),
+            modality: b.modality.clone(),
+            energy: b.energy,
+            fff: b.fff,
+        }),
         None => {
             let ids: Vec<&str> = machine.beams.iter().map(|b| b.id.as_str()).collect();
             let help = match nearest(id, ids.iter().copied()) {
                 Some(n) => format!("did you mean `{n}`?"),
                 None => format!("beams of `{}`: {}", machine.id, ids.join(", ")),
             };
-            diags.push(Diagnostic::at(&campaign.path, pos.line, pos.column, format!("machine `{}` has no beam `{id}`", machine.id)).help(help));
+            diags.push(
+                Diagnostic::at(
+                    &campaign.path,
+                    pos.line,
+                    pos.column,
+                    format!("machine `{}` has no beam `{id}`", machine.id),
+                )
+                .help(help),
+            );
             None
         }
     }
 }
 
-fn analyses(campaign: &Campaign, registry: &Registry, spec: &TestSpec, diags: &mut Vec<Diagnostic>) -> Vec<PreparedAnalysis> {
+fn analyses(
+    campaign: &Campaign,
+    registry: &Registry,
+    spec: &TestSpec,
+    diags: &mut Vec<Diagnostic>,
+) -> Vec<PreparedAnalysis> {
     let mut out = Vec::new();
     for a in &spec.analyses {
         let at = |msg: String| Diagnostic::at(&campaign.path, a.pos.line, a.pos.column, msg);
@@ -159,19 +237,31 @@ fn analyses(campaign: &Campaign, registry: &Registry, spec: &TestSpec, diags: &m
             let names: Vec<&str> = registry.names().collect();
             let help = match nearest(&a.plugin, names.iter().copied()) {
                 Some(n) => format!("did you mean `{n}`?"),
-                None => format!("installed analyses: {}; a dynamic plugin's folder goes in `plugin-dirs` or `--plugin-dir`", names.join(", ")),
+                None => format!(
+                    "installed analyses: {}; a dynamic plugin's folder goes in `plugin-dirs` or `--plugin-dir`",
+                    names.join(", ")
+                ),
             };
             diags.push(at(format!("no analysis plugin named `{}`", a.plugin)).help(help));
             continue;
         };
         if !plugin.manifest.kinds.contains(&spec.kind) {
             let kinds: Vec<&str> = plugin.manifest.kinds.iter().map(|k| k.name()).collect();
-            diags.push(at(format!("plugin `{}` does not analyse `{}` tests", a.plugin, spec.kind.name()))
-                .help(format!("it accepts: {}", kinds.join(", "))));
+            diags.push(
+                at(format!(
+                    "plugin `{}` does not analyse `{}` tests",
+                    a.plugin,
+                    spec.kind.name()
+                ))
+                .help(format!("it accepts: {}", kinds.join(", "))),
+            );
             continue;
         }
         match validate_params(&campaign.path, a, &plugin.manifest) {
-            Ok(params) => out.push(PreparedAnalysis { plugin: a.plugin.clone(), params }),
+            Ok(params) => out.push(PreparedAnalysis {
+                plugin: a.plugin.clone(),
+                params,
+            }),
             Err(mut d) => diags.append(&mut d),
         }
     }
@@ -179,7 +269,11 @@ fn analyses(campaign: &Campaign, registry: &Registry, spec: &TestSpec, diags: &m
 }
 
 /// Check a test's parameters against the plugin's declared parameters and fill in defaults.
-pub fn validate_params(file: &Path, a: &AnalysisSpec, manifest: &PluginManifest) -> Result<BTreeMap<String, serde_json::Value>, Vec<Diagnostic>> {
+pub fn validate_params(
+    file: &Path,
+    a: &AnalysisSpec,
+    manifest: &PluginManifest,
+) -> Result<BTreeMap<String, serde_json::Value>, Vec<Diagnostic>> {
     let mut diags = Vec::new();
     let mut out = BTreeMap::new();
     for (name, value, pos) in &a.params {
@@ -191,7 +285,13 @@ pub fn validate_params(file: &Path, a: &AnalysisSpec, manifest: &PluginManifest)
                 None if names.is_empty() => format!("`{}` takes no parameters", manifest.name),
                 None => format!("parameters of `{}`: {}", manifest.name, names.join(", ")),
             };
-            diags.push(at(format!("unknown parameter `{name}` for plugin `{}`", manifest.name)).help(help));
+            diags.push(
+                at(format!(
+                    "unknown parameter `{name}` for plugin `{}`",
+                    manifest.name
+                ))
+                .help(help),
+            );
             continue;
         };
         let problem = match (&spec.kind, value) {
@@ -203,13 +303,26 @@ pub fn validate_params(file: &Path, a: &AnalysisSpec, manifest: &PluginManifest)
                 let v = n.as_i64().unwrap_or(0);
                 range_problem(v as f64, min.map(|m| m as f64), max.map(|m| m as f64))
             }
-            (ParamType::Bool, serde_json::Value::Bool(_)) | (ParamType::Text, serde_json::Value::String(_)) => None,
-            (ParamType::Choice { choices }, serde_json::Value::String(s)) if choices.contains(s) => None,
-            (ParamType::Choice { choices }, _) => Some(format!("must be one of: {}", choices.join(", "))),
+            (ParamType::Bool, serde_json::Value::Bool(_))
+            | (ParamType::Text, serde_json::Value::String(_)) => None,
+            (ParamType::Choice { choices }, serde_json::Value::String(s))
+                if choices.contains(s) =>
+            {
+                None
+            }
+            (ParamType::Choice { choices }, _) => {
+                Some(format!("must be one of: {}", choices.join(", ")))
+            }
             (kind, _) => Some(format!("must be {}", kind_word(kind))),
         };
         match problem {
-            Some(p) => diags.push(at(format!("parameter `{name}` of `{}` {p}, found {value}", manifest.name)).help(spec.description.clone())),
+            Some(p) => diags.push(
+                at(format!(
+                    "parameter `{name}` of `{}` {p}, found {value}",
+                    manifest.name
+                ))
+                .help(spec.description.clone()),
+            ),
             None => {
                 out.insert(name.clone(), value.clone());
             }
@@ -220,7 +333,11 @@ pub fn validate_params(file: &Path, a: &AnalysisSpec, manifest: &PluginManifest)
             out.insert(spec.name.clone(), d.clone());
         }
     }
-    if diags.is_empty() { Ok(out) } else { Err(diags) }
+    if diags.is_empty() {
+        Ok(out)
+    } else {
+        Err(diags)
+    }
 }
 
 fn range_problem(v: f64, min: Option<f64>, max: Option<f64>) -> Option<String> {
@@ -259,7 +376,13 @@ fn clean_relative(p: &str) -> Option<String> {
     (!parts.is_empty()).then(|| parts.join("/"))
 }
 
-fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files: &mut BTreeMap<String, InputFile>, diags: &mut Vec<Diagnostic>) -> Option<PreparedInput> {
+fn input(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: Option<&InputSpec>,
+    files: &mut BTreeMap<String, InputFile>,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<PreparedInput> {
     let spec = spec?;
     let written = spec.path_for(&machine.id);
     let at = |msg: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg);
@@ -272,21 +395,37 @@ fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files
     let bytes = match std::fs::read(&path) {
         Ok(b) => b,
         Err(e) => {
-            let for_machine = if spec.template.contains("{machine}") { format!(" (for machine `{}`)", machine.id) } else { String::new() };
+            let for_machine = if spec.template.contains("{machine}") {
+                format!(" (for machine `{}`)", machine.id)
+            } else {
+                String::new()
+            };
             let why = match e.kind() {
                 std::io::ErrorKind::NotFound => "it does not exist".to_string(),
                 _ => e.to_string(),
             };
-            diags.push(at(format!("input file `{rel}`{for_machine} cannot be read: {why}"))
-                .help(format!("expected at {}", path.display())));
+            diags.push(
+                at(format!(
+                    "input file `{rel}`{for_machine} cannot be read: {why}"
+                ))
+                .help(format!("expected at {}", path.display())),
+            );
             return None;
         }
     };
     match read_dataset(&path, &rel, spec.placement.as_ref()) {
         Ok(dataset) => {
             let sha256 = sha256_hex(&bytes);
-            files.entry(rel.clone()).or_insert_with(|| InputFile { rel: rel.clone(), sha256: sha256.clone(), bytes });
-            Some(PreparedInput { rel, sha256, dataset })
+            files.entry(rel.clone()).or_insert_with(|| InputFile {
+                rel: rel.clone(),
+                sha256: sha256.clone(),
+                bytes,
+            });
+            Some(PreparedInput {
+                rel,
+                sha256,
+                dataset,
+            })
         }
         Err(d) => {
             diags.push(d);
@@ -296,32 +435,78 @@ fn input(campaign: &Campaign, machine: &Machine, spec: Option<&InputSpec>, files
 }
 
 /// The data shapes each test kind takes, checked before any analysis runs.
-fn check_shapes(campaign: &Campaign, spec: &TestSpec, measured: Option<&PreparedInput>, calculated: Option<&PreparedInput>) -> Result<(), Diagnostic> {
-    let at = |msg: String, help: &str| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg).help(help);
+fn check_shapes(
+    campaign: &Campaign,
+    spec: &TestSpec,
+    measured: Option<&PreparedInput>,
+    calculated: Option<&PreparedInput>,
+) -> Result<(), Diagnostic> {
+    let at = |msg: String, help: &str| {
+        Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg).help(help)
+    };
     type ShapeOk = fn(&DatasetData) -> bool;
-    let depth: ShapeOk = |d| matches!(d, DatasetData::Curve(c) if c.axis == beamproof_api::CurveAxis::Depth);
-    let lateral: ShapeOk = |d| matches!(d, DatasetData::Curve(c) if c.axis != beamproof_api::CurveAxis::Depth);
+    let depth: ShapeOk =
+        |d| matches!(d, DatasetData::Curve(c) if c.axis == beamproof_api::CurveAxis::Depth);
+    let lateral: ShapeOk =
+        |d| matches!(d, DatasetData::Curve(c) if c.axis != beamproof_api::CurveAxis::Depth);
     let points: ShapeOk = |d| matches!(d, DatasetData::Points(_));
     let grid: ShapeOk = |d| matches!(d, DatasetData::Grid(_));
     let plane: ShapeOk = |d| matches!(d, DatasetData::Grid(g) if g.dimensions() == 2);
     let volume: ShapeOk = |d| matches!(d, DatasetData::Grid(g) if g.dimensions() == 3);
     let points_or_grid: ShapeOk = |d| matches!(d, DatasetData::Points(_) | DatasetData::Grid(_));
     let (want_m, want_c, words): (Option<ShapeOk>, Option<ShapeOk>, &str) = match spec.kind {
-        TestKind::DepthDose => (Some(depth), Some(depth), "measured and calculated depth curves (`# axis: depth`)"),
-        TestKind::Profile => (Some(lateral), Some(lateral), "measured and calculated profiles (`# axis: x`, `y` or `diagonal`)"),
-        TestKind::Plane => (Some(plane), Some(grid), "a measured 2D plane and a calculated plane or volume"),
-        TestKind::Volume => (Some(volume), Some(volume), "measured and calculated 3D grids"),
-        TestKind::PointSet => (Some(points), Some(grid), "measured points and a calculated dose grid"),
-        TestKind::PointDose => (Some(points), Some(points_or_grid), "measured points and calculated points or a dose grid"),
+        TestKind::DepthDose => (
+            Some(depth),
+            Some(depth),
+            "measured and calculated depth curves (`# axis: depth`)",
+        ),
+        TestKind::Profile => (
+            Some(lateral),
+            Some(lateral),
+            "measured and calculated profiles (`# axis: x`, `y` or `diagonal`)",
+        ),
+        TestKind::Plane => (
+            Some(plane),
+            Some(grid),
+            "a measured 2D plane and a calculated plane or volume",
+        ),
+        TestKind::Volume => (
+            Some(volume),
+            Some(volume),
+            "measured and calculated 3D grids",
+        ),
+        TestKind::PointSet => (
+            Some(points),
+            Some(grid),
+            "measured points and a calculated dose grid",
+        ),
+        TestKind::PointDose => (
+            Some(points),
+            Some(points_or_grid),
+            "measured points and calculated points or a dose grid",
+        ),
         TestKind::MuCheck => (None, None, ""),
     };
-    for (role, want, got) in [("measured", want_m, measured), ("calculated", want_c, calculated)] {
+    for (role, want, got) in [
+        ("measured", want_m, measured),
+        ("calculated", want_c, calculated),
+    ] {
         let Some(ok) = want else { continue };
         match got {
-            None => return Err(at(format!("a `{}` test needs `{role}` data", spec.kind.name()), &format!("give {words}"))),
+            None => {
+                return Err(at(
+                    format!("a `{}` test needs `{role}` data", spec.kind.name()),
+                    &format!("give {words}"),
+                ));
+            }
             Some(inp) if !ok(&inp.dataset.data) => {
                 return Err(at(
-                    format!("`{role}` file `{}` holds a {}, which does not fit a `{}` test", inp.rel, inp.dataset.shape_name(), spec.kind.name()),
+                    format!(
+                        "`{role}` file `{}` holds a {}, which does not fit a `{}` test",
+                        inp.rel,
+                        inp.dataset.shape_name(),
+                        spec.kind.name()
+                    ),
                     &format!("a `{}` test takes {words}", spec.kind.name()),
                 ));
             }
@@ -334,7 +519,10 @@ fn check_shapes(campaign: &Campaign, spec: &TestSpec, measured: Option<&Prepared
         return Err(at(
             format!(
                 "mismatched dose units: measured `{}` is in {}, calculated `{}` in {}",
-                m.rel, m.dataset.unit.label(), c.rel, c.dataset.unit.label()
+                m.rel,
+                m.dataset.unit.label(),
+                c.rel,
+                c.dataset.unit.label()
             ),
             "give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)",
         ));
@@ -348,7 +536,10 @@ mod tests {
 
     #[test]
     fn input_paths_stay_inside_the_campaign_folder() {
-        assert_eq!(clean_relative("./data/lin-a/p.csv").as_deref(), Some("data/lin-a/p.csv"));
+        assert_eq!(
+            clean_relative("./data/lin-a/p.csv").as_deref(),
+            Some("data/lin-a/p.csv")
+        );
         assert_eq!(clean_relative("../secret.csv"), None);
         assert_eq!(clean_relative("/abs/p.csv"), None);
         assert_eq!(clean_relative("data/../../x"), None);

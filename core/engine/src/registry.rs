@@ -45,7 +45,9 @@ impl Plugin {
                 Err(p) => Err(format!("plugin panicked: {}", panic_message(p.as_ref()))),
             },
             // SAFETY: the descriptor was validated at load time and its library is never unloaded.
-            Imp::Dynamic(desc) => unsafe { abi::call_analyse(desc, input) }.map_err(|e| e.to_string()),
+            Imp::Dynamic(desc) => {
+                unsafe { abi::call_analyse(desc, input) }.map_err(|e| e.to_string())
+            }
         }
     }
 }
@@ -84,7 +86,10 @@ impl Registry {
         let mut diags = Vec::new();
         for dir in dirs {
             if !dir.is_dir() {
-                diags.push(Diagnostic::file(dir, "plugin folder does not exist").help("create it, or correct `plugin-dirs` / `--plugin-dir`"));
+                diags.push(
+                    Diagnostic::file(dir, "plugin folder does not exist")
+                        .help("create it, or correct `plugin-dirs` / `--plugin-dir`"),
+                );
                 continue;
             }
             let mut files: Vec<PathBuf> = walkdir::WalkDir::new(dir)
@@ -105,8 +110,16 @@ impl Registry {
                                 Origin::BuiltIn => "a built-in plugin".to_string(),
                                 Origin::Dynamic { path, .. } => path.display().to_string(),
                             };
-                            diags.push(Diagnostic::file(&file, format!("plugin name `{}` is already taken by {from}", p.manifest.name))
-                                .help("rename the plugin or remove one of the two"));
+                            diags.push(
+                                Diagnostic::file(
+                                    &file,
+                                    format!(
+                                        "plugin name `{}` is already taken by {from}",
+                                        p.manifest.name
+                                    ),
+                                )
+                                .help("rename the plugin or remove one of the two"),
+                            );
                         } else {
                             reg.plugins.push(p);
                         }
@@ -115,7 +128,11 @@ impl Registry {
                 }
             }
         }
-        if diags.is_empty() { Ok(reg) } else { Err(diags) }
+        if diags.is_empty() {
+            Ok(reg)
+        } else {
+            Err(diags)
+        }
     }
 
     pub fn get(&self, name: &str) -> Option<&Plugin> {
@@ -134,38 +151,64 @@ impl Registry {
 /// Load one dynamic plugin and check its ABI before using anything else in it.
 pub fn load(path: &Path) -> Result<Plugin, Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    let bytes = std::fs::read(path).map_err(|e| fail(format!("cannot read plugin: {e}"), "check the file's permissions"))?;
+    let bytes = std::fs::read(path).map_err(|e| {
+        fail(
+            format!("cannot read plugin: {e}"),
+            "check the file's permissions",
+        )
+    })?;
     let sha256 = crate::checksum::sha256_hex(&bytes);
     // SAFETY: loading a library runs its initialisers; plugins come only from folders the user
     // named, which is the trust decision of installing a plugin.
     let lib = unsafe { libloading::Library::new(path) }.map_err(|e| {
-        fail(format!("cannot load plugin: {}", error_chain(&e)), "the file must be a beamproof plugin built for this platform")
+        fail(
+            format!("cannot load plugin: {}", error_chain(&e)),
+            "the file must be a beamproof plugin built for this platform",
+        )
     })?;
     // SAFETY: the symbol's type is fixed by the ABI; a plugin without it is refused below.
-    let entry = unsafe { lib.get::<unsafe extern "C" fn() -> *const PluginDescriptor>(ENTRY_SYMBOL) }.map_err(|e| {
+    let entry = unsafe {
+        lib.get::<unsafe extern "C" fn() -> *const PluginDescriptor>(ENTRY_SYMBOL)
+    }
+    .map_err(|e| {
         fail(
-            format!("not a beamproof plugin of ABI {ABI_MAJOR}: {}", error_chain(&e)),
-            &format!("a plugin must export `{ENTRY_SYMBOL}`; build it with beamproof_api::export_plugin!"),
+            format!(
+                "not a beamproof plugin of ABI {ABI_MAJOR}: {}",
+                error_chain(&e)
+            ),
+            &format!(
+                "a plugin must export `{ENTRY_SYMBOL}`; build it with beamproof_api::export_plugin!"
+            ),
         )
     })?;
     // SAFETY: calling the entry returns a pointer to a static descriptor.
     let ptr = unsafe { entry() };
     if ptr.is_null() {
-        return Err(fail("plugin returned no descriptor".into(), "rebuild the plugin with beamproof_api::export_plugin!"));
+        return Err(fail(
+            "plugin returned no descriptor".into(),
+            "rebuild the plugin with beamproof_api::export_plugin!",
+        ));
     }
     // SAFETY: every ABI version starts with abi_major and abi_minor (u32); read them before
     // trusting the rest of the layout.
     let (major, minor) = unsafe { (*(ptr as *const u32), *(ptr as *const u32).add(1)) };
     if major != ABI_MAJOR {
         return Err(fail(
-            format!("plugin ABI {major}.{minor} is not supported; this beamproof reads ABI {ABI_MAJOR}.x (up to {ABI_MAJOR}.{ABI_MINOR})"),
-            &format!("rebuild the plugin against the beamproof-api crate of this release (ABI {ABI_MAJOR}.{ABI_MINOR})"),
+            format!(
+                "plugin ABI {major}.{minor} is not supported; this beamproof reads ABI {ABI_MAJOR}.x (up to {ABI_MAJOR}.{ABI_MINOR})"
+            ),
+            &format!(
+                "rebuild the plugin against the beamproof-api crate of this release (ABI {ABI_MAJOR}.{ABI_MINOR})"
+            ),
         ));
     }
     // SAFETY: major version matches, so the version-1 prefix layout applies.
     let size = unsafe { *(ptr as *const u32).add(2) } as usize;
     if size < std::mem::size_of::<PluginDescriptor>() {
-        return Err(fail(format!("plugin descriptor is {size} bytes, smaller than ABI {ABI_MAJOR} requires"), "rebuild the plugin"));
+        return Err(fail(
+            format!("plugin descriptor is {size} bytes, smaller than ABI {ABI_MAJOR} requires"),
+            "rebuild the plugin",
+        ));
     }
     // Leak the library: the descriptor and its functions must stay valid for the whole process.
     let lib: &'static libloading::Library = Box::leak(Box::new(lib));
@@ -173,14 +216,25 @@ pub fn load(path: &Path) -> Result<Plugin, Diagnostic> {
     // SAFETY: validated above; the library is never unloaded.
     let desc: &'static PluginDescriptor = unsafe { &*ptr };
     // SAFETY: the descriptor is valid and loaded.
-    let manifest = unsafe { abi::call_manifest(desc) }.map_err(|e| fail(format!("plugin manifest: {e}"), "fix the plugin's manifest"))?;
-    if manifest.name.is_empty() || !manifest.name.chars().all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '-') {
-        return Err(fail(format!("plugin name `{}` is not kebab-case", manifest.name), "plugin names use lower-case letters, digits and `-`"));
+    let manifest = unsafe { abi::call_manifest(desc) }
+        .map_err(|e| fail(format!("plugin manifest: {e}"), "fix the plugin's manifest"))?;
+    if manifest.name.is_empty()
+        || !manifest
+            .name
+            .chars()
+            .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '-')
+    {
+        return Err(fail(
+            format!("plugin name `{}` is not kebab-case", manifest.name),
+            "plugin names use lower-case letters, digits and `-`",
+        ));
     }
     Ok(Plugin {
         manifest,
-        origin: Origin::Dynamic { path: path.to_path_buf(), sha256 },
+        origin: Origin::Dynamic {
+            path: path.to_path_buf(),
+            sha256,
+        },
         imp: Imp::Dynamic(desc),
     })
 }
-

@@ -154,7 +154,8 @@ impl RunRecord {
     /// Pretty JSON with a final newline; field order is fixed by the structs and maps are
     /// sorted, so the same run gives the same bytes.
     pub fn to_json(&self) -> Vec<u8> {
-        let mut v = serde_json::to_vec_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}").into_bytes());
+        let mut v = serde_json::to_vec_pretty(self)
+            .unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}").into_bytes());
         v.push(b'\n');
         v
     }
@@ -182,11 +183,19 @@ pub fn run(
         let record = run_test(t, &prepared.machine.id, registry);
         match sites.last_mut() {
             Some(s) if s.id == t.site_id => s.tests.push(record),
-            _ => sites.push(SiteRecord { id: t.site_id.clone(), name: t.site_name.clone(), tests: vec![record] }),
+            _ => sites.push(SiteRecord {
+                id: t.site_id.clone(),
+                name: t.site_name.clone(),
+                tests: vec![record],
+            }),
         }
         progress(i + 1, total, &t.spec.id);
     }
-    let campaign_name = campaign.path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "campaign.yaml".into());
+    let campaign_name = campaign
+        .path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "campaign.yaml".into());
     let summary = summarise(&sites);
     let mut references: Vec<Reference> = sites
         .iter()
@@ -197,26 +206,50 @@ pub fn run(
         .collect();
     references.sort();
     references.dedup();
-    let Tps { name, version, beam_model } = campaign.tps.clone();
+    let Tps {
+        name,
+        version,
+        beam_model,
+    } = campaign.tps.clone();
     RunRecord {
         format: RESULTS_FORMAT,
-        software: Software { name: "beamproof", version: env!("CARGO_PKG_VERSION") },
+        software: Software {
+            name: "beamproof",
+            version: env!("CARGO_PKG_VERSION"),
+        },
         campaign: CampaignRecord {
             id: campaign.id.clone(),
             title: campaign.title.clone(),
             institution: campaign.institution.clone(),
             file: format!("{INPUTS_DIR}/{campaign_name}"),
             sha256: crate::checksum::sha256_hex(&campaign.bytes),
-            tps: TpsRecord { name, version, beam_model },
+            tps: TpsRecord {
+                name,
+                version,
+                beam_model,
+            },
         },
         machine: MachineRecord {
             id: prepared.machine.id.clone(),
             description: prepared.machine.description.clone(),
-            beams: prepared.machine.beams.iter().map(|b| BeamRecord { id: b.id.clone(), modality: b.modality.clone(), energy: b.energy, fff: b.fff }).collect(),
+            beams: prepared
+                .machine
+                .beams
+                .iter()
+                .map(|b| BeamRecord {
+                    id: b.id.clone(),
+                    modality: b.modality.clone(),
+                    energy: b.energy,
+                    fff: b.fff,
+                })
+                .collect(),
         },
         run: RunInfo {
             date: date.to_string(),
-            reproduce: format!("beamproof run {INPUTS_DIR}/{campaign_name} --machine {} --date {date}", prepared.machine.id),
+            reproduce: format!(
+                "beamproof run {INPUTS_DIR}/{campaign_name} --machine {} --date {date}",
+                prepared.machine.id
+            ),
         },
         plugins: registry
             .plugins()
@@ -229,7 +262,9 @@ pub fn run(
                     Origin::Dynamic { .. } => "dynamic",
                 },
                 file: match &p.origin {
-                    Origin::Dynamic { path, .. } => path.file_name().map(|n| n.to_string_lossy().into_owned()),
+                    Origin::Dynamic { path, .. } => {
+                        path.file_name().map(|n| n.to_string_lossy().into_owned())
+                    }
                     Origin::BuiltIn => None,
                 },
                 sha256: match &p.origin {
@@ -266,14 +301,33 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         .iter()
         .map(|a| {
             let plugin = registry.get(&a.plugin);
-            let version = plugin.map(|p| p.manifest.version.clone()).unwrap_or_default();
+            let version = plugin
+                .map(|p| p.manifest.version.clone())
+                .unwrap_or_default();
             let result = match plugin {
-                Some(p) => p.analyse(&AnalysisInput { params: a.params.clone(), ..input.clone() }),
+                Some(p) => p.analyse(&AnalysisInput {
+                    params: a.params.clone(),
+                    ..input.clone()
+                }),
                 None => Err(format!("plugin `{}` is not loaded", a.plugin)),
             };
             match result {
-                Ok(output) => AnalysisRecord { plugin: a.plugin.clone(), version, params: a.params.clone(), status: output.overall_status(), error: None, output: Some(output) },
-                Err(e) => AnalysisRecord { plugin: a.plugin.clone(), version, params: a.params.clone(), status: Status::Error, error: Some(e), output: None },
+                Ok(output) => AnalysisRecord {
+                    plugin: a.plugin.clone(),
+                    version,
+                    params: a.params.clone(),
+                    status: output.overall_status(),
+                    error: None,
+                    output: Some(output),
+                },
+                Err(e) => AnalysisRecord {
+                    plugin: a.plugin.clone(),
+                    version,
+                    params: a.params.clone(),
+                    status: Status::Error,
+                    error: Some(e),
+                    output: None,
+                },
             }
         })
         .collect();
@@ -303,11 +357,22 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
 }
 
 fn summarise(sites: &[SiteRecord]) -> Summary {
-    let all: Vec<(&SiteRecord, &TestRecord)> = sites.iter().flat_map(|s| s.tests.iter().map(move |t| (s, t))).collect();
+    let all: Vec<(&SiteRecord, &TestRecord)> = sites
+        .iter()
+        .flat_map(|s| s.tests.iter().map(move |t| (s, t)))
+        .collect();
     let count = |st: Status| all.iter().filter(|(_, t)| t.status == st).count();
     let label = |s: &SiteRecord, t: &TestRecord| format!("{}/{}: {}", s.id, t.id, t.status.word());
-    let reasons: Vec<String> = all.iter().filter(|(_, t)| t.status >= Status::Fail).map(|(s, t)| label(s, t)).collect();
-    let warnings: Vec<String> = all.iter().filter(|(_, t)| t.status == Status::Warn).map(|(s, t)| label(s, t)).collect();
+    let reasons: Vec<String> = all
+        .iter()
+        .filter(|(_, t)| t.status >= Status::Fail)
+        .map(|(s, t)| label(s, t))
+        .collect();
+    let warnings: Vec<String> = all
+        .iter()
+        .filter(|(_, t)| t.status == Status::Warn)
+        .map(|(s, t)| label(s, t))
+        .collect();
     Summary {
         tests: all.len(),
         pass: count(Status::Pass),

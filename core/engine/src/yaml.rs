@@ -23,7 +23,10 @@ pub struct Node {
 #[derive(Debug, Clone, PartialEq)]
 pub enum Value {
     /// A scalar; `plain` is false when it was quoted or a block scalar (always a string then).
-    Scalar { text: String, plain: bool },
+    Scalar {
+        text: String,
+        plain: bool,
+    },
     Seq(Vec<Node>),
     /// Entries in file order.
     Map(Vec<(Node, Node)>),
@@ -158,7 +161,12 @@ pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
             Event::Alias(id) => match anchors.get(&id) {
                 Some(n) => Some((n.clone(), 0)),
                 None => {
-                    diags.push(Diagnostic::at(file, line, column, "alias to an unknown anchor"));
+                    diags.push(Diagnostic::at(
+                        file,
+                        line,
+                        column,
+                        "alias to an unknown anchor",
+                    ));
                     None
                 }
             },
@@ -250,7 +258,8 @@ pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
     match (root, diags.is_empty()) {
         (Some(root), true) => Ok(root),
         (None, true) => Err(vec![
-            Diagnostic::file(file, "the file is empty").help("start from demo-campaign/campaign.yaml"),
+            Diagnostic::file(file, "the file is empty")
+                .help("start from demo-campaign/campaign.yaml"),
         ]),
         _ => Err(diags),
     }

@@ -23,9 +23,21 @@ pub enum ReportError {
     #[error("cannot read template {path}: {message}")]
     TemplateRead { path: PathBuf, message: String },
     #[error("template {path}:{line}:{column}: {message}")]
-    Template { path: String, line: usize, column: usize, message: String },
-    #[error("typeset error in the source generated from template {template}, line {line}: {message} (in `{source_line}`)")]
-    Typeset { template: String, line: usize, message: String, source_line: String },
+    Template {
+        path: String,
+        line: usize,
+        column: usize,
+        message: String,
+    },
+    #[error(
+        "typeset error in the source generated from template {template}, line {line}: {message} (in `{source_line}`)"
+    )]
+    Typeset {
+        template: String,
+        line: usize,
+        message: String,
+        source_line: String,
+    },
     #[error("invalid run date `{0}`: expected YYYY-MM-DD")]
     Date(String),
 }
@@ -50,11 +62,16 @@ pub fn escape_markup(s: &str) -> String {
 /// The template text and the name errors refer to.
 fn template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
     match dir {
-        None => Ok((BUILT_IN_TEMPLATE.to_string(), format!("templates/{TEMPLATE_FILE} (built in)"))),
+        None => Ok((
+            BUILT_IN_TEMPLATE.to_string(),
+            format!("templates/{TEMPLATE_FILE} (built in)"),
+        )),
         Some(d) => {
             let path = d.join(TEMPLATE_FILE);
-            let text = std::fs::read_to_string(&path)
-                .map_err(|e| ReportError::TemplateRead { path: path.clone(), message: e.to_string() })?;
+            let text = std::fs::read_to_string(&path).map_err(|e| ReportError::TemplateRead {
+                path: path.clone(),
+                message: e.to_string(),
+            })?;
             Ok((text, path.display().to_string()))
         }
     }
@@ -62,7 +79,8 @@ fn template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
 
 /// Render the typst source for a run (exposed for tests and for template authors).
 pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
-    let results: view::Results = serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
+    let results: view::Results =
+        serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
     let data = view::View::from_results(results);
     let (text, name) = template(templates)?;
     let mut hb = handlebars::Handlebars::new();
@@ -70,21 +88,31 @@ pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<St
     hb.register_escape_fn(escape_markup);
     hb.register_template_string("report", &text).map_err(|e| {
         let (line, column) = e.pos().unwrap_or((0, 0));
-        ReportError::Template { path: name.clone(), line, column, message: e.reason().to_string() }
+        ReportError::Template {
+            path: name.clone(),
+            line,
+            column,
+            message: e.reason().to_string(),
+        }
     })?;
-    hb.render("report", &data).map_err(|e| ReportError::Template {
-        path: name.clone(),
-        line: e.line_no.unwrap_or(0),
-        column: e.column_no.unwrap_or(0),
-        message: e.reason().to_string(),
-    })
+    hb.render("report", &data)
+        .map_err(|e| ReportError::Template {
+            path: name.clone(),
+            line: e.line_no.unwrap_or(0),
+            column: e.column_no.unwrap_or(0),
+            message: e.reason().to_string(),
+        })
 }
 
 /// Render the report PDF for a run.
 pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u8>, ReportError> {
     let source = render_source(results_json, templates)?;
-    let results: serde_json::Value = serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
-    let date = results["run"]["date"].as_str().unwrap_or_default().to_string();
+    let results: serde_json::Value =
+        serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
+    let date = results["run"]["date"]
+        .as_str()
+        .unwrap_or_default()
+        .to_string();
     let ymd = parse_date(&date).ok_or(ReportError::Date(date))?;
     let ident = format!(
         "beamproof:{}:{}",
@@ -93,8 +121,20 @@ pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u
     );
     let template_name = template(templates)?.1;
     typeset::compile_pdf(source, ymd, &ident).map_err(|problems| {
-        let p = problems.into_iter().next().unwrap_or(typeset::TypstProblem { line: 0, message: "unknown error".into(), source_line: String::new() });
-        ReportError::Typeset { template: template_name, line: p.line, message: p.message, source_line: p.source_line.trim().to_string() }
+        let p = problems
+            .into_iter()
+            .next()
+            .unwrap_or(typeset::TypstProblem {
+                line: 0,
+                message: "unknown error".into(),
+                source_line: String::new(),
+            });
+        ReportError::Typeset {
+            template: template_name,
+            line: p.line,
+            message: p.message,
+            source_line: p.source_line.trim().to_string(),
+        }
     })
 }
 
@@ -113,7 +153,10 @@ mod tests {
     #[test]
     fn markup_escape_neutralises_typst_syntax() {
         // Every ASCII punctuation mark is escaped (typst markup reference: `\` escapes).
-        assert_eq!(escape_markup("#panic(\"x\") *b* $m$"), "\\#panic\\(\\\"x\\\"\\) \\*b\\* \\$m\\$");
+        assert_eq!(
+            escape_markup("#panic(\"x\") *b* $m$"),
+            "\\#panic\\(\\\"x\\\"\\) \\*b\\* \\$m\\$"
+        );
         assert_eq!(escape_markup("a\nb"), "a b");
     }
 }

@@ -15,7 +15,9 @@ use typst::{Library, LibraryExt, World, WorldExt};
 fn fonts() -> &'static (Vec<Font>, LazyHash<FontBook>) {
     static FONTS: OnceLock<(Vec<Font>, LazyHash<FontBook>)> = OnceLock::new();
     FONTS.get_or_init(|| {
-        let fonts: Vec<Font> = typst_assets::fonts().flat_map(|d| Font::iter(Bytes::new(d))).collect();
+        let fonts: Vec<Font> = typst_assets::fonts()
+            .flat_map(|d| Font::iter(Bytes::new(d)))
+            .collect();
         let book = LazyHash::new(FontBook::from_fonts(&fonts));
         (fonts, book)
     })
@@ -68,29 +70,56 @@ fn problems(world: &ReportWorld, diags: &[SourceDiagnostic]) -> Vec<TypstProblem
         .iter()
         .map(|d| {
             let range = world.range(d.span);
-            let line = range.and_then(|r| world.main.lines().byte_to_line(r.start)).map_or(0, |l| l + 1);
+            let line = range
+                .and_then(|r| world.main.lines().byte_to_line(r.start))
+                .map_or(0, |l| l + 1);
             TypstProblem {
                 line,
                 message: d.message.to_string(),
-                source_line: world.main.text().lines().nth(line.saturating_sub(1)).unwrap_or_default().to_string(),
+                source_line: world
+                    .main
+                    .text()
+                    .lines()
+                    .nth(line.saturating_sub(1))
+                    .unwrap_or_default()
+                    .to_string(),
             }
         })
         .collect()
 }
 
 /// Compile typst source to PDF. `date` is (year, month, day); `ident` seeds the PDF's document id.
-pub fn compile_pdf(source: String, date: (i32, u8, u8), ident: &str) -> Result<Vec<u8>, Vec<TypstProblem>> {
+pub fn compile_pdf(
+    source: String,
+    date: (i32, u8, u8),
+    ident: &str,
+) -> Result<Vec<u8>, Vec<TypstProblem>> {
     let id = FileId::new(RootedPath::new(
         VirtualRoot::Project,
-        VirtualPath::new("/report.typ").map_err(|e| vec![TypstProblem { line: 0, message: format!("{e:?}"), source_line: String::new() }])?,
+        VirtualPath::new("/report.typ").map_err(|e| {
+            vec![TypstProblem {
+                line: 0,
+                message: format!("{e:?}"),
+                source_line: String::new(),
+            }]
+        })?,
     ));
     let today = Datetime::from_ymd(date.0, date.1, date.2).ok_or_else(|| {
-        vec![TypstProblem { line: 0, message: format!("invalid run date {date:?}"), source_line: String::new() }]
+        vec![TypstProblem {
+            line: 0,
+            message: format!("invalid run date {date:?}"),
+            source_line: String::new(),
+        }]
     })?;
-    let world = ReportWorld { library: LazyHash::new(Library::builder().build()), main: Source::new(id, source), today };
+    let world = ReportWorld {
+        library: LazyHash::new(Library::builder().build()),
+        main: Source::new(id, source),
+        today,
+    };
     let warned = typst::compile(&world);
     let doc = warned.output.map_err(|e| problems(&world, &e))?;
-    let timestamp = Datetime::from_ymd_hms(date.0, date.1, date.2, 0, 0, 0).map(typst_pdf::Timestamp::new_utc);
+    let timestamp =
+        Datetime::from_ymd_hms(date.0, date.1, date.2, 0, 0, 0).map(typst_pdf::Timestamp::new_utc);
     let options = typst_pdf::PdfOptions {
         ident: Smart::Custom(ident.to_string()),
         creator: Smart::Custom(Some(format!("beamproof {}", env!("CARGO_PKG_VERSION")))),

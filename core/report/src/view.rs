@@ -236,7 +236,10 @@ fn word(status: &str) -> String {
 /// Fixed-decimal text of a number, never `-0.00` (a negative zero reads as a sign error).
 pub fn fixed(v: f64, digits: usize) -> String {
     let s = format!("{v:.digits$}");
-    if s.trim_start_matches('-').chars().all(|c| c == '0' || c == '.') {
+    if s.trim_start_matches('-')
+        .chars()
+        .all(|c| c == '0' || c == '.')
+    {
         s.trim_start_matches('-').to_string()
     } else {
         s
@@ -244,7 +247,11 @@ pub fn fixed(v: f64, digits: usize) -> String {
 }
 
 fn with_unit(v: String, unit: &str) -> String {
-    if unit.is_empty() { v } else { format!("{v} {unit}") }
+    if unit.is_empty() {
+        v
+    } else {
+        format!("{v} {unit}")
+    }
 }
 
 impl View {
@@ -262,22 +269,52 @@ impl View {
                 .beams
                 .iter()
                 .map(|b| {
-                    let unit = if b.modality == "electron" { "MeV" } else { "MV" };
-                    let fff = if b.fff { ", flattening-filter-free" } else { "" };
-                    format!("{} ({} {} {}{fff})", b.id, fixed(b.energy, 0), unit, b.modality)
+                    let unit = if b.modality == "electron" {
+                        "MeV"
+                    } else {
+                        "MV"
+                    };
+                    let fff = if b.fff {
+                        ", flattening-filter-free"
+                    } else {
+                        ""
+                    };
+                    format!(
+                        "{} ({} {} {}{fff})",
+                        b.id,
+                        fixed(b.energy, 0),
+                        unit,
+                        b.modality
+                    )
                 })
                 .collect(),
             tps: format!("{} {}", r.campaign.tps.name, r.campaign.tps.version),
             beam_model: r.campaign.tps.beam_model,
             run_date: r.run.date,
             software_version: r.software.version,
-            plugins: r.plugins.into_iter().map(|p| PluginView { name: p.name, version: p.version, origin: p.origin }).collect(),
+            plugins: r
+                .plugins
+                .into_iter()
+                .map(|p| PluginView {
+                    name: p.name,
+                    version: p.version,
+                    origin: p.origin,
+                })
+                .collect(),
             go: s.verdict == "GO",
             verdict: s.verdict.clone(),
-            counts: [("PASS", s.pass), ("WARN", s.warn), ("FAIL", s.fail), ("ERROR", s.error)]
-                .into_iter()
-                .map(|(label, n)| Count { label: label.into(), n })
-                .collect(),
+            counts: [
+                ("PASS", s.pass),
+                ("WARN", s.warn),
+                ("FAIL", s.fail),
+                ("ERROR", s.error),
+            ]
+            .into_iter()
+            .map(|(label, n)| Count {
+                label: label.into(),
+                n,
+            })
+            .collect(),
             n_tests: s.tests,
             reasons: s.reasons.clone(),
             warnings: s.warnings.clone(),
@@ -328,9 +365,21 @@ fn test_view(t: TestIn) -> TestView {
                             .into_iter()
                             .map(|m| MetricView {
                                 value: with_unit(fixed(m.value, 2), &m.unit),
-                                tolerance: m.limits.as_ref().map(|l| with_unit(fixed(l.tolerance, 2), &m.unit)).unwrap_or_default(),
-                                action: m.limits.as_ref().map(|l| with_unit(fixed(l.action, 2), &m.unit)).unwrap_or_default(),
-                                status: m.status.as_deref().map(word).unwrap_or_else(|| "info".into()),
+                                tolerance: m
+                                    .limits
+                                    .as_ref()
+                                    .map(|l| with_unit(fixed(l.tolerance, 2), &m.unit))
+                                    .unwrap_or_default(),
+                                action: m
+                                    .limits
+                                    .as_ref()
+                                    .map(|l| with_unit(fixed(l.action, 2), &m.unit))
+                                    .unwrap_or_default(),
+                                status: m
+                                    .status
+                                    .as_deref()
+                                    .map(word)
+                                    .unwrap_or_else(|| "info".into()),
                                 label: m.label,
                             })
                             .collect(),
@@ -339,7 +388,15 @@ fn test_view(t: TestIn) -> TestView {
                     ),
                     None => (Vec::new(), Vec::new(), Vec::new()),
                 };
-                AnalysisView { plugin: a.plugin, version: a.version, status: word(&a.status), error: a.error, metrics, tables, notes }
+                AnalysisView {
+                    plugin: a.plugin,
+                    version: a.version,
+                    status: word(&a.status),
+                    error: a.error,
+                    metrics,
+                    tables,
+                    notes,
+                }
             })
             .collect(),
     }

@@ -21,39 +21,68 @@ impl Analysis for MeanDoseRatio {
         PluginManifest {
             name: "mean-dose-ratio".into(),
             version: env!("CARGO_PKG_VERSION").into(),
-            description: "Example dynamic plugin: mean calculated over mean measured dose of a point set".into(),
+            description:
+                "Example dynamic plugin: mean calculated over mean measured dose of a point set"
+                    .into(),
             kinds: vec![TestKind::PointDose, TestKind::PointSet],
             params: vec![ParamSpec {
                 name: "fail-on-purpose".into(),
                 kind: ParamType::Bool,
                 default: Some(false.into()),
                 unit: String::new(),
-                description: "Panic inside the plugin, to show that the host survives and records an error".into(),
+                description:
+                    "Panic inside the plugin, to show that the host survives and records an error"
+                        .into(),
             }],
         }
     }
 
     fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
-        if input.params.get("fail-on-purpose").and_then(|v| v.as_bool()) == Some(true) {
+        if input
+            .params
+            .get("fail-on-purpose")
+            .and_then(|v| v.as_bool())
+            == Some(true)
+        {
             panic!("failing on purpose, as the test asked");
         }
         let mean = |d: Option<&beamproof_api::Dataset>| -> Result<f64, AnalysisError> {
             match d.map(|d| &d.data) {
-                Some(DatasetData::Points(p)) if !p.is_empty() => Ok(p.dose.iter().sum::<f64>() / p.len() as f64),
-                _ => Err(AnalysisError::new("mean-dose-ratio needs measured and calculated point sets")),
+                Some(DatasetData::Points(p)) if !p.is_empty() => {
+                    Ok(p.dose.iter().sum::<f64>() / p.len() as f64)
+                }
+                _ => Err(AnalysisError::new(
+                    "mean-dose-ratio needs measured and calculated point sets",
+                )),
             }
         };
         let ratio = mean(input.calculated.as_ref())? / mean(input.measured.as_ref())?;
         let deviation_percent = 100.0 * (ratio - 1.0);
-        let levels = input.criteria.metrics.get("mean-dose-ratio").copied().unwrap_or(Levels { tolerance: 2.0, action: 3.0 });
+        let levels = input
+            .criteria
+            .metrics
+            .get("mean-dose-ratio")
+            .copied()
+            .unwrap_or(Levels {
+                tolerance: 2.0,
+                action: 3.0,
+            });
         Ok(AnalysisOutput {
             metrics: vec![Metric {
                 id: "mean-dose-ratio".into(),
                 label: "Mean calculated / mean measured, deviation from 1".into(),
                 value: deviation_percent,
                 unit: "%".into(),
-                limits: Some(Limits { rule: "|value| <= limit".into(), tolerance: levels.tolerance, action: levels.action }),
-                status: Some(Status::from_deviation(deviation_percent, levels.tolerance, levels.action)),
+                limits: Some(Limits {
+                    rule: "|value| <= limit".into(),
+                    tolerance: levels.tolerance,
+                    action: levels.action,
+                }),
+                status: Some(Status::from_deviation(
+                    deviation_percent,
+                    levels.tolerance,
+                    levels.action,
+                )),
             }],
             notes: vec![format!("Ratio of means: {ratio:.5}.")],
             ..Default::default()

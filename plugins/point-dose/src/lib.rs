@@ -83,8 +83,14 @@ impl Analysis for PointDose {
                 input.criteria.name
             ))
         })?;
-        let measured = input.measured.as_ref().ok_or_else(|| AnalysisError::new("point-dose needs a `measured` point set"))?;
-        let calculated = input.calculated.as_ref().ok_or_else(|| AnalysisError::new("point-dose needs a `calculated` dose"))?;
+        let measured = input
+            .measured
+            .as_ref()
+            .ok_or_else(|| AnalysisError::new("point-dose needs a `measured` point set"))?;
+        let calculated = input
+            .calculated
+            .as_ref()
+            .ok_or_else(|| AnalysisError::new("point-dose needs a `calculated` dose"))?;
         for ds in [measured, calculated] {
             if ds.unit != DoseUnit::Gy {
                 return Err(AnalysisError::new(format!(
@@ -94,12 +100,18 @@ impl Analysis for PointDose {
             }
         }
         let DatasetData::Points(points) = &measured.data else {
-            return Err(AnalysisError::new(format!("measured data must be a point set, `{}` is a {}", measured.source, measured.shape_name())));
+            return Err(AnalysisError::new(format!(
+                "measured data must be a point set, `{}` is a {}",
+                measured.source,
+                measured.shape_name()
+            )));
         };
         let reference_dose = match input.text("difference-relative-to")? {
             "measured" => None,
             _ => Some(input.number_opt("reference-dose-gy").ok_or_else(|| {
-                AnalysisError::new("`difference-relative-to: reference-dose` needs `reference-dose-gy`")
+                AnalysisError::new(
+                    "`difference-relative-to: reference-dose` needs `reference-dose-gy`",
+                )
             })?),
         };
         let calc = calculated_doses(points, &calculated.data, input.number("match-distance-mm")?)?;
@@ -109,19 +121,31 @@ impl Analysis for PointDose {
 }
 
 /// Calculated dose at each measured point (None where it cannot be determined).
-fn calculated_doses(points: &PointSet, calculated: &DatasetData, match_mm: f64) -> Result<Vec<Option<f64>>, AnalysisError> {
+fn calculated_doses(
+    points: &PointSet,
+    calculated: &DatasetData,
+    match_mm: f64,
+) -> Result<Vec<Option<f64>>, AnalysisError> {
     let n = points.len();
     match calculated {
-        DatasetData::Grid(g) => Ok((0..n).map(|i| g.sample(points.x_mm[i], points.y_mm[i], points.z_mm[i])).collect()),
+        DatasetData::Grid(g) => Ok((0..n)
+            .map(|i| g.sample(points.x_mm[i], points.y_mm[i], points.z_mm[i]))
+            .collect()),
         DatasetData::Points(c) => {
-            let labelled = points.labels.iter().all(|l| !l.is_empty()) && c.labels.iter().all(|l| !l.is_empty());
+            let labelled = points.labels.iter().all(|l| !l.is_empty())
+                && c.labels.iter().all(|l| !l.is_empty());
             Ok((0..n)
                 .map(|i| {
                     if labelled {
-                        c.labels.iter().position(|l| *l == points.labels[i]).map(|j| c.dose[j])
+                        c.labels
+                            .iter()
+                            .position(|l| *l == points.labels[i])
+                            .map(|j| c.dose[j])
                     } else {
                         let d2 = |j: usize| {
-                            (c.x_mm[j] - points.x_mm[i]).powi(2) + (c.y_mm[j] - points.y_mm[i]).powi(2) + (c.z_mm[j] - points.z_mm[i]).powi(2)
+                            (c.x_mm[j] - points.x_mm[i]).powi(2)
+                                + (c.y_mm[j] - points.y_mm[i]).powi(2)
+                                + (c.z_mm[j] - points.z_mm[i]).powi(2)
                         };
                         (0..c.len())
                             .min_by(|&a, &b| d2(a).total_cmp(&d2(b)))
@@ -131,31 +155,54 @@ fn calculated_doses(points: &PointSet, calculated: &DatasetData, match_mm: f64) 
                 })
                 .collect())
         }
-        DatasetData::Curve(_) => Err(AnalysisError::new("calculated data must be a dose grid or a point set, not a curve")),
+        DatasetData::Curve(_) => Err(AnalysisError::new(
+            "calculated data must be a dose grid or a point set, not a curve",
+        )),
     }
 }
 
 /// Compare each point; a point without calculated dose, or with zero reference dose, is an error.
-pub fn compare(points: &PointSet, calculated: &[Option<f64>], reference_dose: Option<f64>, levels: Levels) -> Vec<PointComparison> {
+pub fn compare(
+    points: &PointSet,
+    calculated: &[Option<f64>],
+    reference_dose: Option<f64>,
+    levels: Levels,
+) -> Vec<PointComparison> {
     (0..points.len())
         .map(|i| {
             let measured = points.dose[i];
             let denominator = reference_dose.unwrap_or(measured);
-            let difference = calculated[i].filter(|_| denominator > 0.0).map(|c| 100.0 * (c - measured) / denominator);
+            let difference = calculated[i]
+                .filter(|_| denominator > 0.0)
+                .map(|c| 100.0 * (c - measured) / denominator);
             PointComparison {
-                label: if points.labels[i].is_empty() { format!("#{}", i + 1) } else { points.labels[i].clone() },
+                label: if points.labels[i].is_empty() {
+                    format!("#{}", i + 1)
+                } else {
+                    points.labels[i].clone()
+                },
                 position_mm: [points.x_mm[i], points.y_mm[i], points.z_mm[i]],
                 measured_gy: measured,
                 calculated_gy: calculated[i],
                 difference_percent: difference,
-                status: difference.map_or(Status::Error, |d| Status::from_deviation(d, levels.tolerance, levels.action)),
+                status: difference.map_or(Status::Error, |d| {
+                    Status::from_deviation(d, levels.tolerance, levels.action)
+                }),
             }
         })
         .collect()
 }
 
-fn build_output(rows: &[PointComparison], reference_dose: Option<f64>, levels: Levels) -> AnalysisOutput {
-    let limits = Limits { rule: "|difference| <= limit".into(), tolerance: levels.tolerance, action: levels.action };
+fn build_output(
+    rows: &[PointComparison],
+    reference_dose: Option<f64>,
+    levels: Levels,
+) -> AnalysisOutput {
+    let limits = Limits {
+        rule: "|difference| <= limit".into(),
+        tolerance: levels.tolerance,
+        action: levels.action,
+    };
     let mut metrics: Vec<Metric> = rows
         .iter()
         .filter_map(|r| {
@@ -173,24 +220,58 @@ fn build_output(rows: &[PointComparison], reference_dose: Option<f64>, levels: L
     if !diffs.is_empty() {
         let max_abs = diffs.iter().fold(0.0_f64, |m, d| m.max(d.abs()));
         let mean = diffs.iter().sum::<f64>() / diffs.len() as f64;
-        metrics.push(Metric { id: "max-abs-difference".into(), label: "Largest |difference|".into(), value: max_abs, unit: "%".into(), limits: None, status: None });
-        metrics.push(Metric { id: "mean-difference".into(), label: "Mean difference".into(), value: mean, unit: "%".into(), limits: None, status: None });
+        metrics.push(Metric {
+            id: "max-abs-difference".into(),
+            label: "Largest |difference|".into(),
+            value: max_abs,
+            unit: "%".into(),
+            limits: None,
+            status: None,
+        });
+        metrics.push(Metric {
+            id: "mean-difference".into(),
+            label: "Mean difference".into(),
+            value: mean,
+            unit: "%".into(),
+            limits: None,
+            status: None,
+        });
     }
     let mut notes = vec![match reference_dose {
-        None => "Difference = 100 x (calculated - measured) / measured at each point (local).".to_string(),
-        Some(r) => format!("Difference = 100 x (calculated - measured) / {r} Gy (global reference dose)."),
+        None => "Difference = 100 x (calculated - measured) / measured at each point (local)."
+            .to_string(),
+        Some(r) => {
+            format!("Difference = 100 x (calculated - measured) / {r} Gy (global reference dose).")
+        }
     }];
-    let missing: Vec<&str> = rows.iter().filter(|r| r.difference_percent.is_none()).map(|r| r.label.as_str()).collect();
+    let missing: Vec<&str> = rows
+        .iter()
+        .filter(|r| r.difference_percent.is_none())
+        .map(|r| r.label.as_str())
+        .collect();
     if !missing.is_empty() {
         notes.push(format!(
             "No difference could be formed at {} (outside the calculated grid, no matching calculated point, or zero reference dose): the analysis is marked as error.",
             missing.join(", ")
         ));
     }
-    let fmt = |v: Option<f64>, digits: usize| v.map_or_else(|| "n/a".to_string(), |v| format!("{v:.digits$}"));
+    let fmt = |v: Option<f64>, digits: usize| {
+        v.map_or_else(|| "n/a".to_string(), |v| format!("{v:.digits$}"))
+    };
     let table = Table {
         title: "Point doses".into(),
-        columns: ["Point", "X (mm)", "Y (mm)", "Z (mm)", "Measured (Gy)", "Calculated (Gy)", "Difference (%)", "Status"].map(String::from).to_vec(),
+        columns: [
+            "Point",
+            "X (mm)",
+            "Y (mm)",
+            "Z (mm)",
+            "Measured (Gy)",
+            "Calculated (Gy)",
+            "Difference (%)",
+            "Status",
+        ]
+        .map(String::from)
+        .to_vec(),
         rows: rows
             .iter()
             .map(|r| {
@@ -216,10 +297,23 @@ fn build_output(rows: &[PointComparison], reference_dose: Option<f64>, levels: L
         title: "Dose difference per point".into(),
         x_label: "Point number".into(),
         y_label: "Difference (%)".into(),
-        series: vec![Series { name: "calculated - measured".into(), style: SeriesStyle::Markers, x: xs, y: ys }],
+        series: vec![Series {
+            name: "calculated - measured".into(),
+            style: SeriesStyle::Markers,
+            x: xs,
+            y: ys,
+        }],
         bands: vec![
-            Band { label: "action".into(), low: -levels.action, high: levels.action },
-            Band { label: "tolerance".into(), low: -levels.tolerance, high: levels.tolerance },
+            Band {
+                label: "action".into(),
+                low: -levels.action,
+                high: levels.action,
+            },
+            Band {
+                label: "tolerance".into(),
+                low: -levels.tolerance,
+                high: levels.tolerance,
+            },
         ],
     };
     AnalysisOutput {
@@ -238,7 +332,11 @@ mod tests {
     use beamproof_api::{CriteriaSet, Dataset, Grid, TestInfo};
     use std::collections::BTreeMap;
 
-    fn input(measured: PointSet, calculated: DatasetData, params: &[(&str, serde_json::Value)]) -> AnalysisInput {
+    fn input(
+        measured: PointSet,
+        calculated: DatasetData,
+        params: &[(&str, serde_json::Value)],
+    ) -> AnalysisInput {
         let mut p: BTreeMap<String, serde_json::Value> = BTreeMap::from([
             ("difference-relative-to".to_string(), "measured".into()),
             ("match-distance-mm".to_string(), 1.0.into()),
@@ -247,11 +345,34 @@ mod tests {
             p.insert(k.to_string(), v.clone());
         }
         AnalysisInput {
-            test: TestInfo { site: "s".into(), id: "t".into(), name: "t".into(), kind: TestKind::PointDose, machine: "m".into(), beam: None },
+            test: TestInfo {
+                site: "s".into(),
+                id: "t".into(),
+                name: "t".into(),
+                kind: TestKind::PointDose,
+                machine: "m".into(),
+                beam: None,
+            },
             params: p,
-            criteria: CriteriaSet { name: "c".into(), dose_difference_percent: Some(Levels { tolerance: 2.0, action: 3.0 }), gamma: vec![], metrics: BTreeMap::new() },
-            measured: Some(Dataset { source: "m.csv".into(), unit: DoseUnit::Gy, data: DatasetData::Points(measured) }),
-            calculated: Some(Dataset { source: "c".into(), unit: DoseUnit::Gy, data: calculated }),
+            criteria: CriteriaSet {
+                name: "c".into(),
+                dose_difference_percent: Some(Levels {
+                    tolerance: 2.0,
+                    action: 3.0,
+                }),
+                gamma: vec![],
+                metrics: BTreeMap::new(),
+            },
+            measured: Some(Dataset {
+                source: "m.csv".into(),
+                unit: DoseUnit::Gy,
+                data: DatasetData::Points(measured),
+            }),
+            calculated: Some(Dataset {
+                source: "c".into(),
+                unit: DoseUnit::Gy,
+                data: calculated,
+            }),
         }
     }
 
@@ -271,8 +392,15 @@ mod tests {
         // at the 2 % boundary; 1.95 vs 2.00 -> -2.5 % warn; 2.08 vs 2.00 -> +4 % fail.
         let m = pts(&["a", "b", "c"], &[0.0, 1.0, 2.0], &[2.0, 2.0, 2.0]);
         let c = pts(&["c", "a", "b"], &[2.0, 0.0, 1.0], &[2.08, 2.04, 1.95]);
-        let out = PointDose.analyse(&input(m, DatasetData::Points(c), &[])).expect("runs");
-        let d: Vec<(String, f64, Option<Status>)> = out.metrics.iter().take(3).map(|m| (m.id.clone(), m.value, m.status)).collect();
+        let out = PointDose
+            .analyse(&input(m, DatasetData::Points(c), &[]))
+            .expect("runs");
+        let d: Vec<(String, f64, Option<Status>)> = out
+            .metrics
+            .iter()
+            .take(3)
+            .map(|m| (m.id.clone(), m.value, m.status))
+            .collect();
         assert_eq!(d[0].0, "difference:a");
         assert!((d[0].1 - 2.0).abs() < 1e-9 && d[0].2 == Some(Status::Pass));
         assert!((d[1].1 + 2.5).abs() < 1e-9 && d[1].2 == Some(Status::Warn));
@@ -286,7 +414,14 @@ mod tests {
         let m = pts(&["p"], &[0.0], &[1.0]);
         let c = pts(&["p"], &[0.0], &[1.03]);
         let out = PointDose
-            .analyse(&input(m, DatasetData::Points(c), &[("difference-relative-to", "reference-dose".into()), ("reference-dose-gy", 2.0.into())]))
+            .analyse(&input(
+                m,
+                DatasetData::Points(c),
+                &[
+                    ("difference-relative-to", "reference-dose".into()),
+                    ("reference-dose-gy", 2.0.into()),
+                ],
+            ))
             .expect("runs");
         assert!((out.metrics[0].value - 1.5).abs() < 1e-9);
         assert_eq!(out.status, Some(Status::Pass));
@@ -295,9 +430,16 @@ mod tests {
     #[test]
     fn grid_is_sampled_by_interpolation_and_outside_points_are_errors() {
         // Linear dose 1 + 0.01 x along x: at x = 5 mm the interpolated dose is exactly 1.05 Gy.
-        let grid = Grid { x_mm: vec![0.0, 10.0], y_mm: vec![0.0], z_mm: vec![0.0], dose: vec![1.0, 1.1] };
+        let grid = Grid {
+            x_mm: vec![0.0, 10.0],
+            y_mm: vec![0.0],
+            z_mm: vec![0.0],
+            dose: vec![1.0, 1.1],
+        };
         let m = pts(&["in", "out"], &[5.0, 20.0], &[1.05, 1.0]);
-        let out = PointDose.analyse(&input(m, DatasetData::Grid(grid), &[])).expect("runs");
+        let out = PointDose
+            .analyse(&input(m, DatasetData::Grid(grid), &[]))
+            .expect("runs");
         assert!(out.metrics[0].value.abs() < 1e-9);
         assert_eq!(out.status, Some(Status::Error));
         assert!(out.notes.iter().any(|n| n.contains("out")));
@@ -307,8 +449,14 @@ mod tests {
     fn unlabelled_points_match_by_position() {
         let m = pts(&["", ""], &[0.0, 10.0], &[1.0, 1.0]);
         let c = pts(&["", ""], &[10.4, 0.3], &[1.01, 0.99]);
-        let out = PointDose.analyse(&input(m, DatasetData::Points(c), &[])).expect("runs");
-        assert!((out.metrics[0].value + 1.0).abs() < 1e-9, "{:?}", out.metrics[0]);
+        let out = PointDose
+            .analyse(&input(m, DatasetData::Points(c), &[]))
+            .expect("runs");
+        assert!(
+            (out.metrics[0].value + 1.0).abs() < 1e-9,
+            "{:?}",
+            out.metrics[0]
+        );
         assert!((out.metrics[1].value - 1.0).abs() < 1e-9);
     }
 

@@ -12,7 +12,11 @@ use crate::campaign::DicomPlacement;
 use crate::diag::Diagnostic;
 
 /// Read one input file. `source` is the path as the campaign names it (kept in the dataset).
-pub fn read_dataset(path: &Path, source: &str, placement: Option<&DicomPlacement>) -> Result<Dataset, Diagnostic> {
+pub fn read_dataset(
+    path: &Path,
+    source: &str,
+    placement: Option<&DicomPlacement>,
+) -> Result<Dataset, Diagnostic> {
     let ext = path
         .extension()
         .and_then(|e| e.to_str())
@@ -21,19 +25,25 @@ pub fn read_dataset(path: &Path, source: &str, placement: Option<&DicomPlacement
     let (unit, data) = match ext.as_str() {
         "csv" => {
             let text = std::fs::read_to_string(path).map_err(|e| {
-                Diagnostic::file(path, format!("cannot read: {e}")).help("check that the file exists and is UTF-8 text")
+                Diagnostic::file(path, format!("cannot read: {e}"))
+                    .help("check that the file exists and is UTF-8 text")
             })?;
             csv_data::read(path, &text)?
         }
         "dcm" => rtdose::read(path, placement)?,
         _ => {
-            return Err(Diagnostic::file(path, format!("unknown data file type `.{ext}`"))
-                .help("give a beamproof data CSV (.csv) or a DICOM RT Dose file (.dcm)"));
+            return Err(
+                Diagnostic::file(path, format!("unknown data file type `.{ext}`"))
+                    .help("give a beamproof data CSV (.csv) or a DICOM RT Dose file (.dcm)"),
+            );
         }
     };
     if placement.is_some() && ext != "dcm" {
-        return Err(Diagnostic::file(path, "`patient-position` and `isocentre-mm` apply only to DICOM files")
-            .help("remove them: CSV data are already in IEC 61217 coordinates"));
+        return Err(Diagnostic::file(
+            path,
+            "`patient-position` and `isocentre-mm` apply only to DICOM files",
+        )
+        .help("remove them: CSV data are already in IEC 61217 coordinates"));
     }
     Ok(Dataset {
         source: source.to_string(),

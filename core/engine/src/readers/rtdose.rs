@@ -49,7 +49,11 @@ pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
             "the file must be a complete DICOM Part 10 file (with the DICM preamble); re-export it from the planning system",
         )
     })?;
-    let sop_class = obj.meta().media_storage_sop_class_uid.trim_end_matches('\0').to_string();
+    let sop_class = obj
+        .meta()
+        .media_storage_sop_class_uid
+        .trim_end_matches('\0')
+        .to_string();
     if sop_class != RT_DOSE_STORAGE {
         let modality = text(&obj, tags::MODALITY).unwrap_or_else(|| "unknown".into());
         return Err(fail(
@@ -65,26 +69,45 @@ pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
         ));
     }
     let need_f64s = |tag: Tag, name: &str, n: usize| -> Result<Vec<f64>, Diagnostic> {
-        let v = floats(&obj, tag).ok_or_else(|| fail(format!("missing or unreadable {name}"), "the RT Dose file is incomplete; re-export it"))?;
+        let v = floats(&obj, tag).ok_or_else(|| {
+            fail(
+                format!("missing or unreadable {name}"),
+                "the RT Dose file is incomplete; re-export it",
+            )
+        })?;
         if v.len() != n {
-            return Err(fail(format!("{name} has {} values, expected {n}", v.len()), "the RT Dose file is malformed; re-export it"));
+            return Err(fail(
+                format!("{name} has {} values, expected {n}", v.len()),
+                "the RT Dose file is malformed; re-export it",
+            ));
         }
         Ok(v)
     };
     let need_int = |tag: Tag, name: &str| -> Result<i64, Diagnostic> {
-        int(&obj, tag).ok_or_else(|| fail(format!("missing or unreadable {name}"), "the RT Dose file is incomplete; re-export it"))
+        int(&obj, tag).ok_or_else(|| {
+            fail(
+                format!("missing or unreadable {name}"),
+                "the RT Dose file is incomplete; re-export it",
+            )
+        })
     };
     let rows = need_int(tags::ROWS, "Rows")?;
     let cols = need_int(tags::COLUMNS, "Columns")?;
     let frames = int(&obj, tags::NUMBER_OF_FRAMES).unwrap_or(1);
     if rows < 1 || cols < 1 || frames < 1 {
-        return Err(fail(format!("empty grid: {rows} rows, {cols} columns, {frames} frames"), "re-export the dose grid"));
+        return Err(fail(
+            format!("empty grid: {rows} rows, {cols} columns, {frames} frames"),
+            "re-export the dose grid",
+        ));
     }
     let (rows, cols, frames) = (rows as usize, cols as usize, frames as usize);
     let bits = need_int(tags::BITS_ALLOCATED, "Bits Allocated")?;
     let signed = int(&obj, tags::PIXEL_REPRESENTATION).unwrap_or(0) == 1;
     if int(&obj, tags::SAMPLES_PER_PIXEL).unwrap_or(1) != 1 {
-        return Err(fail("dose must have one sample per pixel".into(), "re-export the dose grid"));
+        return Err(fail(
+            "dose must have one sample per pixel".into(),
+            "re-export the dose grid",
+        ));
     }
     let units = text(&obj, tags::DOSE_UNITS).unwrap_or_default();
     if units != "GY" {
@@ -94,7 +117,11 @@ pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
         ));
     }
     let ipp = need_f64s(tags::IMAGE_POSITION_PATIENT, "Image Position (Patient)", 3)?;
-    let iop = need_f64s(tags::IMAGE_ORIENTATION_PATIENT, "Image Orientation (Patient)", 6)?;
+    let iop = need_f64s(
+        tags::IMAGE_ORIENTATION_PATIENT,
+        "Image Orientation (Patient)",
+        6,
+    )?;
     let axial = [1.0, 0.0, 0.0, 0.0, 1.0, 0.0];
     if iop.iter().zip(axial).any(|(a, b)| (a - b).abs() > 1e-4) {
         return Err(fail(
@@ -104,31 +131,58 @@ pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
     }
     let spacing = need_f64s(tags::PIXEL_SPACING, "Pixel Spacing", 2)?;
     if spacing.iter().any(|s| *s <= 0.0) {
-        return Err(fail(format!("Pixel Spacing {spacing:?} is not positive"), "re-export the dose grid"));
+        return Err(fail(
+            format!("Pixel Spacing {spacing:?} is not positive"),
+            "re-export the dose grid",
+        ));
     }
     let gfov = if frames > 1 {
-        need_f64s(tags::GRID_FRAME_OFFSET_VECTOR, "Grid Frame Offset Vector", frames)?
+        need_f64s(
+            tags::GRID_FRAME_OFFSET_VECTOR,
+            "Grid Frame Offset Vector",
+            frames,
+        )?
     } else {
         vec![0.0]
     };
     let scaling = floats(&obj, tags::DOSE_GRID_SCALING)
         .and_then(|v| v.first().copied())
-        .ok_or_else(|| fail("missing Dose Grid Scaling".into(), "the RT Dose file is incomplete; re-export it"))?;
-    let pixel_el = obj
-        .element(tags::PIXEL_DATA)
-        .map_err(|_| fail("no Pixel Data".into(), "the RT Dose file holds no dose grid; re-export it"))?;
-    let bytes = pixel_el
-        .to_bytes()
-        .map_err(|_| fail("Pixel Data is encapsulated or unreadable".into(), "export uncompressed dose"))?;
+        .ok_or_else(|| {
+            fail(
+                "missing Dose Grid Scaling".into(),
+                "the RT Dose file is incomplete; re-export it",
+            )
+        })?;
+    let pixel_el = obj.element(tags::PIXEL_DATA).map_err(|_| {
+        fail(
+            "no Pixel Data".into(),
+            "the RT Dose file holds no dose grid; re-export it",
+        )
+    })?;
+    let bytes = pixel_el.to_bytes().map_err(|_| {
+        fail(
+            "Pixel Data is encapsulated or unreadable".into(),
+            "export uncompressed dose",
+        )
+    })?;
     let n = rows * cols * frames;
     let width = match bits {
         16 => 2,
         32 => 4,
-        other => return Err(fail(format!("Bits Allocated {other} is not supported"), "RT Dose uses 16 or 32 bits")),
+        other => {
+            return Err(fail(
+                format!("Bits Allocated {other} is not supported"),
+                "RT Dose uses 16 or 32 bits",
+            ));
+        }
     };
     if bytes.len() < n * width {
         return Err(fail(
-            format!("Pixel Data holds {} bytes, {} expected for {rows} x {cols} x {frames} values", bytes.len(), n * width),
+            format!(
+                "Pixel Data holds {} bytes, {} expected for {rows} x {cols} x {frames} values",
+                bytes.len(),
+                n * width
+            ),
             "the file is truncated; copy or export it again",
         ));
     }
@@ -168,7 +222,11 @@ pub fn iec_axes(position: PatientPosition) -> [(usize, f64); 3] {
 }
 
 /// Place a raw grid in IEC 61217 fixed coordinates relative to the isocentre.
-pub fn place(path: &Path, raw: &RawDoseGrid, placement: &DicomPlacement) -> Result<Grid, Diagnostic> {
+pub fn place(
+    path: &Path,
+    raw: &RawDoseGrid,
+    placement: &DicomPlacement,
+) -> Result<Grid, Diagnostic> {
     let dicom_axes = [&raw.x, &raw.y, &raw.z];
     // For each IEC axis: sorted (coordinate, source index) pairs.
     let mut iec: Vec<Vec<(f64, usize)>> = Vec::with_capacity(3);
@@ -182,8 +240,11 @@ pub fn place(path: &Path, raw: &RawDoseGrid, placement: &DicomPlacement) -> Resu
             .collect();
         v.sort_by(|p, q| p.0.total_cmp(&q.0));
         if v.windows(2).any(|w| w[1].0 - w[0].0 < 1e-6) {
-            return Err(Diagnostic::file(path, "two dose planes share one position (Grid Frame Offset Vector repeats a value)")
-                .help("re-export the dose grid"));
+            return Err(Diagnostic::file(
+                path,
+                "two dose planes share one position (Grid Frame Offset Vector repeats a value)",
+            )
+            .help("re-export the dose grid"));
         }
         iec.push(v);
     }
@@ -210,15 +271,20 @@ pub fn place(path: &Path, raw: &RawDoseGrid, placement: &DicomPlacement) -> Resu
 }
 
 /// Read an RT Dose file and place it in IEC 61217 coordinates.
-pub fn read(path: &Path, placement: Option<&DicomPlacement>) -> Result<(DoseUnit, DatasetData), Diagnostic> {
+pub fn read(
+    path: &Path,
+    placement: Option<&DicomPlacement>,
+) -> Result<(DoseUnit, DatasetData), Diagnostic> {
     let placement = placement.ok_or_else(|| {
         Diagnostic::file(path, "a DICOM dose grid needs its placement")
             .help("write the input as `{file: ..., patient-position: HFS, isocentre-mm: [x, y, z]}` with the isocentre in the dose file's DICOM coordinates")
     })?;
     let raw = read_raw(path)?;
-    Ok((DoseUnit::Gy, DatasetData::Grid(place(path, &raw, placement)?)))
+    Ok((
+        DoseUnit::Gy,
+        DatasetData::Grid(place(path, &raw, placement)?),
+    ))
 }
-
 
 /// Element value as text; elements with VR UN are decoded from their raw bytes (dicom-rs
 /// otherwise returns the bytes as numbers).
@@ -229,7 +295,10 @@ fn text(obj: &InMemDicomObject, tag: Tag) -> Option<String> {
     } else {
         el.to_str().ok()?
     };
-    Some(s.trim_matches(|c: char| c == '\0' || c.is_whitespace()).to_string())
+    Some(
+        s.trim_matches(|c: char| c == '\0' || c.is_whitespace())
+            .to_string(),
+    )
 }
 
 fn floats(obj: &InMemDicomObject, tag: Tag) -> Option<Vec<f64>> {
