@@ -83,3 +83,39 @@ fn a_ct_image_is_refused_by_name() {
         "not an RT Dose object: SOP Class UID 1.2.840.10008.5.1.4.1.1.2, modality CT"
     );
 }
+
+#[test]
+fn a_non_axial_grid_is_refused() {
+    let e = read_raw(&fixture("sagittal_refused.dcm")).expect_err("sagittal");
+    assert_eq!(
+        e.message,
+        "non-axial Image Orientation (Patient) [0.0, 1.0, 0.0, 0.0, 0.0, -1.0]"
+    );
+    assert_eq!(
+        e.help.as_deref(),
+        Some(
+            "only axial dose grids (1\\0\\0\\0\\1\\0) are supported; export the dose on an axial grid"
+        )
+    );
+}
+
+#[test]
+fn a_compressed_transfer_syntax_is_refused() {
+    // Deflated Explicit VR Little Endian, UID from DICOM PS3.6 Annex A.
+    let e = read_raw(&fixture("deflated_refused.dcm")).expect_err("deflated");
+    assert_eq!(
+        e.message,
+        "unsupported transfer syntax 1.2.840.10008.1.2.1.99"
+    );
+}
+
+#[test]
+fn a_text_file_named_dcm_is_not_dicom() {
+    let path = crate::support::scratch("not-dicom").join("dose.dcm");
+    std::fs::write(&path, "label,x,y,z,dose\n").expect("write");
+    let e = read_raw(&path).expect_err("text");
+    assert_eq!(
+        e.message,
+        "not a DICOM file (no `DICM` marker after the 128-byte preamble)"
+    );
+}

@@ -43,29 +43,49 @@ pub struct RawDoseGrid {
 /// Read an RT Dose file into its raw grid.
 pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    let obj: DefaultDicomObject = dicom_object::open_file(path).map_err(|e| {
+    // The transfer syntax is checked from the file meta group first, so an unsupported syntax
+    // gets a clear message instead of a decoder error.
+    let head = std::fs::read(path).map_err(|e| {
         fail(
-            format!("cannot read as DICOM: {}", error_chain(&e)),
-            "the file must be a complete DICOM Part 10 file (with the DICM preamble); re-export it from the planning system",
+            format!("cannot read: {e}"),
+            "check the path and permissions",
         )
     })?;
-    let sop_class = obj
-        .meta()
+    let not_dicom = || {
+        fail(
+            "not a DICOM file (no `DICM` marker after the 128-byte preamble)".into(),
+            "give a DICOM Part 10 file as exported by the planning system",
+        )
+    };
+    let meta = head
+        .get(128..)
+        .filter(|rest| rest.starts_with(b"DICM"))
+        .ok_or_else(not_dicom)
+        .and_then(|rest| {
+            dicom_object::meta::FileMetaTable::from_reader(rest).map_err(|_| not_dicom())
+        })?;
+    let sop_class = meta
         .media_storage_sop_class_uid
         .trim_end_matches('\0')
         .to_string();
+    let ts = meta.transfer_syntax().trim_end_matches('\0').to_string();
+    if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
+        return Err(fail(
+            format!("unsupported transfer syntax {ts}"),
+            "export the dose uncompressed as Implicit or Explicit VR Little Endian",
+        ));
+    }
+    let obj: DefaultDicomObject = dicom_object::open_file(path).map_err(|e| {
+        fail(
+            format!("cannot read as DICOM: {}", error_chain(&e)),
+            "the file is damaged or truncated; copy or export it again",
+        )
+    })?;
     if sop_class != RT_DOSE_STORAGE {
         let modality = text(&obj, tags::MODALITY).unwrap_or_else(|| "unknown".into());
         return Err(fail(
             format!("not an RT Dose object: SOP Class UID {sop_class}, modality {modality}"),
             "give the RT Dose file exported by the planning system (SOP Class 1.2.840.10008.5.1.4.1.1.481.2)",
-        ));
-    }
-    let ts = obj.meta().transfer_syntax().trim_end_matches('\0');
-    if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
-        return Err(fail(
-            format!("unsupported transfer syntax {ts}"),
-            "export the dose uncompressed as Implicit or Explicit VR Little Endian",
         ));
     }
     let need_f64s = |tag: Tag, name: &str, n: usize| -> Result<Vec<f64>, Diagnostic> {
