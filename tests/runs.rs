@@ -205,3 +205,22 @@ fn hostile_text_is_printed_literally_in_the_report() {
     // Every ASCII punctuation mark of user text is escaped for typst markup.
     assert!(source.contains(r#"\#panic\(\"boom\"\) \$x\^2\$ \*bold\* \_u\_ \@ref \<lbl\> \/\/ not a comment \[b\] \{c\} \\ 1\. \= head"#), "escaped title missing");
 }
+
+#[test]
+fn plugins_lists_the_built_ins_with_versions_and_parameters() {
+    let o = cli(&["plugins"]);
+    assert_eq!(o.code, 0);
+    assert!(
+        o.stdout.starts_with(&format!(
+            "point-dose {}  [point-dose, point-set]  built-in\n",
+            env!("CARGO_PKG_VERSION")
+        )),
+        "{}",
+        o.stdout
+    );
+    assert!(
+        o.stdout.contains("    - match-distance-mm (default 1.0): "),
+        "{}",
+        o.stdout
+    );
+}
