@@ -6,7 +6,7 @@ use std::sync::OnceLock;
 
 use beamproof_engine::registry::Registry;
 
-use crate::support::{cli, demo_copy, relative, root};
+use crate::support::{cli, demo_copy, relative, results, root, run_into_folder};
 
 /// Build the example plugin (normal and wrong-ABI variants) once; return their folders.
 fn plugin_dirs() -> &'static (PathBuf, PathBuf) {
@@ -82,19 +82,9 @@ fn a_dynamic_analysis_runs_beside_the_built_in_one() {
         "          - point-dose\n          - mean-dose-ratio",
         good,
     );
-    let out = campaign.with_file_name("run");
-    let o = cli(&[
-        "run",
-        campaign.to_str().expect("utf8"),
-        "--machine",
-        "lin-b",
-        "--out",
-        out.to_str().expect("utf8"),
-    ]);
+    let (out, o) = run_into_folder(&campaign, "lin-b");
     assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
-    let r: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results"))
-            .expect("json");
+    let r = results(&out);
     let a = &r["sites"][1]["tests"][0]["analyses"][1];
     assert_eq!(a["plugin"], "mean-dose-ratio");
     // Mean of lin-b prostate readings over mean of planned doses (demo data): computed here
@@ -126,24 +116,14 @@ fn a_panic_inside_a_plugin_becomes_an_error_of_that_test_only() {
         "          - plugin: mean-dose-ratio\n            params: {fail-on-purpose: true}",
         good,
     );
-    let out = campaign.with_file_name("run");
-    let o = cli(&[
-        "run",
-        campaign.to_str().expect("utf8"),
-        "--machine",
-        "lin-b",
-        "--out",
-        out.to_str().expect("utf8"),
-    ]);
+    let (out, o) = run_into_folder(&campaign, "lin-b");
     assert_eq!(o.code, 1, "{}", o.stderr);
     assert!(
         o.stdout.contains("  - pelvis/prostate-chamber: ERROR\n"),
         "{}",
         o.stdout
     );
-    let r: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results"))
-            .expect("json");
+    let r = results(&out);
     assert_eq!(
         r["sites"][1]["tests"][0]["analyses"][0]["error"],
         "plugin panicked: failing on purpose, as the test asked"

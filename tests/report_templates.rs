@@ -1,7 +1,7 @@
 //! A campaign may bring its own report template; a broken one is reported with its file and
 //! line, and nothing is written.
 
-use crate::support::{cli, demo_copy, relative};
+use crate::support::{demo_copy, relative, run_into_folder};
 
 fn with_template(name: &str, template: &str) -> (std::path::PathBuf, crate::support::Outcome) {
     let campaign = demo_copy(name);
@@ -18,15 +18,7 @@ fn with_template(name: &str, template: &str) -> (std::path::PathBuf, crate::supp
         ),
     )
     .expect("write");
-    let out = dir.join("run");
-    let o = cli(&[
-        "run",
-        campaign.to_str().expect("utf8"),
-        "--machine",
-        "lin-b",
-        "--out",
-        out.to_str().expect("utf8"),
-    ]);
+    let (out, o) = run_into_folder(&campaign, "lin-b");
     assert!(!out.exists() || o.code == 0, "a failed run left its folder");
     (dir, o)
 }

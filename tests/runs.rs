@@ -1,26 +1,13 @@
 //! End-to-end runs of the demo campaign: exit codes, run folder, determinism, verification.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
-use crate::support::{cli, demo_copy, scratch};
+use crate::support::{cli, demo_copy, results, run_into_folder, scratch};
 
 fn run_demo(name: &str, machine: &str) -> (PathBuf, crate::support::Outcome) {
     let campaign = demo_copy(name);
-    let out = campaign.with_file_name("run");
-    let o = cli(&[
-        "run",
-        campaign.to_str().expect("utf8"),
-        "--machine",
-        machine,
-        "--out",
-        out.to_str().expect("utf8"),
-    ]);
+    let (out, o) = run_into_folder(&campaign, machine);
     (out, o)
-}
-
-fn results(out: &Path) -> serde_json::Value {
-    serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results.json"))
-        .expect("json")
 }
 
 #[test]
@@ -190,15 +177,7 @@ fn hostile_text_is_printed_literally_in_the_report() {
     );
     assert_ne!(changed, text);
     std::fs::write(&campaign, changed).expect("write");
-    let out = campaign.with_file_name("run");
-    let o = cli(&[
-        "run",
-        campaign.to_str().expect("utf8"),
-        "--machine",
-        "lin-b",
-        "--out",
-        out.to_str().expect("utf8"),
-    ]);
+    let (out, o) = run_into_folder(&campaign, "lin-b");
     assert_eq!(o.code, 0, "{}", o.stderr);
     let json = std::fs::read(out.join("results.json")).expect("results");
     let source = beamproof_report::render_source(&json, None).expect("source");

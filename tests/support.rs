@@ -75,3 +75,24 @@ pub fn cli(args: &[&str]) -> Outcome {
 pub fn relative(text: &str, dir: &Path) -> String {
     text.replace(&format!("{}/", dir.display()), "")
 }
+
+/// Run `beamproof run CAMPAIGN --machine MACHINE --out <campaign folder>/run`; returns the
+/// run folder and what the command printed.
+pub fn run_into_folder(campaign: &Path, machine: &str) -> (PathBuf, Outcome) {
+    let out = campaign.with_file_name("run");
+    let o = cli(&[
+        "run",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        machine,
+        "--out",
+        out.to_str().expect("utf8"),
+    ]);
+    (out, o)
+}
+
+/// The `results.json` of a run folder.
+pub fn results(out: &Path) -> serde_json::Value {
+    serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results.json"))
+        .expect("json")
+}

@@ -10,7 +10,7 @@ use std::path::{Path, PathBuf};
 
 use beamproof_api::{CriteriaSet, GammaCriterion, Levels, Normalisation, TestKind};
 
-use crate::diag::{Diagnostic, nearest};
+use crate::diag::{Diagnostic, did_you_mean};
 use crate::yaml::{Node, Value, parse, parse_yaml_float};
 
 /// The campaign format version this build reads.
@@ -314,10 +314,9 @@ impl<'f> Decoder<'f> {
         for (k, _) in entries {
             let key = k.scalar().unwrap_or_default();
             if !allowed.contains(&key) {
-                let help = match nearest(key, allowed.iter().copied()) {
-                    Some(s) => format!("did you mean `{s}`?"),
-                    None => format!("accepted keys: {}", allowed.join(", ")),
-                };
+                let help = did_you_mean(key, allowed.iter().copied(), || {
+                    format!("accepted keys: {}", allowed.join(", "))
+                });
                 self.report(k, format!("unknown key `{key}` in {what}"), help);
             }
         }
@@ -874,10 +873,9 @@ impl<'f> Decoder<'f> {
             let kind = TestKind::from_name(&s);
             if kind.is_none() {
                 let names: Vec<&str> = TestKind::ALL.iter().map(|k| k.name()).collect();
-                let help = match nearest(&s, names.iter().copied()) {
-                    Some(n) => format!("did you mean `{n}`?"),
-                    None => format!("one of: {}", names.join(", ")),
-                };
+                let help = did_you_mean(&s, names.iter().copied(), || {
+                    format!("one of: {}", names.join(", "))
+                });
                 self.report(k, format!("unknown test kind `{s}`"), help);
             }
             kind
@@ -911,10 +909,9 @@ impl<'f> Decoder<'f> {
             .and_then(|c| {
                 let s = self.string(c, "`criteria`")?;
                 if !criteria.contains(&s) {
-                    let help = match nearest(&s, criteria.iter().map(String::as_str)) {
-                        Some(n) => format!("did you mean `{n}`?"),
-                        None => format!("defined criteria sets: {}", criteria.join(", ")),
-                    };
+                    let help = did_you_mean(&s, criteria.iter().map(String::as_str), || {
+                        format!("defined criteria sets: {}", criteria.join(", "))
+                    });
                     self.report(c, format!("criteria set `{s}` is not defined"), help);
                     return None;
                 }

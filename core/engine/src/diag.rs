@@ -103,6 +103,18 @@ pub fn nearest<'a>(word: &str, candidates: impl IntoIterator<Item = &'a str>) ->
         .map(|(_, c)| c)
 }
 
+/// Help text for an unknown word: the nearest candidate when one is close, else `otherwise()`.
+pub fn did_you_mean<'a>(
+    word: &str,
+    candidates: impl IntoIterator<Item = &'a str>,
+    otherwise: impl FnOnce() -> String,
+) -> String {
+    match nearest(word, candidates) {
+        Some(n) => format!("did you mean `{n}`?"),
+        None => otherwise(),
+    }
+}
+
 /// An error and all its sources, joined with `: ` (libraries often hide the cause in `source()`).
 pub fn error_chain(e: &dyn std::error::Error) -> String {
     let mut s = e.to_string();

@@ -11,7 +11,7 @@ use beamproof_api::{
 
 use crate::campaign::{AnalysisSpec, Campaign, InputSpec, Machine, Pos, TestSpec};
 use crate::checksum::sha256_hex;
-use crate::diag::{Diagnostic, nearest};
+use crate::diag::{Diagnostic, did_you_mean, nearest};
 use crate::readers::read_dataset;
 use crate::registry::Registry;
 
@@ -206,10 +206,9 @@ fn beam_info(
         }),
         None => {
             let ids: Vec<&str> = machine.beams.iter().map(|b| b.id.as_str()).collect();
-            let help = match nearest(id, ids.iter().copied()) {
-                Some(n) => format!("did you mean `{n}`?"),
-                None => format!("beams of `{}`: {}", machine.id, ids.join(", ")),
-            };
+            let help = did_you_mean(id, ids.iter().copied(), || {
+                format!("beams of `{}`: {}", machine.id, ids.join(", "))
+            });
             diags.push(
                 Diagnostic::at(
                     &campaign.path,
@@ -235,13 +234,12 @@ fn analyses(
         let at = |msg: String| Diagnostic::at(&campaign.path, a.pos.line, a.pos.column, msg);
         let Some(plugin) = registry.get(&a.plugin) else {
             let names: Vec<&str> = registry.names().collect();
-            let help = match nearest(&a.plugin, names.iter().copied()) {
-                Some(n) => format!("did you mean `{n}`?"),
-                None => format!(
+            let help = did_you_mean(&a.plugin, names.iter().copied(), || {
+                format!(
                     "installed analyses: {}; a dynamic plugin's folder goes in `plugin-dirs` or `--plugin-dir`",
                     names.join(", ")
-                ),
-            };
+                )
+            });
             diags.push(at(format!("no analysis plugin named `{}`", a.plugin)).help(help));
             continue;
         };
@@ -280,11 +278,13 @@ pub fn validate_params(
         let at = |msg: String| Diagnostic::at(file, pos.line, pos.column, msg);
         let Some(spec) = manifest.params.iter().find(|p| &p.name == name) else {
             let names: Vec<&str> = manifest.params.iter().map(|p| p.name.as_str()).collect();
-            let help = match nearest(name, names.iter().copied()) {
-                Some(n) => format!("did you mean `{n}`?"),
-                None if names.is_empty() => format!("`{}` takes no parameters", manifest.name),
-                None => format!("parameters of `{}`: {}", manifest.name, names.join(", ")),
-            };
+            let help = did_you_mean(name, names.iter().copied(), || {
+                if names.is_empty() {
+                    format!("`{}` takes no parameters", manifest.name)
+                } else {
+                    format!("parameters of `{}`: {}", manifest.name, names.join(", "))
+                }
+            });
             diags.push(
                 at(format!(
                     "unknown parameter `{name}` for plugin `{}`",

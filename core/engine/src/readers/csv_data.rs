@@ -8,7 +8,7 @@ use std::path::Path;
 
 use beamproof_api::{Curve, CurveAxis, DatasetData, DoseUnit, Grid, PointSet};
 
-use crate::diag::{Diagnostic, nearest};
+use crate::diag::{Diagnostic, did_you_mean};
 
 /// Format version this build reads.
 pub const DATA_FORMAT_VERSION: &str = "1";
@@ -62,10 +62,9 @@ pub fn read(path: &Path, text: &str) -> Result<(DoseUnit, DatasetData), Diagnost
         };
         let k = k.trim().to_string();
         if !HEADER_KEYS.contains(&k.as_str()) {
-            let help = match nearest(&k, HEADER_KEYS.iter().copied()) {
-                Some(s) => format!("did you mean `{s}`?"),
-                None => format!("header keys: {}", HEADER_KEYS.join(", ")),
-            };
+            let help = did_you_mean(&k, HEADER_KEYS.iter().copied(), || {
+                format!("header keys: {}", HEADER_KEYS.join(", "))
+            });
             return Err(err(n, format!("unknown header key `{k}`"), &help));
         }
         if header.get(&k).is_some() {
