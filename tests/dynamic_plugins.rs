@@ -150,3 +150,56 @@ fn a_plugin_built_for_another_abi_is_refused_clearly() {
         "error: plugin ABI 999.0 is not supported; this beamproof reads ABI 1.x (up to 1.0)\n  --> libbeamproof_plugin_example_dynamic.so\n  = help: rebuild the plugin against the beamproof-api crate of this release (ABI 1.0)\n\n1 problem found; nothing was run\n"
     );
 }
+
+#[test]
+fn a_library_without_the_entry_symbol_is_refused_clearly() {
+    // Any shared library that is not a plugin will do: the proc-macro library cargo built for
+    // the example plugin's dependencies is one on every platform.
+    plugin_dirs();
+    let deps = root().join("target/plugin-tests/debug/deps");
+    let other = std::fs::read_dir(&deps)
+        .expect("deps")
+        .filter_map(Result::ok)
+        .map(|e| e.path())
+        .find(|p| {
+            let n = p
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default();
+            n.contains("serde_derive") && n.ends_with(std::env::consts::DLL_SUFFIX)
+        })
+        .expect("a proc-macro library in the plugin build");
+    let dir = crate::support::scratch("dyn-no-symbol");
+    std::fs::copy(
+        &other,
+        dir.join(format!(
+            "{}not_a_plugin{}",
+            std::env::consts::DLL_PREFIX,
+            std::env::consts::DLL_SUFFIX
+        )),
+    )
+    .expect("copy");
+    let err = match Registry::with_dirs(std::slice::from_ref(&dir)) {
+        Ok(_) => panic!("a library without the entry symbol was accepted"),
+        Err(d) => d,
+    };
+    assert_eq!(err.len(), 1);
+    assert!(
+        err[0]
+            .message
+            .starts_with("not a beamproof plugin of ABI 1: "),
+        "{}",
+        err[0].message
+    );
+    assert!(
+        err[0].message.contains("beamproof_plugin_entry_v1"),
+        "the loader's reason names the symbol: {}",
+        err[0].message
+    );
+    assert_eq!(
+        err[0].help.as_deref(),
+        Some(
+            "a plugin must export `beamproof_plugin_entry_v1`; build it with beamproof_api::export_plugin!"
+        )
+    );
+}

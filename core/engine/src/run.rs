@@ -247,8 +247,8 @@ pub fn run(
         run: RunInfo {
             date: date.to_string(),
             reproduce: format!(
-                "beamproof run {INPUTS_DIR}/{campaign_name} --machine {} --date {date}",
-                prepared.machine.id
+                "beamproof run {INPUTS_DIR}/{campaign_name} --machine {m} --date {date} --out ../rerun-{m}-{date}",
+                m = prepared.machine.id
             ),
         },
         plugins: registry
