@@ -1,0 +1,570 @@
+//! The `gamma` analysis: gamma index (Low et al 1998) between a reference and an evaluated
+//! dose distribution, for curves, planes, volumes and point sets against grids, for every gamma
+//! criterion of the test's criteria set in one search.
+//!
+//! Conventions (each stated in the result's notes):
+//! - the reference is the measured distribution unless `reference: calculated`;
+//! - global dose criteria are a percentage of `normalisation-dose-gy` when the criterion gives
+//!   one, otherwise of the reference maximum; local criteria of each reference point's dose;
+//! - reference points below the threshold (percent of the normalisation dose) are not
+//!   evaluated, nor are points outside the evaluated grid (only the overlap is analysed);
+//! - a point passes when gamma <= 1; pass rates are judged against the criterion's tolerance
+//!   and action pass rates (AAPM TG-218, Miften et al 2018, defaults 95 % and 90 %).
+
+// The numeric kernels index several parallel fixed-size arrays by axis; index loops read
+// closer to the formulas than zipped iterators there.
+#![allow(clippy::needless_range_loop)]
+
+pub mod field;
+pub mod search;
+pub mod stats;
+
+use beamproof_api::{
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Dataset, DatasetData, DoseUnit, Figure,
+    GammaCriterion, Limits, Metric, Normalisation, ParamSpec, ParamType, PluginManifest, Reference,
+    Status, Table, TestKind,
+};
+use rayon::prelude::*;
+
+use field::Field;
+use search::{Criterion, Method, Scratch, gamma_at};
+
+/// Plugin id used in campaign files.
+pub const NAME: &str = "gamma";
+/// Most criteria one search evaluates together.
+pub const MAX_CRITERIA: usize = 16;
+
+/// Gamma of every reference point for every criterion, row-major (`gammas[i * n + c]`).
+/// NaN where a point is not evaluated: outside the evaluated grid, below `thresholds[c]`, or
+/// with zero dose under a local criterion. Runs in parallel over points.
+pub fn compute(
+    field: &Field,
+    points: &[[f64; 3]],
+    doses: &[f64],
+    crits: &[Criterion],
+    thresholds: &[f64],
+    method: Method,
+) -> Vec<f64> {
+    let n = crits.len();
+    let mut out = vec![f64::NAN; points.len() * n];
+    out.par_chunks_mut(n.max(1)).enumerate().for_each_init(
+        || {
+            (
+                Scratch::default(),
+                Vec::<Criterion>::with_capacity(n),
+                Vec::<usize>::with_capacity(n),
+                [0.0; MAX_CRITERIA],
+            )
+        },
+        |(scratch, active, which, buf), (i, row)| {
+            active.clear();
+            which.clear();
+            for (c, cr) in crits.iter().enumerate() {
+                if doses[i] >= thresholds[c] && cr.delta_dose(doses[i]) > 0.0 {
+                    active.push(*cr);
+                    which.push(c);
+                }
+            }
+            if active.is_empty() {
+                return;
+            }
+            if gamma_at(
+                field,
+                active,
+                method,
+                points[i],
+                doses[i],
+                scratch,
+                &mut buf[..active.len()],
+            ) {
+                for (j, &c) in which.iter().enumerate() {
+                    row[c] = buf[j];
+                }
+            }
+        },
+    );
+    out
+}
+
+/// The gamma analysis plugin.
+#[derive(Debug, Default, Clone, Copy)]
+pub struct Gamma;
+
+fn references(method: Method) -> Vec<Reference> {
+    let mut r = vec![
+        Reference { key: "Low 1998".into(), citation: "Low DA, Harms WB, Mutic S, Purdy JA. A technique for the quantitative evaluation of dose distributions. Med Phys. 1998;25(5):656-661.".into() },
+        Reference { key: "TG-218".into(), citation: "Miften M, Olch A, Mihailidis D, et al. Tolerance limits and methodologies for IMRT measurement-based verification QA: recommendations of AAPM Task Group No. 218. Med Phys. 2018;45(4):e53-e83.".into() },
+        Reference { key: "Wendling 2007".into(), citation: "Wendling M, Zijp LJ, McDermott LN, et al. A fast algorithm for gamma evaluation in 3D. Med Phys. 2007;34(5):1647-1654.".into() },
+    ];
+    match method {
+        Method::Exact => r.push(Reference { key: "Ju 2008".into(), citation: "Ju T, Simpson T, Deasy JO, Low DA. Geometric interpretation of the gamma dose distribution comparison technique: interpolation-free calculation. Med Phys. 2008;35(3):879-887.".into() }),
+        Method::Nodes => r.push(Reference { key: "Low 2003".into(), citation: "Low DA, Dempsey JF. Evaluation of the gamma dose distribution comparison method. Med Phys. 2003;30(9):2455-2464.".into() }),
+    }
+    r
+}
+
+impl Analysis for Gamma {
+    fn manifest(&self) -> PluginManifest {
+        PluginManifest {
+            name: NAME.into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+            description: "Gamma index for every gamma criterion of the criteria set, with exact (interpolation-free) simplex search".into(),
+            kinds: vec![TestKind::DepthDose, TestKind::Profile, TestKind::Plane, TestKind::Volume, TestKind::PointSet],
+            params: vec![
+                ParamSpec {
+                    name: "reference".into(),
+                    kind: ParamType::Choice { choices: vec!["measured".into(), "calculated".into()] },
+                    default: Some("measured".into()),
+                    unit: String::new(),
+                    description: "Which distribution is the reference (gamma is not symmetric); the other is searched".into(),
+                },
+                ParamSpec {
+                    name: "method".into(),
+                    kind: ParamType::Choice { choices: vec!["exact".into(), "nodes".into()] },
+                    default: Some("exact".into()),
+                    unit: String::new(),
+                    description: "exact: distance to the linear interpolant (Ju et al 2008); nodes: grid nodes only, no interpolation".into(),
+                },
+                ParamSpec {
+                    name: "max-search-mm".into(),
+                    kind: ParamType::Number { min: Some(0.1), max: Some(100.0) },
+                    default: None,
+                    unit: "mm".into(),
+                    description: "Largest search distance (default 3 x DTA of each criterion); larger gamma values are upper bounds".into(),
+                },
+                ParamSpec {
+                    name: "relative".into(),
+                    kind: ParamType::Bool,
+                    default: Some(false.into()),
+                    unit: String::new(),
+                    description: "Normalise each distribution to its own maximum (100 %) before comparing, instead of absolute dose".into(),
+                },
+            ],
+        }
+    }
+
+    fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
+        let spec = &input.criteria.gamma;
+        if spec.is_empty() {
+            return Err(AnalysisError::new(format!(
+                "criteria set `{}` has no `gamma` criteria, which the gamma analysis needs",
+                input.criteria.name
+            )));
+        }
+        if spec.len() > MAX_CRITERIA {
+            return Err(AnalysisError::new(format!(
+                "at most {MAX_CRITERIA} gamma criteria per set, `{}` has {}",
+                input.criteria.name,
+                spec.len()
+            )));
+        }
+        let measured = input
+            .measured
+            .as_ref()
+            .ok_or_else(|| AnalysisError::new("gamma needs `measured` data"))?;
+        let calculated = input
+            .calculated
+            .as_ref()
+            .ok_or_else(|| AnalysisError::new("gamma needs `calculated` data"))?;
+        let calculated_is_reference = input.text("reference")? == "calculated";
+        let (reference, evaluated) = if calculated_is_reference {
+            (calculated, measured)
+        } else {
+            (measured, calculated)
+        };
+        let method = if input.text("method")? == "nodes" {
+            Method::Nodes
+        } else {
+            Method::Exact
+        };
+        let relative = input
+            .params
+            .get("relative")
+            .and_then(serde_json::Value::as_bool)
+            .unwrap_or(false);
+        let (points, mut ref_dose, ref_grid) = reference_points(reference)?;
+        let mut field = evaluated_field(evaluated, reference)?;
+        check_doses(&reference.source, &ref_dose)?;
+        check_doses(&evaluated.source, &field.dose)?;
+        let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
+        if relative {
+            let eval_max = field.dose.iter().copied().fold(0.0, f64::max);
+            if ref_max <= 0.0 || eval_max <= 0.0 {
+                return Err(AnalysisError::new(
+                    "a distribution has no positive dose to normalise to",
+                ));
+            }
+            ref_dose.iter_mut().for_each(|d| *d *= 100.0 / ref_max);
+            field.dose.iter_mut().for_each(|d| *d *= 100.0 / eval_max);
+        }
+        let unit = if relative {
+            DoseUnit::Percent
+        } else {
+            reference.unit
+        };
+        let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
+        let mut crits = Vec::new();
+        let mut thresholds = Vec::new();
+        for g in spec {
+            let norm = match g.normalisation_dose_gy {
+                Some(_) if unit != DoseUnit::Gy => {
+                    return Err(AnalysisError::new(
+                        "`normalisation-dose-gy` needs absolute dose in Gy; remove it or set `relative: false`",
+                    ));
+                }
+                Some(d) => d,
+                None => ref_max,
+            };
+            if norm <= 0.0 {
+                return Err(AnalysisError::new(
+                    "the normalisation dose is zero: the reference holds no positive dose",
+                ));
+            }
+            let max_search = input.number_opt("max-search-mm").unwrap_or(3.0 * g.dta_mm);
+            crits.push(Criterion {
+                dose_fraction: g.dose_percent / 100.0,
+                dta_mm: g.dta_mm,
+                local: g.normalisation == Normalisation::Local,
+                norm_dose: norm,
+                max_search_mm: max_search,
+            });
+            thresholds.push(g.threshold_percent / 100.0 * norm);
+        }
+        let n_outside = points.iter().filter(|p| field.local(**p).is_none()).count();
+        if n_outside == points.len() {
+            return Err(AnalysisError::new(format!(
+                "no overlap: no reference point of `{}` lies inside the evaluated grid of `{}`",
+                reference.source, evaluated.source
+            )));
+        }
+        let gammas = compute(&field, &points, &ref_dose, &crits, &thresholds, method);
+        Ok(build_output(&BuildInput {
+            spec,
+            crits: &crits,
+            gammas: &gammas,
+            points: &points,
+            ref_dose: &ref_dose,
+            field: &field,
+            ref_grid: ref_grid.as_ref(),
+            method,
+            n_outside,
+            unit,
+            calculated_is_reference,
+        }))
+    }
+}
+
+/// Reference points, their doses, and the grid itself when the reference is a 2D grid (maps).
+type ReferenceSet = (Vec<[f64; 3]>, Vec<f64>, Option<beamproof_api::Grid>);
+
+fn reference_points(ds: &Dataset) -> Result<ReferenceSet, AnalysisError> {
+    match &ds.data {
+        DatasetData::Points(p) => Ok((
+            (0..p.len())
+                .map(|i| [p.x_mm[i], p.y_mm[i], p.z_mm[i]])
+                .collect(),
+            p.dose.clone(),
+            None,
+        )),
+        DatasetData::Curve(c) => Ok((
+            c.positions_mm.iter().map(|&x| [x, 0.0, 0.0]).collect(),
+            c.dose.clone(),
+            None,
+        )),
+        DatasetData::Grid(g) => {
+            let mut pts = Vec::with_capacity(g.dose.len());
+            for &z in &g.z_mm {
+                for &y in &g.y_mm {
+                    for &x in &g.x_mm {
+                        pts.push([x, y, z]);
+                    }
+                }
+            }
+            Ok((
+                pts,
+                g.dose.clone(),
+                (g.dimensions() == 2).then(|| g.clone()),
+            ))
+        }
+    }
+}
+
+fn evaluated_field(ds: &Dataset, reference: &Dataset) -> Result<Field, AnalysisError> {
+    match (&ds.data, &reference.data) {
+        (DatasetData::Grid(g), DatasetData::Grid(_) | DatasetData::Points(_)) => {
+            Field::from_grid(g).ok_or_else(|| {
+                AnalysisError::new(format!("`{}` is a single point, not a grid", ds.source))
+            })
+        }
+        (DatasetData::Curve(c), DatasetData::Curve(r)) if c.axis == r.axis => {
+            Ok(Field::from_curve(c))
+        }
+        (DatasetData::Curve(c), DatasetData::Curve(r)) => Err(AnalysisError::new(format!(
+            "curves along different axes: `{}` is along {:?}, `{}` along {:?}",
+            ds.source, c.axis, reference.source, r.axis
+        ))),
+        (DatasetData::Points(_), _) => Err(AnalysisError::new(format!(
+            "`{}` is a point set and cannot be searched; make the point set the reference",
+            ds.source
+        ))),
+        _ => Err(AnalysisError::new(format!(
+            "cannot compare a {} (`{}`) with a {} (`{}`); compare curves with curves, and points, planes or volumes with a grid",
+            reference.shape_name(),
+            reference.source,
+            ds.shape_name(),
+            ds.source
+        ))),
+    }
+}
+
+fn check_doses(source: &str, dose: &[f64]) -> Result<(), AnalysisError> {
+    if let Some(i) = dose.iter().position(|d| !d.is_finite() || *d < 0.0) {
+        return Err(AnalysisError::new(format!(
+            "`{source}` holds an invalid dose ({}) at value {}: doses must be finite and not negative",
+            dose[i],
+            i + 1
+        )));
+    }
+    Ok(())
+}
+
+struct BuildInput<'a> {
+    spec: &'a [GammaCriterion],
+    crits: &'a [Criterion],
+    gammas: &'a [f64],
+    points: &'a [[f64; 3]],
+    ref_dose: &'a [f64],
+    field: &'a Field,
+    ref_grid: Option<&'a beamproof_api::Grid>,
+    method: Method,
+    n_outside: usize,
+    unit: DoseUnit,
+    calculated_is_reference: bool,
+}
+
+fn label(g: &GammaCriterion) -> String {
+    let n = if g.normalisation == Normalisation::Local {
+        "local"
+    } else {
+        "global"
+    };
+    format!("{}%/{}mm {n}", trim(g.dose_percent), trim(g.dta_mm))
+}
+
+fn trim(v: f64) -> String {
+    let s = format!("{v:.2}");
+    s.trim_end_matches('0').trim_end_matches('.').to_string()
+}
+
+fn build_output(b: &BuildInput) -> AnalysisOutput {
+    let n = b.crits.len();
+    let column = |c: usize| b.gammas.iter().skip(c).step_by(n).copied();
+    let mut metrics = Vec::new();
+    let mut rows = Vec::new();
+    let mut statuses = Vec::new();
+    for (c, g) in b.spec.iter().enumerate() {
+        let s = stats::summarise(column(c));
+        let status = if s.n_evaluated == 0 {
+            Status::Error
+        } else {
+            Status::from_floor(
+                s.pass_rate_percent,
+                g.tolerance_pass_percent,
+                g.action_pass_percent,
+            )
+        };
+        statuses.push(status);
+        metrics.push(Metric {
+            id: format!("pass-rate:{}", label(g).replace(' ', "-")),
+            label: format!("Gamma pass rate {}", label(g)),
+            value: s.pass_rate_percent,
+            unit: "%".into(),
+            limits: Some(Limits {
+                rule: "value >= limit".into(),
+                tolerance: g.tolerance_pass_percent,
+                action: g.action_pass_percent,
+            }),
+            status: Some(status),
+        });
+        rows.push(vec![
+            label(g),
+            format!("{}", trim(g.threshold_percent)),
+            s.n_evaluated.to_string(),
+            format!("{:.1}", s.pass_rate_percent),
+            format!("{:.2}", s.mean),
+            format!("{:.2}", s.median),
+            format!("{:.2}", s.p95),
+            format!("{:.2}", s.p99),
+            format!("{:.2}", s.max),
+            status.word().to_string(),
+        ]);
+    }
+    let primary = stats::summarise(column(0));
+    for (id, lbl, v) in [
+        ("gamma-mean", "Mean gamma", primary.mean),
+        ("gamma-median", "Median gamma", primary.median),
+        ("gamma-p95", "95th percentile gamma", primary.p95),
+        ("gamma-p99", "99th percentile gamma", primary.p99),
+        ("gamma-max", "Maximum gamma", primary.max),
+    ] {
+        metrics.push(Metric {
+            id: id.into(),
+            label: format!("{lbl} ({})", label(&b.spec[0])),
+            value: v,
+            unit: String::new(),
+            limits: None,
+            status: None,
+        });
+    }
+    metrics.push(Metric {
+        id: "points-evaluated".into(),
+        label: format!("Points evaluated ({})", label(&b.spec[0])),
+        value: primary.n_evaluated as f64,
+        unit: String::new(),
+        limits: None,
+        status: None,
+    });
+    let mut tables = vec![Table {
+        title: "Gamma by criterion".into(),
+        columns: [
+            "Criterion",
+            "Threshold (%)",
+            "Points",
+            "Pass rate (%)",
+            "Mean",
+            "Median",
+            "P95",
+            "P99",
+            "Max",
+            "Status",
+        ]
+        .map(String::from)
+        .to_vec(),
+        rows,
+    }];
+    // Worst failing points of the first criterion.
+    let mut worst: Vec<usize> = (0..b.points.len())
+        .filter(|&i| b.gammas[i * n] > 1.0 + beamproof_api::LIMIT_SLACK)
+        .collect();
+    worst.sort_by(|&p, &q| b.gammas[q * n].total_cmp(&b.gammas[p * n]).then(p.cmp(&q)));
+    worst.truncate(10);
+    let unit = b.unit.label();
+    if !worst.is_empty() {
+        tables.push(Table {
+            title: format!("Worst failing points ({})", label(&b.spec[0])),
+            columns: vec![
+                "X (mm)".into(),
+                "Y (mm)".into(),
+                "Z (mm)".into(),
+                format!("Reference ({unit})"),
+                format!("Evaluated here ({unit})"),
+                "Gamma".into(),
+            ],
+            rows: worst
+                .iter()
+                .map(|&i| {
+                    let p = b.points[i];
+                    let here = b.field.local(p).map(|u| b.field.interpolate(&u));
+                    vec![
+                        format!("{:.1}", p[0]),
+                        format!("{:.1}", p[1]),
+                        format!("{:.1}", p[2]),
+                        format!("{:.4}", b.ref_dose[i]),
+                        here.map_or("n/a".into(), |d| format!("{d:.4}")),
+                        format!("{:.2}", b.gammas[i * n]),
+                    ]
+                })
+                .collect(),
+        });
+    }
+    let (edges, counts) = stats::histogram(column(0));
+    let mut figures = vec![Figure::Histogram {
+        title: format!("Gamma histogram ({})", label(&b.spec[0])),
+        x_label: "Gamma".into(),
+        edges,
+        counts,
+    }];
+    if let Some(g) = b.ref_grid {
+        figures.extend(maps(b, g));
+    }
+    let mut notes = vec![
+        format!(
+            "Reference: the {} distribution; the {} distribution is searched.",
+            if b.calculated_is_reference { "calculated" } else { "measured" },
+            if b.calculated_is_reference { "measured" } else { "calculated" }
+        ),
+        match b.method {
+            Method::Exact => "Search: exact distance to the linear (simplicial) interpolant of the evaluated grid (Ju et al 2008), with distance-ordered early termination (Wendling et al 2007).".to_string(),
+            Method::Nodes => "Search: evaluated grid nodes only, no interpolation.".to_string(),
+        },
+        format!("Global dose criteria are relative to {} {}.", trim_dose(b.crits[0].norm_dose), unit),
+    ];
+    if b.n_outside > 0 {
+        notes.push(format!("{} reference points lie outside the evaluated grid and were not evaluated (only the overlap is analysed).", b.n_outside));
+    }
+    let spacing = b.field.max_spacing();
+    if b.method == Method::Nodes && b.crits.iter().any(|c| spacing > c.dta_mm / 3.0) {
+        notes.push(format!(
+            "Caution: the evaluated grid spacing ({spacing:.2} mm) exceeds one third of the DTA without interpolation; gamma is overestimated (Low & Dempsey 2003). Use `method: exact`."
+        ));
+    }
+    AnalysisOutput {
+        metrics,
+        tables,
+        figures,
+        notes,
+        references: references(b.method),
+        status: Status::worst(statuses),
+    }
+}
+
+fn trim_dose(v: f64) -> String {
+    format!("{v:.4}")
+        .trim_end_matches('0')
+        .trim_end_matches('.')
+        .to_string()
+}
+
+/// Gamma and dose-difference maps on a 2D reference grid.
+fn maps(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
+    let n = b.crits.len();
+    let axes = [("X", &g.x_mm), ("Y", &g.y_mm), ("Z", &g.z_mm)];
+    let active: Vec<&(&str, &Vec<f64>)> = axes.iter().filter(|(_, a)| a.len() > 1).collect();
+    let [(xn, xs), (yn, ys)] = [active[0], active[1]].map(|p| (p.0, p.1));
+    let gamma: Vec<Option<f64>> = (0..b.points.len())
+        .map(|i| Some(b.gammas[i * n]).filter(|v| !v.is_nan()))
+        .collect();
+    let norm = b.crits[0].norm_dose;
+    let diff: Vec<Option<f64>> = (0..b.points.len())
+        .map(|i| {
+            b.field
+                .local(b.points[i])
+                .map(|u| 100.0 * (b.field.interpolate(&u) - b.ref_dose[i]) / norm)
+        })
+        .collect();
+    vec![
+        Figure::Map {
+            title: format!("Gamma map ({})", label(&b.spec[0])),
+            quantity: "gamma".into(),
+            unit: String::new(),
+            x_label: format!("{xn} (mm)"),
+            y_label: format!("{yn} (mm)"),
+            x_mm: xs.clone(),
+            y_mm: ys.clone(),
+            values: gamma,
+        },
+        Figure::Map {
+            title: "Dose difference, evaluated - reference".into(),
+            quantity: "dose difference".into(),
+            unit: "% of normalisation dose".into(),
+            x_label: format!("{xn} (mm)"),
+            y_label: format!("{yn} (mm)"),
+            x_mm: xs.clone(),
+            y_mm: ys.clone(),
+            values: diff,
+        },
+    ]
+}
+
+#[cfg(test)]
+mod tests;

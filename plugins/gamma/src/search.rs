@@ -1,0 +1,351 @@
+//! The gamma search for one reference point, for several criteria at once.
+//!
+//! Gamma (Low, Harms, Mutic & Purdy, Med Phys 1998;25:656-661) is the smallest generalised
+//! distance from the reference point (r, D_r) to the evaluated distribution in normalised
+//! space-dose coordinates: Gamma = sqrt(|r_e - r|^2 / dd^2 + (D_e(r_e) - D_r)^2 / dD^2).
+//!
+//! `Method::Exact` treats the evaluated distribution as its simplicial linear interpolant and
+//! computes the exact distance to each simplex (Ju et al, Med Phys 2008;35:879-887), so the
+//! result has no sampling error. The search starts from the bound given by the evaluated dose
+//! at the point itself (distance zero), visits cells in order of increasing distance and stops
+//! once distance alone reaches the best value found, as in Wendling et al (Med Phys
+//! 2007;34:1647-1654); a cell is also skipped when its dose range cannot beat the best value.
+//! `Method::Nodes` uses the grid nodes only (no interpolation), for comparison with the
+//! resolution rule of Low & Dempsey (Med Phys 2003;30:2455-2464).
+
+use crate::field::{Field, MAX_DIMS, kuhn_orders};
+
+/// How the evaluated distribution is searched.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Method {
+    /// Exact distance to the simplicial interpolant.
+    Exact,
+    /// Grid nodes only.
+    Nodes,
+}
+
+/// One criterion in absolute terms.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Criterion {
+    /// Dose criterion as a fraction (0.03 for 3 %).
+    pub dose_fraction: f64,
+    pub dta_mm: f64,
+    /// Local: the dose criterion is a fraction of each reference dose; global: of `norm_dose`.
+    pub local: bool,
+    /// Global normalisation dose (dose units of the data).
+    pub norm_dose: f64,
+    /// Search radius, mm: every cell that reaches within this distance is searched whole.
+    /// Gamma values above `max_search_mm / dta_mm` are therefore upper bounds of the
+    /// unrestricted gamma; values below it are exact.
+    pub max_search_mm: f64,
+}
+
+impl Criterion {
+    /// The dose criterion for a reference dose.
+    #[inline]
+    pub fn delta_dose(&self, d_ref: f64) -> f64 {
+        if self.local {
+            self.dose_fraction * d_ref
+        } else {
+            self.dose_fraction * self.norm_dose
+        }
+    }
+}
+
+/// Reusable per-thread memory for the search (no allocation per point).
+#[derive(Default)]
+pub struct Scratch {
+    cells: Vec<(f64, [usize; MAX_DIMS])>,
+}
+
+/// Compute gamma of one reference point for every criterion into `out`. Returns false when the
+/// point lies outside the evaluated grid (not evaluated). The caller guarantees a positive dose
+/// criterion (`delta_dose(d_ref) > 0`) for each criterion.
+pub fn gamma_at(
+    field: &Field,
+    crits: &[Criterion],
+    method: Method,
+    pos: [f64; 3],
+    d_ref: f64,
+    scratch: &mut Scratch,
+    out: &mut [f64],
+) -> bool {
+    let Some(u) = field.local(pos) else {
+        return false;
+    };
+    let k = field.k;
+    let nc = crits.len();
+    let mut dd = [0.0; 16];
+    let mut dt = [0.0; 16];
+    for (c, cr) in crits.iter().enumerate().take(16) {
+        dd[c] = cr.delta_dose(d_ref);
+        dt[c] = cr.dta_mm;
+    }
+    // Upper bound from the evaluated dose at the point itself.
+    let mut radius: f64 = 0.0;
+    let d0 = field.interpolate(&u);
+    for c in 0..nc {
+        out[c] = match method {
+            Method::Exact => (d0 - d_ref).abs() / dd[c],
+            Method::Nodes => f64::INFINITY,
+        };
+        let r = (out[c] * dt[c]).min(crits[c].max_search_mm);
+        radius = radius.max(r);
+    }
+    if radius <= 0.0 && method == Method::Exact {
+        return true;
+    }
+    // Cells whose box lies within the radius, sorted by their distance from the point.
+    let mut lo = [0usize; MAX_DIMS];
+    let mut hi = [0usize; MAX_DIMS];
+    // A cell that only touches the search radius at a node counts, so widen by a rounding margin.
+    let reach = radius * (1.0 + 1e-12) + 1e-12;
+    for a in 0..k {
+        lo[a] = field.cell_of(a, u[a] - reach);
+        hi[a] = field.cell_of(a, u[a] + reach);
+    }
+    scratch.cells.clear();
+    let mut idx = lo;
+    loop {
+        let mut d2 = 0.0;
+        for a in 0..k {
+            let ax = &field.axes[a];
+            let (x0, x1) = (ax[idx[a]], ax[idx[a] + 1]);
+            let g = if u[a] < x0 {
+                x0 - u[a]
+            } else if u[a] > x1 {
+                u[a] - x1
+            } else {
+                0.0
+            };
+            d2 += g * g;
+        }
+        if d2 <= radius * radius * (1.0 + 1e-12) {
+            scratch.cells.push((d2, idx));
+        }
+        // Next cell index (odometer).
+        let mut a = 0;
+        loop {
+            if a == k {
+                break;
+            }
+            if idx[a] < hi[a] {
+                idx[a] += 1;
+                break;
+            }
+            idx[a] = lo[a];
+            a += 1;
+        }
+        if a == k {
+            break;
+        }
+    }
+    scratch.cells.sort_unstable_by(|p, q| p.0.total_cmp(&q.0));
+
+    let corners = 1usize << k;
+    for &(d2, cell) in &scratch.cells {
+        let d = d2.sqrt();
+        if (0..nc).all(|c| d / dt[c] >= out[c]) {
+            break;
+        }
+        // Corner doses and the cell's dose range.
+        let mut cd = [0.0; 8];
+        let (mut dmin, mut dmax) = (f64::INFINITY, f64::NEG_INFINITY);
+        for (bits, slot) in cd.iter_mut().enumerate().take(corners) {
+            let mut n = cell;
+            for (a, na) in n.iter_mut().enumerate().take(k) {
+                *na += (bits >> a) & 1;
+            }
+            *slot = field.node(&n);
+            dmin = dmin.min(*slot);
+            dmax = dmax.max(*slot);
+        }
+        let dose_gap = if d_ref < dmin {
+            dmin - d_ref
+        } else if d_ref > dmax {
+            d_ref - dmax
+        } else {
+            0.0
+        };
+        match method {
+            Method::Nodes => {
+                for (bits, &dn) in cd.iter().enumerate().take(corners) {
+                    let mut s2 = 0.0;
+                    for a in 0..k {
+                        let x = field.axes[a][cell[a] + ((bits >> a) & 1)] - u[a];
+                        s2 += x * x;
+                    }
+                    for c in 0..nc {
+                        if s2.sqrt() > crits[c].max_search_mm * (1.0 + 1e-12) {
+                            continue;
+                        }
+                        let g =
+                            (s2 / (dt[c] * dt[c]) + (dn - d_ref).powi(2) / (dd[c] * dd[c])).sqrt();
+                        if g < out[c] {
+                            out[c] = g;
+                        }
+                    }
+                }
+            }
+            Method::Exact => {
+                for c in 0..nc {
+                    let lb2 = d2 / (dt[c] * dt[c]) + (dose_gap / dd[c]).powi(2);
+                    if lb2 >= out[c] * out[c] || d > crits[c].max_search_mm * (1.0 + 1e-12) {
+                        continue;
+                    }
+                    for order in kuhn_orders(k) {
+                        // Simplex vertices in normalised coordinates relative to the point.
+                        let mut w = [[0.0; 4]; 4];
+                        let mut bits = 0usize;
+                        for (j, wj) in w.iter_mut().enumerate().take(k + 1) {
+                            if j > 0 {
+                                bits |= 1 << order[j - 1];
+                            }
+                            for a in 0..k {
+                                let x = field.axes[a][cell[a] + ((bits >> a) & 1)];
+                                wj[a] = (x - u[a]) / dt[c];
+                            }
+                            wj[k] = (cd[bits] - d_ref) / dd[c];
+                        }
+                        let g2 = min_norm_sq(&w, &[0, 1, 2, 3][..k + 1], k + 1);
+                        if g2 < out[c] * out[c] {
+                            out[c] = g2.max(0.0).sqrt();
+                        }
+                    }
+                }
+            }
+        }
+    }
+    true
+}
+
+#[inline]
+fn dot(a: &[f64; 4], b: &[f64; 4], m: usize) -> f64 {
+    (0..m).map(|i| a[i] * b[i]).sum()
+}
+
+/// Squared distance from the origin to the convex hull of the points `w[set]` (at most 4 points
+/// in at most 4 dimensions). Solves the normal equations on the affine hull; when a barycentric
+/// coordinate is negative the minimum lies on a face opposite one of those vertices (a convex
+/// quadratic's constrained minimum activates at least one violated constraint), so recurse.
+pub fn min_norm_sq(w: &[[f64; 4]; 4], set: &[usize], m: usize) -> f64 {
+    let n = set.len();
+    let v0 = &w[set[0]];
+    if n == 1 {
+        return dot(v0, v0, m);
+    }
+    // e_i = w_i - v0; minimise |v0 + sum l_i e_i|^2 : G l = -E^T v0.
+    let mut e = [[0.0; 4]; 3];
+    for i in 1..n {
+        for j in 0..m {
+            e[i - 1][j] = w[set[i]][j] - v0[j];
+        }
+    }
+    let s = n - 1;
+    let mut g = [[0.0; 4]; 3];
+    for i in 0..s {
+        for j in 0..s {
+            g[i][j] = dot(&e[i], &e[j], m);
+        }
+        g[i][s] = -dot(&e[i], v0, m);
+    }
+    let lambda = solve(&mut g, s);
+    let feasible = lambda.and_then(|l| {
+        let sum: f64 = l[..s].iter().sum();
+        (l[..s].iter().all(|&x| x >= -1e-12) && sum <= 1.0 + 1e-12).then_some(l)
+    });
+    if let Some(l) = feasible {
+        let mut p = *v0;
+        for i in 0..s {
+            for j in 0..m {
+                p[j] += l[i] * e[i][j];
+            }
+        }
+        return dot(&p, &p, m);
+    }
+    // Faces opposite the vertices whose barycentric coordinate is negative (all faces when the
+    // system is degenerate).
+    let bary: Option<[f64; 4]> = lambda.map(|l| {
+        let mut b = [0.0; 4];
+        b[0] = 1.0 - l[..s].iter().sum::<f64>();
+        b[1..=s].copy_from_slice(&l[..s]);
+        b
+    });
+    let mut best = f64::INFINITY;
+    for drop in 0..n {
+        if bary.is_some_and(|b| b[drop] >= 0.0) {
+            continue;
+        }
+        let mut sub = [0usize; 4];
+        let mut t = 0;
+        for (i, &v) in set.iter().enumerate() {
+            if i != drop {
+                sub[t] = v;
+                t += 1;
+            }
+        }
+        best = best.min(min_norm_sq(w, &sub[..t], m));
+    }
+    best
+}
+
+/// Solve the s x s system in the augmented matrix `g` (last column the right-hand side) by
+/// Gaussian elimination with partial pivoting; `None` when (nearly) singular.
+fn solve(g: &mut [[f64; 4]; 3], s: usize) -> Option<[f64; 3]> {
+    let scale = (0..s)
+        .map(|i| g[i][i].abs())
+        .fold(0.0, f64::max)
+        .max(1e-300);
+    for col in 0..s {
+        let piv = (col..s).max_by(|&a, &b| g[a][col].abs().total_cmp(&g[b][col].abs()))?;
+        if g[piv][col].abs() <= 1e-12 * scale {
+            return None;
+        }
+        g.swap(col, piv);
+        for row in col + 1..s {
+            let f = g[row][col] / g[col][col];
+            for j in col..=s {
+                g[row][j] -= f * g[col][j];
+            }
+        }
+    }
+    let mut x = [0.0; 3];
+    for row in (0..s).rev() {
+        let mut v = g[row][s];
+        for j in row + 1..s {
+            v -= g[row][j] * x[j];
+        }
+        x[row] = v / g[row][row];
+    }
+    Some(x)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn distance_to_a_segment_and_a_triangle() {
+        // Point-to-segment and point-to-triangle distances from elementary geometry.
+        let mut w = [[0.0; 4]; 4];
+        w[0] = [1.0, -1.0, 0.0, 0.0];
+        w[1] = [1.0, 1.0, 0.0, 0.0];
+        assert!((min_norm_sq(&w, &[0, 1], 2) - 1.0).abs() < 1e-15);
+        w[0] = [2.0, 1.0, 0.0, 0.0];
+        w[1] = [3.0, 1.0, 0.0, 0.0];
+        assert!(
+            (min_norm_sq(&w, &[0, 1], 2) - 5.0).abs() < 1e-15,
+            "nearest is the end point (2, 1)"
+        );
+        // Triangle in the plane z = 2 containing the projection of the origin.
+        w[0] = [-1.0, -1.0, 2.0, 0.0];
+        w[1] = [3.0, -1.0, 2.0, 0.0];
+        w[2] = [-1.0, 3.0, 2.0, 0.0];
+        assert!((min_norm_sq(&w, &[0, 1, 2], 3) - 4.0).abs() < 1e-12);
+        // Same triangle shifted so the nearest point is the vertex (1, 1, 2): 1 + 1 + 4 = 6.
+        w[0] = [1.0, 1.0, 2.0, 0.0];
+        w[1] = [5.0, 1.0, 2.0, 0.0];
+        w[2] = [1.0, 5.0, 2.0, 0.0];
+        assert!((min_norm_sq(&w, &[0, 1, 2], 3) - 6.0).abs() < 1e-12);
+    }
+}

@@ -1,0 +1,497 @@
+//! Gamma against analytic cases (REFERENCES 1.7, derived from the definition of Low et al
+//! 1998: for a linear ramp of gradient g shifted by a and offset by c, gamma is the point-to-
+//! line distance |c - g a| / sqrt(dD^2 + g^2 dd^2)), against a brute-force search, and for
+//! its properties.
+
+use super::*;
+use beamproof_api::{Curve, CurveAxis, Grid};
+
+fn crit(dose_percent: f64, dta_mm: f64, norm: f64, local: bool) -> Criterion {
+    Criterion {
+        dose_fraction: dose_percent / 100.0,
+        dta_mm,
+        local,
+        norm_dose: norm,
+        max_search_mm: 3.0 * dta_mm,
+    }
+}
+
+fn curve_field(xs: &[f64], f: impl Fn(f64) -> f64) -> Field {
+    Field::from_curve(&Curve {
+        axis: CurveAxis::X,
+        positions_mm: xs.to_vec(),
+        dose: xs.iter().map(|&x| f(x)).collect(),
+    })
+}
+
+fn steps(from: f64, to: f64, step: f64) -> Vec<f64> {
+    let n = ((to - from) / step).round() as usize;
+    (0..=n).map(|i| from + i as f64 * step).collect()
+}
+
+/// Gamma at one reference point of a 1D evaluated field.
+fn g1(field: &Field, x: f64, d_ref: f64, c: Criterion, method: Method) -> f64 {
+    compute(field, &[[x, 0.0, 0.0]], &[d_ref], &[c], &[0.0], method)[0]
+}
+
+fn assert_close(got: f64, want: f64, tol: f64, what: &str) {
+    assert!((got - want).abs() <= tol, "{what}: got {got}, want {want}");
+}
+
+#[test]
+fn flat_fields_give_the_dose_difference_over_the_criterion() {
+    // G1, G2: flat 100 against 102 and 104.5 at 3 %/3 mm global (norm 100): 2/3 and 1.5.
+    let xs = steps(-50.0, 50.0, 1.0);
+    assert_close(
+        g1(
+            &curve_field(&xs, |_| 102.0),
+            0.0,
+            100.0,
+            crit(3.0, 3.0, 100.0, false),
+            Method::Exact,
+        ),
+        2.0 / 3.0,
+        1e-12,
+        "G1",
+    );
+    assert_close(
+        g1(
+            &curve_field(&xs, |_| 104.5),
+            0.0,
+            100.0,
+            crit(3.0, 3.0, 100.0, false),
+            Method::Exact,
+        ),
+        1.5,
+        1e-12,
+        "G2",
+    );
+}
+
+#[test]
+fn shifted_ramps_match_the_point_to_line_distance() {
+    // G3-G11 of REFERENCES 1.7: (gradient, shift, offset, dose %, DTA, expected gamma).
+    let cases = [
+        (1.0, 3.0, 0.0, 3.0, 3.0, 1.0 / 2f64.sqrt()),
+        (1.0, 2.0, 0.0, 3.0, 3.0, 2.0 / 18f64.sqrt()),
+        (1.0, 3.0, 0.0, 3.0, 2.0, 3.0 / 13f64.sqrt()),
+        (10.0, 3.0, 0.0, 3.0, 3.0, 30.0 / 909f64.sqrt()),
+        (10.0, 2.0, 0.0, 3.0, 3.0, 20.0 / 909f64.sqrt()),
+        (1.0, 2.0, 0.0, 2.0, 2.0, 2.0 / 8f64.sqrt()),
+        (2.0, 4.0, 0.0, 3.0, 3.0, 8.0 / 45f64.sqrt()),
+        (1.0, 3.0, 3.0, 3.0, 3.0, 0.0),
+        (1.0, 3.0, -3.0, 3.0, 3.0, 6.0 / 18f64.sqrt()),
+    ];
+    let xs = steps(-40.0, 40.0, 1.0);
+    for (g, a, c, dp, dta, want) in cases {
+        let field = curve_field(&xs, |x| 500.0 + g * (x - a) + c);
+        let got = g1(
+            &field,
+            0.0,
+            500.0,
+            crit(dp, dta, 100.0, false),
+            Method::Exact,
+        );
+        assert_close(
+            got,
+            want,
+            1e-9,
+            &format!("ramp g={g} a={a} c={c} {dp}%/{dta}mm"),
+        );
+    }
+}
+
+#[test]
+fn no_interpolation_misses_the_continuous_optimum() {
+    // D1/D2: G3 on a 1 mm grid, nodes only: sqrt(5)/3 (nearest node 1 or 2 mm away);
+    // the exact search finds 1/sqrt(2).
+    let field = curve_field(&steps(-40.0, 40.0, 1.0), |x| 500.0 + (x - 3.0));
+    assert_close(
+        g1(
+            &field,
+            0.0,
+            500.0,
+            crit(3.0, 3.0, 100.0, false),
+            Method::Nodes,
+        ),
+        5f64.sqrt() / 3.0,
+        1e-12,
+        "D1",
+    );
+    assert_close(
+        g1(
+            &field,
+            0.0,
+            500.0,
+            crit(3.0, 3.0, 100.0, false),
+            Method::Exact,
+        ),
+        1.0 / 2f64.sqrt(),
+        1e-12,
+        "D2",
+    );
+}
+
+#[test]
+fn local_and_global_normalisation_differ_in_low_dose() {
+    // L1/L2: reference 20, evaluated 21, 3 %/3 mm: global (norm 100) 1/3, local 1/0.6.
+    let field = curve_field(&steps(-20.0, 20.0, 1.0), |_| 21.0);
+    assert_close(
+        g1(
+            &field,
+            0.0,
+            20.0,
+            crit(3.0, 3.0, 100.0, false),
+            Method::Exact,
+        ),
+        1.0 / 3.0,
+        1e-12,
+        "L1",
+    );
+    assert_close(
+        g1(
+            &field,
+            0.0,
+            20.0,
+            crit(3.0, 3.0, 100.0, true),
+            Method::Exact,
+        ),
+        1.0 / 0.6,
+        1e-12,
+        "L2",
+    );
+}
+
+#[test]
+fn step_edge_pass_rate_and_gamma_values() {
+    // P1: x = 0..99 mm, reference flat 100, evaluated 100 below 80 mm and 110 from 80 mm
+    // (linear between 79 and 80), 3 %/2.5 mm global, TH 10 %: gamma at 80..83 mm is
+    // 0.3972, 0.7943, 1.1915, 1.5886 with linear interpolation (0.4, 0.8, 1.2, 1.6 without);
+    // pass rate 82.0 % in both modes.
+    let xs = steps(0.0, 99.0, 1.0);
+    let field = curve_field(&xs, |x| if x < 80.0 { 100.0 } else { 110.0 });
+    let pts: Vec<[f64; 3]> = xs.iter().map(|&x| [x, 0.0, 0.0]).collect();
+    let doses = vec![100.0; xs.len()];
+    let c = crit(3.0, 2.5, 100.0, false);
+    for (method, want) in [
+        (Method::Exact, [0.3972, 0.7943, 1.1915, 1.5886]),
+        (Method::Nodes, [0.4, 0.8, 1.2, 1.6]),
+    ] {
+        let g = compute(&field, &pts, &doses, &[c], &[10.0], method);
+        for (j, w) in want.iter().enumerate() {
+            assert_close(
+                g[80 + j],
+                *w,
+                5e-5,
+                &format!("{method:?} gamma at {} mm", 80 + j),
+            );
+        }
+        let s = stats::summarise(g.iter().copied());
+        assert_close(
+            s.pass_rate_percent,
+            82.0,
+            1e-9,
+            &format!("{method:?} pass rate"),
+        );
+    }
+}
+
+fn grid(xs: &[f64], ys: &[f64], zs: &[f64], f: impl Fn(f64, f64, f64) -> f64) -> Grid {
+    let mut dose = Vec::new();
+    for &z in zs {
+        for &y in ys {
+            for &x in xs {
+                dose.push(f(x, y, z));
+            }
+        }
+    }
+    Grid {
+        x_mm: xs.to_vec(),
+        y_mm: ys.to_vec(),
+        z_mm: zs.to_vec(),
+        dose,
+    }
+}
+
+#[test]
+fn shift_perpendicular_to_a_2d_ramp_is_ignored() {
+    // G12: ramp along x (g = 1), evaluated shifted by (3, 4) mm: gamma 1/sqrt(2), the y shift
+    // changes nothing.
+    let xs = steps(-20.0, 20.0, 1.0);
+    let g = grid(&xs, &xs, &[0.0], |x, _, _| 500.0 + (x - 3.0));
+    let field = Field::from_grid(&g).expect("field");
+    let got = compute(
+        &field,
+        &[[0.0, 4.0, 0.0]],
+        &[500.0],
+        &[crit(3.0, 3.0, 100.0, false)],
+        &[0.0],
+        Method::Exact,
+    )[0];
+    assert_close(got, 1.0 / 2f64.sqrt(), 1e-9, "G12");
+}
+
+#[test]
+fn oblique_ramp_in_3d_is_exact() {
+    // Ramp along n = (1, 2, 2)/3 with g = 1 /mm, shifted 3 mm along n: 1/sqrt(2) at
+    // 3 %/3 mm (norm 100); simplicial interpolation reproduces a linear dose exactly, so the
+    // exact search must find the analytic value on a 1 mm grid and on a coarse 2.5 mm grid.
+    for step in [1.0, 2.5] {
+        let xs = steps(-15.0, 15.0, step);
+        let n = [1.0 / 3.0, 2.0 / 3.0, 2.0 / 3.0];
+        let g = grid(&xs, &xs, &xs, |x, y, z| {
+            500.0 + (n[0] * x + n[1] * y + n[2] * z - 3.0)
+        });
+        let field = Field::from_grid(&g).expect("field");
+        for p in [[0.0, 0.0, 0.0], [1.3, -0.7, 2.2]] {
+            let d_ref = 500.0 + n[0] * p[0] + n[1] * p[1] + n[2] * p[2];
+            let got = compute(
+                &field,
+                &[p],
+                &[d_ref],
+                &[crit(3.0, 3.0, 100.0, false)],
+                &[0.0],
+                Method::Exact,
+            )[0];
+            assert_close(
+                got,
+                1.0 / 2f64.sqrt(),
+                1e-9,
+                &format!("3D ramp, step {step}, at {p:?}"),
+            );
+        }
+    }
+}
+
+/// Deterministic pseudo-random numbers (64-bit LCG, Knuth MMIX constants), for test fields.
+struct Lcg(u64);
+impl Lcg {
+    fn next(&mut self) -> f64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        (self.0 >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
+
+/// A smooth field: a few Gaussian blobs with seeded centres.
+fn blobs(seed: u64, dims: usize) -> impl Fn(f64, f64, f64) -> f64 {
+    let mut r = Lcg(seed);
+    let centres: Vec<[f64; 4]> = (0..4)
+        .map(|_| {
+            [
+                r.next() * 16.0 - 8.0,
+                r.next() * 16.0 - 8.0,
+                if dims == 3 { r.next() * 8.0 - 4.0 } else { 0.0 },
+                40.0 + 60.0 * r.next(),
+            ]
+        })
+        .collect();
+    move |x, y, z| {
+        5.0 + centres
+            .iter()
+            .map(|c| {
+                c[3] * (-((x - c[0]).powi(2) + (y - c[1]).powi(2) + (z - c[2]).powi(2)) / 30.0)
+                    .exp()
+            })
+            .sum::<f64>()
+    }
+}
+
+/// Gamma by exhaustive search: the exact distance to every simplex of every cell that reaches
+/// within the search radius, with no ordering, bound or early termination.
+fn exhaustive(field: &Field, p: [f64; 3], d_ref: f64, c: Criterion) -> f64 {
+    let u = field.local(p).expect("inside");
+    let k = field.k;
+    let dd = c.delta_dose(d_ref);
+    let mut best = f64::INFINITY;
+    let n: Vec<usize> = (0..k).map(|a| field.axes[a].len() - 1).collect();
+    let total: usize = n.iter().product();
+    for flat in 0..total {
+        let mut cell = [0usize; 3];
+        let mut rest = flat;
+        for a in 0..k {
+            cell[a] = rest % n[a];
+            rest /= n[a];
+        }
+        let d2: f64 = (0..k)
+            .map(|a| {
+                let (x0, x1) = (field.axes[a][cell[a]], field.axes[a][cell[a] + 1]);
+                (x0 - u[a]).max(u[a] - x1).max(0.0).powi(2)
+            })
+            .sum();
+        if d2.sqrt() > c.max_search_mm {
+            continue;
+        }
+        for order in crate::field::kuhn_orders(k) {
+            let mut w = [[0.0; 4]; 4];
+            let mut node = cell;
+            for j in 0..=k {
+                if j > 0 {
+                    node[order[j - 1]] += 1;
+                }
+                for a in 0..k {
+                    w[j][a] = (field.axes[a][node[a]] - u[a]) / c.dta_mm;
+                }
+                w[j][k] = (field.node(&node) - d_ref) / dd;
+            }
+            best = best.min(crate::search::min_norm_sq(
+                &w,
+                &[0, 1, 2, 3][..k + 1],
+                k + 1,
+            ));
+        }
+    }
+    best.sqrt()
+}
+
+/// Gamma by dense sampling of the same interpolant over the search disc or ball: it can only
+/// find values at or above the exact minimum.
+fn sampled(field: &Field, p: [f64; 3], d_ref: f64, c: Criterion, step: f64) -> f64 {
+    let r = c.max_search_mm;
+    let m = (r / step).ceil() as i64;
+    let dd = c.delta_dose(d_ref);
+    let k = field.k as i64;
+    let range = |a: i64| if a < k { -m..=m } else { 0..=0 };
+    let mut best = f64::INFINITY;
+    for i in range(0) {
+        for j in range(1) {
+            for l in range(2) {
+                let off = [i as f64 * step, j as f64 * step, l as f64 * step];
+                let dist2 = off.iter().map(|o| o * o).sum::<f64>();
+                if dist2 > r * r {
+                    continue;
+                }
+                if let Some(u) = field.local([p[0] + off[0], p[1] + off[1], p[2] + off[2]]) {
+                    best = best.min(
+                        dist2 / (c.dta_mm * c.dta_mm)
+                            + ((field.interpolate(&u) - d_ref) / dd).powi(2),
+                    );
+                }
+            }
+        }
+    }
+    best.sqrt()
+}
+
+#[test]
+fn exact_search_agrees_with_exhaustive_search_in_2d_and_3d() {
+    // The ordered, bounded search must return what an exhaustive search over every simplex
+    // returns; dense sampling of the same interpolant can only find larger values.
+    for dims in [2usize, 3] {
+        let xs = steps(-10.0, 10.0, 2.0);
+        let zs = if dims == 3 {
+            steps(-4.0, 4.0, 2.0)
+        } else {
+            vec![0.0]
+        };
+        let f = blobs(7, dims);
+        let eval = grid(&xs, &xs, &zs, |x, y, z| 1.02 * f(x - 0.7, y + 0.4, z));
+        let field = Field::from_grid(&eval).expect("field");
+        let mut r = Lcg(99);
+        for c in [
+            crit(3.0, 2.0, 100.0, false),
+            crit(2.0, 2.0, 100.0, false),
+            crit(3.0, 3.0, 100.0, true),
+        ] {
+            let (mut pass_exact, mut pass_ref) = (0usize, 0usize);
+            let n = 40;
+            for _ in 0..n {
+                let p = [
+                    r.next() * 16.0 - 8.0,
+                    r.next() * 16.0 - 8.0,
+                    if dims == 3 { r.next() * 6.0 - 3.0 } else { 0.0 },
+                ];
+                let d_ref = f(p[0], p[1], p[2]);
+                let exact = compute(&field, &[p], &[d_ref], &[c], &[0.0], Method::Exact)[0];
+                let reference = exhaustive(&field, p, d_ref, c);
+                assert!(
+                    (exact - reference).abs() <= 1e-9,
+                    "{dims}D: search {exact} vs exhaustive {reference} at {p:?}"
+                );
+                if dims == 2 {
+                    let s = sampled(&field, p, d_ref, c, 0.1);
+                    assert!(
+                        s >= exact - 1e-9,
+                        "sampling beat the exact minimum at {p:?}: {s} < {exact}"
+                    );
+                }
+                pass_exact += usize::from(exact <= 1.0);
+                pass_ref += usize::from(reference <= 1.0);
+            }
+            assert_eq!(pass_exact, pass_ref, "{dims}D pass counts of {n}");
+        }
+    }
+}
+
+#[test]
+fn identical_distributions_give_zero_everywhere() {
+    let xs = steps(-10.0, 10.0, 2.0);
+    let g = grid(&xs, &xs, &[0.0], blobs(3, 2));
+    let field = Field::from_grid(&g).expect("field");
+    let pts: Vec<[f64; 3]> = (0..g.dose.len())
+        .map(|i| [g.x_mm[i % xs.len()], g.y_mm[i / xs.len()], 0.0])
+        .collect();
+    let out = compute(
+        &field,
+        &pts,
+        &g.dose,
+        &[crit(2.0, 2.0, 100.0, false)],
+        &[0.0],
+        Method::Exact,
+    );
+    assert!(out.iter().all(|&v| v == 0.0), "{out:?}");
+}
+
+#[test]
+fn pass_rate_never_drops_as_criteria_loosen() {
+    let xs = steps(-10.0, 10.0, 1.0);
+    let f = blobs(11, 2);
+    let reference = grid(&xs, &xs, &[0.0], &f);
+    let eval = grid(&xs, &xs, &[0.0], |x, y, z| 1.03 * f(x - 1.5, y, z));
+    let field = Field::from_grid(&eval).expect("field");
+    let pts: Vec<[f64; 3]> = (0..reference.dose.len())
+        .map(|i| [xs[i % xs.len()], xs[i / xs.len()], 0.0])
+        .collect();
+    let norm = reference.dose.iter().copied().fold(0.0, f64::max);
+    // Ordered from strictest to loosest; each loosens dose, distance or both.
+    let crits = [
+        crit(1.0, 1.0, norm, false),
+        crit(2.0, 1.0, norm, false),
+        crit(2.0, 2.0, norm, false),
+        crit(3.0, 2.0, norm, false),
+        crit(3.0, 3.0, norm, false),
+        crit(4.0, 4.0, norm, false),
+    ];
+    let th = vec![0.1 * norm; crits.len()];
+    let out = compute(&field, &pts, &reference.dose, &crits, &th, Method::Exact);
+    let rates: Vec<f64> = (0..crits.len())
+        .map(|c| {
+            stats::summarise(out.iter().skip(c).step_by(crits.len()).copied()).pass_rate_percent
+        })
+        .collect();
+    assert!(rates.windows(2).all(|w| w[0] <= w[1]), "{rates:?}");
+    assert!(
+        rates[0] < rates[5],
+        "the sweep should span different pass rates: {rates:?}"
+    );
+    // One search for six criteria equals six separate searches.
+    for (c, cr) in crits.iter().enumerate() {
+        let single = compute(
+            &field,
+            &pts,
+            &reference.dose,
+            &[*cr],
+            &th[..1],
+            Method::Exact,
+        );
+        for i in 0..pts.len() {
+            let (a, b) = (single[i], out[i * crits.len() + c]);
+            assert!(
+                a == b || (a.is_nan() && b.is_nan()),
+                "criterion {c} point {i}: {a} vs {b}"
+            );
+        }
+    }
+}
