@@ -30,7 +30,8 @@ def depth_factor(d_mm):
 def edge(u_mm, half_mm, sigma_mm=3.0):
     a = (half_mm - u_mm) / (math.sqrt(2) * sigma_mm)
     b = (half_mm + u_mm) / (math.sqrt(2) * sigma_mm)
-    return 0.25 * (1 + math.erf(a)) * (1 + math.erf(b)) * (1 + 0.0004 * u_mm * u_mm / 10)
+    # Open-field shape with slight horns, plus a 3 % scatter tail outside the field.
+    return 0.97 * 0.25 * (1 + math.erf(a)) * (1 + math.erf(b)) * (1 + 0.0004 * u_mm * u_mm / 10) + 0.03
 
 
 def dose_iec(x, y, z, half=50.0):
@@ -116,4 +117,40 @@ for machine in ("lin-a", "lin-b"):
                  note=f"reference output, {machine}")
     rows = [(lbl, x, y, z, d * (1 + dev)) for (lbl, x, y, z, d), dev in zip(PROSTATE, PROSTATE_DEV[machine])]
     write_points(DATA / machine / "prostate-chamber.csv", rows, note=f"chamber in body phantom, {machine}")
+
+def write_plane(path, xs, ys, f, note):
+    lines = ["# beamproof-data: 1", "# shape: plane", "# plane: xy", "# plane-offset: 0", "# dose-unit: Gy",
+             "# position-unit: mm", f"# description: {note}", "y\\x," + ",".join(f"{x:.1f}" for x in xs)]
+    for y in ys:
+        lines.append(f"{y:.1f}," + ",".join(f"{f(x, y):.4f}" for x in xs))
+    path.write_text("\n".join(lines) + "\n")
+
+
+def write_curve(path, zs, f, note):
+    lines = ["# beamproof-data: 1", "# shape: curve", "# axis: depth", "# dose-unit: %", "# position-unit: mm",
+             f"# description: {note}", "position,dose"]
+    lines += [f"{d:.1f},{f(d):.3f}" for d in zs]
+    path.write_text("\n".join(lines) + "\n")
+
+
+# Film-like plane at the isocentre (coronal, IEC z = 0), 2 mm pixels, seeded noise; lin-b's
+# film shows a 1 mm shift towards +x and 1 % more dose.
+rng = np.random.default_rng(20261120)
+film_axis = [float(v) for v in np.arange(-70.0, 70.1, 2.0)]
+FILM = {"lin-a": (0.0, 1.000), "lin-b": (1.0, 1.010)}
+for machine, (shift, scale) in FILM.items():
+    noise = rng.normal(0.0, 0.006, size=(len(film_axis), len(film_axis)))
+    grid = {(x, y): noise[j, i] for j, y in enumerate(film_axis) for i, x in enumerate(film_axis)}
+    write_plane(DATA / machine / "film-6x-10x10.csv", film_axis, film_axis,
+                lambda x, y: scale * dose_iec(x - shift, y, 0.0) * (1 + grid[(x, y)]), f"film plane, {machine}")
+
+# Depth dose on the central axis, percent of the maximum: calculated from the model, measured
+# with seeded noise.
+depths = [float(v) for v in np.arange(0.0, 250.1, 2.0)]
+pdd_max = max(depth_factor(d) for d in depths)
+write_curve(DATA / "tps" / "pdd-6x-10x10.csv", depths, lambda d: 100 * depth_factor(d) / pdd_max, "calculated depth dose")
+for machine in ("lin-a", "lin-b"):
+    noise = dict(zip(depths, rng.normal(0.0, 0.002, size=len(depths))))
+    write_curve(DATA / machine / "pdd-6x-10x10.csv", depths, lambda d: 100 * depth_factor(d) / pdd_max * (1 + noise[d]),
+                f"water-tank depth dose, {machine}")
 print("demo data written to", DATA)

@@ -104,7 +104,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
-        o.stdout.ends_with("all 9 files match the manifest\n"),
+        o.stdout.ends_with("all 12 files match the manifest\n"),
         "{}",
         o.stdout
     );
@@ -113,7 +113,22 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         .lines()
         .filter_map(|l| l.split_once("  ").map(|(_, p)| p))
         .collect();
-    assert_eq!(files.len(), 9);
+    // The manifest covers the campaign, every input of the machine, the results and the report.
+    let expected = [
+        "inputs/campaign.yaml",
+        "inputs/data/lin-a/cax-6x-10x10.csv",
+        "inputs/data/lin-a/film-6x-10x10.csv",
+        "inputs/data/lin-a/output-6x.csv",
+        "inputs/data/lin-a/pdd-6x-10x10.csv",
+        "inputs/data/lin-a/prostate-chamber.csv",
+        "inputs/data/tps/open-6x-10x10.dcm",
+        "inputs/data/tps/output-6x.csv",
+        "inputs/data/tps/pdd-6x-10x10.csv",
+        "inputs/data/tps/prostate-points.csv",
+        "report.pdf",
+        "results.json",
+    ];
+    assert_eq!(files, expected);
     for f in &files {
         let path = out.join(f);
         let original = std::fs::read(&path).expect("read");

@@ -12,7 +12,10 @@ use crate::diag::{Diagnostic, error_chain};
 
 /// Every built-in analysis, in the order `beamproof plugins` lists them.
 fn built_ins() -> Vec<Box<dyn Analysis>> {
-    vec![Box::new(beamproof_plugin_point_dose::PointDose)]
+    vec![
+        Box::new(beamproof_plugin_point_dose::PointDose),
+        Box::new(beamproof_plugin_gamma::Gamma),
+    ]
 }
 
 /// Where a plugin came from.

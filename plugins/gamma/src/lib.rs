@@ -500,7 +500,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         format!("Global dose criteria are relative to {} {}.", trim_dose(b.crits[0].norm_dose), unit),
     ];
     if b.n_outside > 0 {
-        notes.push(format!("{} reference points lie outside the evaluated grid and were not evaluated (only the overlap is analysed).", b.n_outside));
+        notes.push(format!("Reference points outside the evaluated grid, not evaluated (only the overlap is analysed): {}.", b.n_outside));
     }
     let spacing = b.field.max_spacing();
     if b.method == Method::Nodes && b.crits.iter().any(|c| spacing > c.dta_mm / 3.0) {

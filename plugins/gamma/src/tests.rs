@@ -495,3 +495,201 @@ fn pass_rate_never_drops_as_criteria_loosen() {
         }
     }
 }
+
+mod plugin {
+    use super::*;
+    use beamproof_api::{
+        CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, Normalisation, PointSet,
+        TestInfo,
+    };
+    use std::collections::BTreeMap;
+
+    fn flat_grid(value: f64) -> Dataset {
+        let xs = steps(-10.0, 10.0, 1.0);
+        Dataset {
+            source: format!("flat-{value}"),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(grid(&xs, &xs, &[0.0], |_, _, _| value)),
+        }
+    }
+
+    fn input(
+        measured: Dataset,
+        calculated: Dataset,
+        reference: &str,
+        gamma: Vec<GammaCriterion>,
+    ) -> AnalysisInput {
+        AnalysisInput {
+            test: TestInfo {
+                site: "s".into(),
+                id: "t".into(),
+                name: "t".into(),
+                kind: TestKind::Plane,
+                machine: "m".into(),
+                beam: None,
+            },
+            params: BTreeMap::from([
+                ("reference".to_string(), serde_json::json!(reference)),
+                ("method".to_string(), serde_json::json!("exact")),
+                ("relative".to_string(), serde_json::json!(false)),
+            ]),
+            criteria: CriteriaSet {
+                name: "c".into(),
+                dose_difference_percent: None,
+                gamma,
+                metrics: BTreeMap::new(),
+            },
+            measured: Some(measured),
+            calculated: Some(calculated),
+        }
+    }
+
+    fn tg218(dose_percent: f64, dta_mm: f64) -> GammaCriterion {
+        GammaCriterion {
+            dose_percent,
+            dta_mm,
+            threshold_percent: 10.0,
+            normalisation: Normalisation::Global,
+            normalisation_dose_gy: None,
+            tolerance_pass_percent: 95.0,
+            action_pass_percent: 90.0,
+        }
+    }
+
+    fn metric(out: &AnalysisOutput, id: &str) -> f64 {
+        out.metrics
+            .iter()
+            .find(|m| m.id == id)
+            .map(|m| m.value)
+            .unwrap_or(f64::NAN)
+    }
+
+    #[test]
+    fn swapping_the_reference_changes_the_normalisation() {
+        // Flat 2.00 Gy measured against 2.04 Gy calculated, 3 %/2 mm global to the reference
+        // maximum: measured as reference, dD = 0.06 Gy and gamma = 0.04/0.06 = 2/3; calculated
+        // as reference, dD = 0.0612 Gy and gamma = 0.04/0.0612 = 0.6536 (gamma is not symmetric).
+        let out = Gamma
+            .analyse(&input(
+                flat_grid(2.0),
+                flat_grid(2.04),
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect("runs");
+        assert!((metric(&out, "gamma-max") - 2.0 / 3.0).abs() < 1e-9);
+        let out = Gamma
+            .analyse(&input(
+                flat_grid(2.0),
+                flat_grid(2.04),
+                "calculated",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect("runs");
+        assert!((metric(&out, "gamma-max") - 0.04 / 0.0612).abs() < 1e-9);
+        assert_eq!(out.status, Some(Status::Pass));
+    }
+
+    #[test]
+    fn pass_rate_is_judged_against_tolerance_and_action() {
+        // Flat 2.0 against 2.07: gamma = 0.07/0.06 = 1.17 everywhere, pass rate 0 %: FAIL.
+        let out = Gamma
+            .analyse(&input(
+                flat_grid(2.0),
+                flat_grid(2.07),
+                "measured",
+                vec![tg218(3.0, 2.0), tg218(4.0, 2.0)],
+            ))
+            .expect("runs");
+        assert_eq!(metric(&out, "pass-rate:3%/2mm-global"), 0.0);
+        assert_eq!(metric(&out, "pass-rate:4%/2mm-global"), 100.0);
+        assert_eq!(out.status, Some(Status::Fail));
+    }
+
+    #[test]
+    fn bad_inputs_are_errors_not_silent_passes() {
+        let no_gamma = Gamma
+            .analyse(&input(flat_grid(2.0), flat_grid(2.0), "measured", vec![]))
+            .expect_err("no criteria");
+        assert_eq!(
+            no_gamma.message,
+            "criteria set `c` has no `gamma` criteria, which the gamma analysis needs"
+        );
+        let mut negative = flat_grid(2.0);
+        if let DatasetData::Grid(g) = &mut negative.data {
+            g.dose[5] = -0.1;
+        }
+        let e = Gamma
+            .analyse(&input(
+                negative,
+                flat_grid(2.0),
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect_err("negative");
+        assert_eq!(
+            e.message,
+            "`flat-2` holds an invalid dose (-0.1) at value 6: doses must be finite and not negative"
+        );
+        let e = Gamma
+            .analyse(&input(
+                flat_grid(0.0),
+                flat_grid(2.0),
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect_err("zero");
+        assert_eq!(
+            e.message,
+            "the normalisation dose is zero: the reference holds no positive dose"
+        );
+        let far = Dataset {
+            source: "far.csv".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Points(PointSet {
+                labels: vec![String::new()],
+                x_mm: vec![50.0],
+                y_mm: vec![0.0],
+                z_mm: vec![0.0],
+                dose: vec![2.0],
+            }),
+        };
+        let e = Gamma
+            .analyse(&input(
+                far,
+                flat_grid(2.0),
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect_err("no overlap");
+        assert_eq!(
+            e.message,
+            "no overlap: no reference point of `far.csv` lies inside the evaluated grid of `flat-2`"
+        );
+    }
+
+    #[test]
+    fn points_outside_the_grid_are_reported_not_counted() {
+        let pts = Dataset {
+            source: "array.csv".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Points(PointSet {
+                labels: vec![String::new(); 3],
+                x_mm: vec![0.0, 5.0, 30.0],
+                y_mm: vec![0.0; 3],
+                z_mm: vec![0.0; 3],
+                dose: vec![2.0; 3],
+            }),
+        };
+        let out = Gamma
+            .analyse(&input(
+                pts,
+                flat_grid(2.0),
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect("runs");
+        assert_eq!(metric(&out, "points-evaluated"), 2.0);
+        assert!(out.notes.iter().any(|n| n == "Reference points outside the evaluated grid, not evaluated (only the overlap is analysed): 1."), "{:?}", out.notes);
+    }
+}
