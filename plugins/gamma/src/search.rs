@@ -145,7 +145,7 @@ pub fn gamma_at(
     let corners = 1usize << k;
     for &(d2, cell) in &scratch.cells {
         let d = d2.sqrt();
-        if (0..nc).all(|c| d / dt[c] >= out[c]) {
+        if (0..nc).all(|c| d2 / (dt[c] * dt[c]) >= out[c] * out[c]) {
             break;
         }
         // Corner doses and the cell's dose range.
@@ -188,27 +188,75 @@ pub fn gamma_at(
                 }
             }
             Method::Exact => {
-                for c in 0..nc {
-                    let lb2 = d2 / (dt[c] * dt[c]) + (dose_gap / dd[c]).powi(2);
-                    if lb2 >= out[c] * out[c] || d > crits[c].max_search_mm * (1.0 + 1e-12) {
-                        continue;
+                // Cell geometry shared by every simplex and criterion: origin, spacing, and the
+                // point's fractional coordinates (outside 0..1 when the point is outside).
+                let mut h = [0.0; MAX_DIMS];
+                let mut fu = [0.0; MAX_DIMS];
+                for a in 0..k {
+                    let x0 = field.axes[a][cell[a]];
+                    h[a] = field.axes[a][cell[a] + 1] - x0;
+                    fu[a] = (u[a] - x0) / h[a];
+                }
+                for order in kuhn_orders(k) {
+                    // The simplex's linear function: dose at the origin plus one step per axis
+                    // in Kuhn order; its gradient (dose per mm) and its value at the point.
+                    let mut g = [0.0; MAX_DIMS];
+                    let mut bits = 0usize;
+                    let mut lin_u = cd[0];
+                    let mut g_sq = 0.0;
+                    for j in 0..k {
+                        let a = order[j];
+                        let step = cd[bits | (1 << a)] - cd[bits];
+                        bits |= 1 << a;
+                        g[a] = step / h[a];
+                        g_sq += g[a] * g[a];
+                        lin_u += step * fu[a];
                     }
-                    for order in kuhn_orders(k) {
-                        // Simplex vertices in normalised coordinates relative to the point.
-                        let mut w = [[0.0; 4]; 4];
-                        let mut bits = 0usize;
-                        for (j, wj) in w.iter_mut().enumerate().take(k + 1) {
-                            if j > 0 {
-                                bits |= 1 << order[j - 1];
-                            }
-                            for a in 0..k {
-                                let x = field.axes[a][cell[a] + ((bits >> a) & 1)];
-                                wj[a] = (x - u[a]) / dt[c];
-                            }
-                            wj[k] = (cd[bits] - d_ref) / dd[c];
+                    let delta = lin_u - d_ref;
+                    for c in 0..nc {
+                        if d > crits[c].max_search_mm * (1.0 + 1e-12) {
+                            continue;
                         }
-                        let g2 = min_norm_sq(&w, &[0, 1, 2, 3][..k + 1], k + 1);
-                        if g2 < out[c] * out[c] {
+                        let lb2 = d2 / (dt[c] * dt[c]) + (dose_gap / dd[c]).powi(2);
+                        let best2 = out[c] * out[c];
+                        if lb2 >= best2 {
+                            continue;
+                        }
+                        // Distance to the simplex's hyperplane in normalised space: a lower
+                        // bound of the distance to the simplex, and equal to it when the foot
+                        // of the perpendicular lies inside the simplex.
+                        let denom = dd[c] * dd[c] + dt[c] * dt[c] * g_sq;
+                        let plane2 = delta * delta / denom;
+                        if plane2 >= best2 {
+                            continue;
+                        }
+                        let shift = dt[c] * dt[c] * delta / denom;
+                        let mut f = [0.0; MAX_DIMS];
+                        for a in 0..k {
+                            f[a] = fu[a] - shift * g[a] / h[a];
+                        }
+                        let inside = f[order[0]] <= 1.0
+                            && (1..k).all(|j| f[order[j - 1]] >= f[order[j]])
+                            && f[order[k - 1]] >= 0.0;
+                        let g2 = if inside {
+                            plane2
+                        } else {
+                            // The minimum lies on the simplex's boundary: exact search.
+                            let mut w = [[0.0; 4]; 4];
+                            let mut vb = 0usize;
+                            for (j, wj) in w.iter_mut().enumerate().take(k + 1) {
+                                if j > 0 {
+                                    vb |= 1 << order[j - 1];
+                                }
+                                for a in 0..k {
+                                    let x = field.axes[a][cell[a] + ((vb >> a) & 1)];
+                                    wj[a] = (x - u[a]) / dt[c];
+                                }
+                                wj[k] = (cd[vb] - d_ref) / dd[c];
+                            }
+                            min_norm_sq(&w, &[0, 1, 2, 3][..k + 1], k + 1)
+                        };
+                        if g2 < best2 {
                             out[c] = g2.max(0.0).sqrt();
                         }
                     }
