@@ -150,6 +150,9 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
     );
 }
 
+/// Name, grid size, criteria (dose %, DTA mm) and repeats of one benchmark case.
+type Case<'a> = (&'a str, [usize; 3], &'a [(f64, f64)], usize);
+
 fn main() {
     let filter: Vec<String> = std::env::args()
         .skip(1)
@@ -158,7 +161,7 @@ fn main() {
     let want = |n: &str| filter.is_empty() || filter.iter().any(|f| n.contains(f.as_str()));
     let single = [(3.0, 2.0)];
     let sweep = [(3.0, 2.0), (4.0, 4.0), (3.0, 3.0), (2.0, 2.0), (1.0, 1.0)];
-    let cases: [(&str, [usize; 3], &[(f64, f64)], usize); 5] = [
+    let cases: [Case; 5] = [
         ("1d-1000", [1000, 1, 1], &single, 50),
         ("2d-400", [400, 400, 1], &single, 5),
         ("3d-128", [128, 128, 128], &single, 1),
