@@ -2,6 +2,7 @@
 
 mod campaign_errors;
 mod dynamic_plugins;
+mod gamma_cmd;
 mod report_templates;
 mod rtdose_reader;
 mod runs;

@@ -142,7 +142,8 @@ pub enum PatientPosition {
 impl PatientPosition {
     pub const NAMES: [&'static str; 4] = ["HFS", "HFP", "FFS", "FFP"];
 
-    fn from_name(s: &str) -> Option<Self> {
+    /// Parse a DICOM Patient Position code.
+    pub fn from_name(s: &str) -> Option<Self> {
         match s {
             "HFS" => Some(Self::Hfs),
             "HFP" => Some(Self::Hfp),

@@ -144,114 +144,139 @@ impl Analysis for Gamma {
     }
 
     fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
-        let spec = &input.criteria.gamma;
-        if spec.is_empty() {
-            return Err(AnalysisError::new(format!(
-                "criteria set `{}` has no `gamma` criteria, which the gamma analysis needs",
-                input.criteria.name
-            )));
-        }
-        if spec.len() > MAX_CRITERIA {
-            return Err(AnalysisError::new(format!(
-                "at most {MAX_CRITERIA} gamma criteria per set, `{}` has {}",
-                input.criteria.name,
-                spec.len()
-            )));
-        }
-        let measured = input
-            .measured
-            .as_ref()
-            .ok_or_else(|| AnalysisError::new("gamma needs `measured` data"))?;
-        let calculated = input
-            .calculated
-            .as_ref()
-            .ok_or_else(|| AnalysisError::new("gamma needs `calculated` data"))?;
-        let calculated_is_reference = input.text("reference")? == "calculated";
-        let (reference, evaluated) = if calculated_is_reference {
-            (calculated, measured)
-        } else {
-            (measured, calculated)
-        };
-        let method = if input.text("method")? == "nodes" {
-            Method::Nodes
-        } else {
-            Method::Exact
-        };
-        let relative = input
-            .params
-            .get("relative")
-            .and_then(serde_json::Value::as_bool)
-            .unwrap_or(false);
-        let (points, mut ref_dose, ref_grid) = reference_points(reference)?;
-        let mut field = evaluated_field(evaluated, reference)?;
-        check_doses(&reference.source, &ref_dose)?;
-        check_doses(&evaluated.source, &field.dose)?;
-        let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
-        if relative {
-            let eval_max = field.dose.iter().copied().fold(0.0, f64::max);
-            if ref_max <= 0.0 || eval_max <= 0.0 {
-                return Err(AnalysisError::new(
-                    "a distribution has no positive dose to normalise to",
-                ));
-            }
-            ref_dose.iter_mut().for_each(|d| *d *= 100.0 / ref_max);
-            field.dose.iter_mut().for_each(|d| *d *= 100.0 / eval_max);
-        }
-        let unit = if relative {
-            DoseUnit::Percent
-        } else {
-            reference.unit
-        };
-        let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
-        let mut crits = Vec::new();
-        let mut thresholds = Vec::new();
-        for g in spec {
-            let norm = match g.normalisation_dose_gy {
-                Some(_) if unit != DoseUnit::Gy => {
-                    return Err(AnalysisError::new(
-                        "`normalisation-dose-gy` needs absolute dose in Gy; remove it or set `relative: false`",
-                    ));
-                }
-                Some(d) => d,
-                None => ref_max,
-            };
-            if norm <= 0.0 {
-                return Err(AnalysisError::new(
-                    "the normalisation dose is zero: the reference holds no positive dose",
-                ));
-            }
-            let max_search = input.number_opt("max-search-mm").unwrap_or(3.0 * g.dta_mm);
-            crits.push(Criterion {
-                dose_fraction: g.dose_percent / 100.0,
-                dta_mm: g.dta_mm,
-                local: g.normalisation == Normalisation::Local,
-                norm_dose: norm,
-                max_search_mm: max_search,
-            });
-            thresholds.push(g.threshold_percent / 100.0 * norm);
-        }
-        let n_outside = points.iter().filter(|p| field.local(**p).is_none()).count();
-        if n_outside == points.len() {
-            return Err(AnalysisError::new(format!(
-                "no overlap: no reference point of `{}` lies inside the evaluated grid of `{}`",
-                reference.source, evaluated.source
-            )));
-        }
-        let gammas = compute(&field, &points, &ref_dose, &crits, &thresholds, method);
-        Ok(build_output(&BuildInput {
-            spec,
-            crits: &crits,
-            gammas: &gammas,
-            points: &points,
-            ref_dose: &ref_dose,
-            field: &field,
-            ref_grid: ref_grid.as_ref(),
-            method,
-            n_outside,
-            unit,
-            calculated_is_reference,
-        }))
+        analyse_with_points(input).map(|(out, _)| out)
     }
+}
+
+/// Gamma of every reference point for the first criterion (NaN where not evaluated).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PointGammas {
+    pub points: Vec<[f64; 3]>,
+    pub reference_dose: Vec<f64>,
+    pub gamma: Vec<f64>,
+}
+
+/// The analysis, also returning the per-point gamma values (for maps written to files).
+pub fn analyse_with_points(
+    input: &AnalysisInput,
+) -> Result<(AnalysisOutput, PointGammas), AnalysisError> {
+    let spec = &input.criteria.gamma;
+    if spec.is_empty() {
+        return Err(AnalysisError::new(format!(
+            "criteria set `{}` has no `gamma` criteria, which the gamma analysis needs",
+            input.criteria.name
+        )));
+    }
+    if spec.len() > MAX_CRITERIA {
+        return Err(AnalysisError::new(format!(
+            "at most {MAX_CRITERIA} gamma criteria per set, `{}` has {}",
+            input.criteria.name,
+            spec.len()
+        )));
+    }
+    let measured = input
+        .measured
+        .as_ref()
+        .ok_or_else(|| AnalysisError::new("gamma needs `measured` data"))?;
+    let calculated = input
+        .calculated
+        .as_ref()
+        .ok_or_else(|| AnalysisError::new("gamma needs `calculated` data"))?;
+    let calculated_is_reference = input.text("reference")? == "calculated";
+    let (reference, evaluated) = if calculated_is_reference {
+        (calculated, measured)
+    } else {
+        (measured, calculated)
+    };
+    let method = if input.text("method")? == "nodes" {
+        Method::Nodes
+    } else {
+        Method::Exact
+    };
+    let relative = input
+        .params
+        .get("relative")
+        .and_then(serde_json::Value::as_bool)
+        .unwrap_or(false);
+    let (points, mut ref_dose, ref_grid) = reference_points(reference)?;
+    let mut field = evaluated_field(evaluated, reference)?;
+    check_doses(&reference.source, &ref_dose)?;
+    check_doses(&evaluated.source, &field.dose)?;
+    let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
+    if relative {
+        let eval_max = field.dose.iter().copied().fold(0.0, f64::max);
+        if ref_max <= 0.0 || eval_max <= 0.0 {
+            return Err(AnalysisError::new(
+                "a distribution has no positive dose to normalise to",
+            ));
+        }
+        ref_dose.iter_mut().for_each(|d| *d *= 100.0 / ref_max);
+        field.dose.iter_mut().for_each(|d| *d *= 100.0 / eval_max);
+    }
+    let unit = if relative {
+        DoseUnit::Percent
+    } else {
+        reference.unit
+    };
+    let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
+    let mut crits = Vec::new();
+    let mut thresholds = Vec::new();
+    for g in spec {
+        let norm = match g.normalisation_dose_gy {
+            Some(_) if unit != DoseUnit::Gy => {
+                return Err(AnalysisError::new(
+                    "`normalisation-dose-gy` needs absolute dose in Gy; remove it or set `relative: false`",
+                ));
+            }
+            Some(d) => d,
+            None => ref_max,
+        };
+        if norm <= 0.0 {
+            return Err(AnalysisError::new(
+                "the normalisation dose is zero: the reference holds no positive dose",
+            ));
+        }
+        let max_search = input.number_opt("max-search-mm").unwrap_or(3.0 * g.dta_mm);
+        crits.push(Criterion {
+            dose_fraction: g.dose_percent / 100.0,
+            dta_mm: g.dta_mm,
+            local: g.normalisation == Normalisation::Local,
+            norm_dose: norm,
+            max_search_mm: max_search,
+        });
+        thresholds.push(g.threshold_percent / 100.0 * norm);
+    }
+    let n_outside = points.iter().filter(|p| field.local(**p).is_none()).count();
+    if n_outside == points.len() {
+        return Err(AnalysisError::new(format!(
+            "no overlap: no reference point of `{}` lies inside the evaluated grid of `{}`",
+            reference.source, evaluated.source
+        )));
+    }
+    let gammas = compute(&field, &points, &ref_dose, &crits, &thresholds, method);
+    let out = build_output(&BuildInput {
+        spec,
+        crits: &crits,
+        gammas: &gammas,
+        points: &points,
+        ref_dose: &ref_dose,
+        field: &field,
+        ref_grid: ref_grid.as_ref(),
+        method,
+        n_outside,
+        unit,
+        calculated_is_reference,
+    });
+    let n = crits.len();
+    let gamma = gammas.iter().step_by(n).copied().collect();
+    Ok((
+        out,
+        PointGammas {
+            points,
+            reference_dose: ref_dose,
+            gamma,
+        },
+    ))
 }
 
 /// Reference points, their doses, and the grid itself when the reference is a 2D grid (maps).

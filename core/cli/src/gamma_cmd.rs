@@ -1,0 +1,247 @@
+//! `beamproof gamma REF EVAL`: a one-off gamma comparison of two files outside a campaign,
+//! through the same gamma plugin a campaign uses. Prints the results and optionally writes the
+//! gamma value of every reference point as CSV.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use beamproof_api::{
+    AnalysisInput, CriteriaSet, CurveAxis, DatasetData, GammaCriterion, Normalisation, Status,
+    TestInfo, TestKind,
+};
+use beamproof_engine::campaign::{DicomPlacement, PatientPosition};
+use beamproof_engine::diag::Diagnostic;
+use beamproof_engine::readers::read_dataset;
+
+use crate::{EXIT_CANNOT_RUN, EXIT_GO, EXIT_NO_GO, Failure, Io};
+
+/// Options of the `gamma` command.
+pub struct GammaArgs {
+    pub reference: PathBuf,
+    pub evaluated: PathBuf,
+    pub criteria: Vec<String>,
+    pub local: bool,
+    pub threshold: f64,
+    pub map: Option<PathBuf>,
+    pub patient_position: String,
+    pub isocentre: Option<String>,
+    pub method: String,
+    pub relative: bool,
+}
+
+fn usage(msg: String, help: &str) -> Failure {
+    Failure {
+        text: format!("error: {msg}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    }
+}
+
+/// Parse `3%/2mm` (or `3/2`) into (dose percent, DTA mm).
+pub fn parse_criterion(s: &str) -> Option<(f64, f64)> {
+    let (d, t) = s.split_once('/')?;
+    let d: f64 = d.trim().trim_end_matches('%').trim().parse().ok()?;
+    let t: f64 = t.trim().trim_end_matches("mm").trim().parse().ok()?;
+    (d > 0.0 && d <= 100.0 && t > 0.0 && t <= 100.0 && d.is_finite() && t.is_finite())
+        .then_some((d, t))
+}
+
+fn parse_isocentre(s: &str) -> Option<[f64; 3]> {
+    let v: Vec<f64> = s
+        .split(',')
+        .map(|p| p.trim().parse::<f64>().ok().filter(|x| x.is_finite()))
+        .collect::<Option<_>>()?;
+    (v.len() == 3).then(|| [v[0], v[1], v[2]])
+}
+
+pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
+    let criteria: Vec<(f64, f64)> = a
+        .criteria
+        .iter()
+        .map(|c| parse_criterion(c).ok_or_else(|| usage(format!("criterion `{c}` is not DOSE%/DTAmm"), "write for example --criteria 3%/2mm (dose in percent, distance in mm, both above 0)")))
+        .collect::<Result<_, _>>()?;
+    if !(0.0..100.0).contains(&a.threshold) {
+        return Err(usage(
+            format!("threshold {} % is outside 0..100", a.threshold),
+            "give the low-dose threshold in percent of the normalisation dose, e.g. --threshold 10",
+        ));
+    }
+    let position = PatientPosition::from_name(&a.patient_position).ok_or_else(|| {
+        usage(
+            format!("unknown patient position `{}`", a.patient_position),
+            "one of HFS, HFP, FFS, FFP",
+        )
+    })?;
+    let is_dicom = |p: &Path| p.extension().is_some_and(|e| e.eq_ignore_ascii_case("dcm"));
+    let isocentre = match (
+        &a.isocentre,
+        is_dicom(&a.reference) && is_dicom(&a.evaluated),
+    ) {
+        (Some(s), _) => Some(parse_isocentre(s).ok_or_else(|| {
+            usage(
+                format!("isocentre `{s}` is not X,Y,Z"),
+                "write three numbers in mm, e.g. --isocentre 10,-50,25",
+            )
+        })?),
+        // Two DICOM grids share one coordinate system: any common placement compares them.
+        (None, true) => Some([0.0; 3]),
+        (None, false) if is_dicom(&a.reference) || is_dicom(&a.evaluated) => {
+            return Err(usage(
+                "a DICOM dose compared with CSV data needs the isocentre".into(),
+                "add --isocentre X,Y,Z (the isocentre in the DICOM file's patient coordinates, mm) and --patient-position if not HFS",
+            ));
+        }
+        (None, false) => None,
+    };
+    let placement = isocentre.map(|iso| DicomPlacement {
+        patient_position: position,
+        isocentre_mm: iso,
+    });
+    let read = |p: &Path| -> Result<beamproof_api::Dataset, Failure> {
+        let pl = if is_dicom(p) {
+            placement.as_ref()
+        } else {
+            None
+        };
+        read_dataset(p, &p.display().to_string(), pl).map_err(|d: Diagnostic| Failure::from(d))
+    };
+    let reference = read(&a.reference)?;
+    let evaluated = read(&a.evaluated)?;
+    if reference.unit != evaluated.unit && !a.relative {
+        return Err(usage(
+            format!(
+                "mismatched dose units: `{}` is in {}, `{}` in {}",
+                reference.source,
+                reference.unit.label(),
+                evaluated.source,
+                evaluated.unit.label()
+            ),
+            "compare absolute with absolute dose, or add --relative to normalise both to their maximum",
+        ));
+    }
+    let kind = match &reference.data {
+        DatasetData::Curve(c) if c.axis == CurveAxis::Depth => TestKind::DepthDose,
+        DatasetData::Curve(_) => TestKind::Profile,
+        DatasetData::Points(_) => TestKind::PointSet,
+        DatasetData::Grid(g) if g.dimensions() == 3 => TestKind::Volume,
+        DatasetData::Grid(_) => TestKind::Plane,
+    };
+    let gamma = criteria
+        .iter()
+        .map(|&(dose_percent, dta_mm)| GammaCriterion {
+            dose_percent,
+            dta_mm,
+            threshold_percent: a.threshold,
+            normalisation: if a.local {
+                Normalisation::Local
+            } else {
+                Normalisation::Global
+            },
+            normalisation_dose_gy: None,
+            tolerance_pass_percent: 95.0,
+            action_pass_percent: 90.0,
+        })
+        .collect();
+    let input = AnalysisInput {
+        test: TestInfo {
+            site: "one-off".into(),
+            id: "gamma".into(),
+            name: "gamma".into(),
+            kind,
+            machine: String::new(),
+            beam: None,
+        },
+        params: BTreeMap::from([
+            ("reference".to_string(), serde_json::json!("measured")),
+            ("method".to_string(), serde_json::json!(a.method)),
+            ("relative".to_string(), serde_json::json!(a.relative)),
+        ]),
+        criteria: CriteriaSet {
+            name: "command line".into(),
+            dose_difference_percent: None,
+            gamma,
+            metrics: BTreeMap::new(),
+        },
+        measured: Some(reference.clone()),
+        calculated: Some(evaluated),
+    };
+    let (output, per_point) = beamproof_plugin_gamma::analyse_with_points(&input).map_err(|e| {
+        usage(
+            format!("gamma could not be computed: {e}"),
+            "check that the two files overlap and hold valid doses",
+        )
+    })?;
+    outln(
+        io,
+        &format!(
+            "reference {} ({}), evaluated {}",
+            reference.source,
+            reference.shape_name(),
+            a.evaluated.display()
+        ),
+    );
+    for t in &output.tables {
+        outln(io, &format!("\n{}", t.title));
+        outln(io, &t.columns.join(" | "));
+        for r in &t.rows {
+            outln(io, &r.join(" | "));
+        }
+    }
+    outln(io, "");
+    for n in &output.notes {
+        outln(io, n);
+    }
+    outln(
+        io,
+        "levels: tolerance 95 % and action 90 % passing (AAPM TG-218 defaults)",
+    );
+    outln(
+        io,
+        "caution: results must be reviewed by a qualified medical physicist; beamproof is not a medical device.",
+    );
+    if let Some(path) = &a.map {
+        write_map(path, &per_point)?;
+        outln(io, &format!("gamma map written to {}", path.display()));
+    }
+    Ok(if output.overall_status() >= Status::Fail {
+        EXIT_NO_GO
+    } else {
+        EXIT_GO
+    })
+}
+
+fn outln(io: &mut Io, line: &str) {
+    let _ = writeln!(io.out, "{line}");
+}
+
+/// Write `x,y,z,reference dose,gamma` for every reference point (first criterion; empty gamma
+/// where the point was not evaluated), through a temporary file renamed into place; an existing
+/// file is never replaced.
+fn write_map(path: &Path, g: &beamproof_plugin_gamma::PointGammas) -> Result<(), Failure> {
+    if path.exists() {
+        return Err(usage(
+            format!("{} already exists", path.display()),
+            "choose another --map file; existing files are never replaced",
+        ));
+    }
+    let mut text = String::from("x_mm,y_mm,z_mm,reference_dose,gamma\n");
+    for ((p, d), v) in g.points.iter().zip(&g.reference_dose).zip(&g.gamma) {
+        let gamma = if v.is_nan() {
+            String::new()
+        } else {
+            format!("{v:.4}")
+        };
+        text.push_str(&format!("{},{},{},{d},{gamma}\n", p[0], p[1], p[2]));
+    }
+    let tmp = path.with_extension("partial");
+    let fail = |e: std::io::Error| {
+        usage(
+            format!("cannot write {}: {e}", path.display()),
+            "check the folder exists and is writable",
+        )
+    };
+    std::fs::write(&tmp, text).map_err(fail)?;
+    std::fs::rename(&tmp, path).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        fail(e)
+    })
+}

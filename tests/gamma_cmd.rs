@@ -1,0 +1,120 @@
+//! `beamproof gamma REF EVAL`: the one-off comparison outside a campaign.
+
+use std::path::{Path, PathBuf};
+
+use crate::support::{cli, relative, root, scratch};
+
+fn flat_curve(dir: &Path, name: &str, dose: f64) -> PathBuf {
+    let mut text = String::from(
+        "# beamproof-data: 1\n# shape: curve\n# axis: x\n# dose-unit: %\n# position-unit: mm\nposition,dose\n",
+    );
+    for x in -40..=40 {
+        text.push_str(&format!("{x},{dose}\n"));
+    }
+    let path = dir.join(name);
+    std::fs::write(&path, text).expect("write");
+    path
+}
+
+#[test]
+fn flat_curves_give_the_dose_difference_over_the_criterion() {
+    // Flat 100 % against flat 102 % at 3 %/2 mm global (normalised to the reference maximum,
+    // 100 %): gamma = 2/3 at every point (Low et al 1998, flat region: dose difference / dD).
+    let dir = scratch("gamma-cmd-flat");
+    let r = flat_curve(&dir, "r.csv", 100.0);
+    let e = flat_curve(&dir, "e.csv", 102.0);
+    let map = dir.join("map.csv");
+    let o = cli(&[
+        "gamma",
+        r.to_str().expect("utf8"),
+        e.to_str().expect("utf8"),
+        "--map",
+        map.to_str().expect("utf8"),
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert!(
+        o.stdout.contains(
+            "\n3%/2mm global | 10 | 81 | 100.0 | 0.67 | 0.67 | 0.67 | 0.67 | 0.67 | PASS\n"
+        ),
+        "{}",
+        o.stdout
+    );
+    let text = std::fs::read_to_string(&map).expect("map");
+    assert_eq!(
+        text.lines().next(),
+        Some("x_mm,y_mm,z_mm,reference_dose,gamma")
+    );
+    assert_eq!(text.lines().nth(1), Some("-40,0,0,100,0.6667"));
+    assert_eq!(text.lines().count(), 82);
+    // The map is never replaced.
+    let again = cli(&[
+        "gamma",
+        r.to_str().expect("utf8"),
+        e.to_str().expect("utf8"),
+        "--map",
+        map.to_str().expect("utf8"),
+    ]);
+    assert_eq!(again.code, 2);
+    assert!(again.stderr.ends_with("already exists\n  = help: choose another --map file; existing files are never replaced\n"), "{}", again.stderr);
+}
+
+#[test]
+fn a_failing_comparison_exits_with_one() {
+    // Flat 104.5 % against 100 %: gamma = 4.5/3 = 1.5 everywhere, no point passes.
+    let dir = scratch("gamma-cmd-fail");
+    let r = flat_curve(&dir, "r.csv", 100.0);
+    let e = flat_curve(&dir, "e.csv", 104.5);
+    let o = cli(&[
+        "gamma",
+        r.to_str().expect("utf8"),
+        e.to_str().expect("utf8"),
+        "--criteria",
+        "3%/3mm",
+    ]);
+    assert_eq!(o.code, 1);
+    assert!(
+        o.stdout.contains(
+            "\n3%/3mm global | 10 | 81 | 0.0 | 1.50 | 1.50 | 1.50 | 1.50 | 1.50 | FAIL\n"
+        ),
+        "{}",
+        o.stdout
+    );
+}
+
+#[test]
+fn identical_dicom_grids_agree_everywhere() {
+    let f = root().join("tests/fixtures/rtdose/grid3d_implicit.dcm");
+    let o = cli(&[
+        "gamma",
+        f.to_str().expect("utf8"),
+        f.to_str().expect("utf8"),
+        "--criteria",
+        "2%/2mm",
+        "--local",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert!(o.stdout.contains("2%/2mm local | 10 | "), "{}", o.stdout);
+    assert!(
+        o.stdout
+            .contains(" | 100.0 | 0.00 | 0.00 | 0.00 | 0.00 | 0.00 | PASS\n"),
+        "{}",
+        o.stdout
+    );
+}
+
+#[test]
+fn dicom_against_csv_needs_the_isocentre() {
+    let dir = scratch("gamma-cmd-iso");
+    let r = flat_curve(&dir, "r.csv", 100.0);
+    let f = root().join("tests/fixtures/rtdose/grid3d_implicit.dcm");
+    let o = cli(&[
+        "gamma",
+        r.to_str().expect("utf8"),
+        f.to_str().expect("utf8"),
+    ]);
+    assert_eq!(o.code, 2);
+    assert_eq!(
+        relative(&o.stderr, &dir),
+        "error: a DICOM dose compared with CSV data needs the isocentre\n  = help: add --isocentre X,Y,Z (the isocentre in the DICOM file's patient coordinates, mm) and --patient-position if not HFS\n"
+    );
+}
