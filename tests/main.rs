@@ -3,6 +3,7 @@
 mod campaign_errors;
 mod dynamic_plugins;
 mod gamma_cmd;
+mod gamma_crosscheck;
 mod report_templates;
 mod rtdose_reader;
 mod runs;
