@@ -143,6 +143,32 @@ pub fn gamma_at(
     scratch.cells.sort_unstable_by(|p, q| p.0.total_cmp(&q.0));
 
     let corners = 1usize << k;
+    if method == Method::Exact {
+        // Nodes are vertices of the interpolant: their values are achievable, and evaluating
+        // them first gives a tight bound that lets most simplices be skipped below.
+        for &(d2, cell) in &scratch.cells {
+            if (0..nc).all(|c| d2 / (dt[c] * dt[c]) >= out[c] * out[c]) {
+                break;
+            }
+            for bits in 0..corners {
+                let mut n = cell;
+                let mut s2 = 0.0;
+                for a in 0..k {
+                    n[a] += (bits >> a) & 1;
+                    let x = field.axes[a][n[a]] - u[a];
+                    s2 += x * x;
+                }
+                let dn = field.node(&n) - d_ref;
+                for c in 0..nc {
+                    let g2 = s2 / (dt[c] * dt[c]) + dn * dn / (dd[c] * dd[c]);
+                    if g2 < out[c] * out[c] && s2 <= crits[c].max_search_mm * crits[c].max_search_mm
+                    {
+                        out[c] = g2.sqrt();
+                    }
+                }
+            }
+        }
+    }
     for &(d2, cell) in &scratch.cells {
         let d = d2.sqrt();
         if (0..nc).all(|c| d2 / (dt[c] * dt[c]) >= out[c] * out[c]) {
@@ -254,7 +280,36 @@ pub fn gamma_at(
                                 }
                                 wj[k] = (cd[vb] - d_ref) / dd[c];
                             }
-                            min_norm_sq(&w, &[0, 1, 2, 3][..k + 1], k + 1)
+                            // Barycentric coordinates of the foot in Kuhn order: 1 - f0,
+                            // f0 - f1, ..., f(k-1); the minimum lies on a face opposite a
+                            // vertex with a negative coordinate.
+                            let mut bary = [0.0; 4];
+                            bary[0] = 1.0 - f[order[0]];
+                            for j in 1..k {
+                                bary[j] = f[order[j - 1]] - f[order[j]];
+                            }
+                            bary[k] = f[order[k - 1]];
+                            let mut m = f64::INFINITY;
+                            for drop in 0..=k {
+                                if bary[drop] >= 0.0 {
+                                    continue;
+                                }
+                                let mut face = [[0.0; 4]; 3];
+                                let mut t = 0;
+                                for v in 0..=k {
+                                    if v != drop {
+                                        face[t] = w[v];
+                                        t += 1;
+                                    }
+                                }
+                                let dist = match t {
+                                    3 => triangle_sq(&face[0], &face[1], &face[2], k + 1),
+                                    2 => segment_sq(&face[0], &face[1], k + 1),
+                                    _ => dot(&face[0], &face[0], k + 1),
+                                };
+                                m = m.min(dist);
+                            }
+                            m
                         };
                         if g2 < best2 {
                             out[c] = g2.max(0.0).sqrt();
@@ -270,6 +325,85 @@ pub fn gamma_at(
 #[inline]
 fn dot(a: &[f64; 4], b: &[f64; 4], m: usize) -> f64 {
     (0..m).map(|i| a[i] * b[i]).sum()
+}
+
+/// Squared distance from the origin to the segment [a, b] in `m` dimensions.
+#[inline]
+pub fn segment_sq(a: &[f64; 4], b: &[f64; 4], m: usize) -> f64 {
+    let mut ab = [0.0; 4];
+    for i in 0..m {
+        ab[i] = b[i] - a[i];
+    }
+    let len2 = dot(&ab, &ab, m);
+    let t = if len2 > 0.0 {
+        (-dot(a, &ab, m) / len2).clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
+    let mut p = [0.0; 4];
+    for i in 0..m {
+        p[i] = a[i] + t * ab[i];
+    }
+    dot(&p, &p, m)
+}
+
+/// Squared distance from the origin to the triangle (a, b, c) in `m` dimensions, by the
+/// Voronoi-region tests of Ericson (Real-Time Collision Detection, 2005, section 5.1.5), which
+/// use dot products only and so hold in any dimension.
+#[inline]
+pub fn triangle_sq(a: &[f64; 4], b: &[f64; 4], c: &[f64; 4], m: usize) -> f64 {
+    let (mut ab, mut ac, mut ap) = ([0.0; 4], [0.0; 4], [0.0; 4]);
+    for i in 0..m {
+        ab[i] = b[i] - a[i];
+        ac[i] = c[i] - a[i];
+        ap[i] = -a[i];
+    }
+    let point = |u: f64, v: f64| {
+        // a + u ab + v ac
+        let mut p = [0.0; 4];
+        for i in 0..m {
+            p[i] = a[i] + u * ab[i] + v * ac[i];
+        }
+        dot(&p, &p, m)
+    };
+    let d1 = dot(&ab, &ap, m);
+    let d2 = dot(&ac, &ap, m);
+    if d1 <= 0.0 && d2 <= 0.0 {
+        return dot(a, a, m);
+    }
+    let mut bp = [0.0; 4];
+    for i in 0..m {
+        bp[i] = -b[i];
+    }
+    let d3 = dot(&ab, &bp, m);
+    let d4 = dot(&ac, &bp, m);
+    if d3 >= 0.0 && d4 <= d3 {
+        return dot(b, b, m);
+    }
+    let vc = d1 * d4 - d3 * d2;
+    if vc <= 0.0 && d1 >= 0.0 && d3 <= 0.0 {
+        return point(d1 / (d1 - d3), 0.0);
+    }
+    let mut cp = [0.0; 4];
+    for i in 0..m {
+        cp[i] = -c[i];
+    }
+    let d5 = dot(&ab, &cp, m);
+    let d6 = dot(&ac, &cp, m);
+    if d6 >= 0.0 && d5 <= d6 {
+        return dot(c, c, m);
+    }
+    let vb = d5 * d2 - d1 * d6;
+    if vb <= 0.0 && d2 >= 0.0 && d6 <= 0.0 {
+        return point(0.0, d2 / (d2 - d6));
+    }
+    let va = d3 * d6 - d5 * d4;
+    if va <= 0.0 && (d4 - d3) >= 0.0 && (d5 - d6) >= 0.0 {
+        let t = (d4 - d3) / ((d4 - d3) + (d5 - d6));
+        return point(1.0 - t, t);
+    }
+    let denom = 1.0 / (va + vb + vc);
+    point(vb * denom, vc * denom)
 }
 
 /// Squared distance from the origin to the convex hull of the points `w[set]` (at most 4 points
@@ -371,6 +505,35 @@ fn solve(g: &mut [[f64; 4]; 3], s: usize) -> Option<[f64; 3]> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn specialised_face_distances_match_the_general_solver() {
+        // Two independent algorithms (Ericson's region tests, normal equations with recursion)
+        // on seeded random triangles and segments in 3 and 4 dimensions.
+        let mut state = 12345u64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 11) as f64 / (1u64 << 53) as f64 * 4.0 - 2.0
+        };
+        for m in [3, 4] {
+            for _ in 0..2000 {
+                let mut w = [[0.0; 4]; 4];
+                for v in w.iter_mut().take(3) {
+                    for x in v.iter_mut().take(m) {
+                        *x = next();
+                    }
+                }
+                let t = triangle_sq(&w[0], &w[1], &w[2], m);
+                let g = min_norm_sq(&w, &[0, 1, 2], m);
+                assert!((t - g).abs() <= 1e-9 * (1.0 + g), "triangle {t} vs {g}");
+                let s = segment_sq(&w[0], &w[1], m);
+                let g = min_norm_sq(&w, &[0, 1], m);
+                assert!((s - g).abs() <= 1e-9 * (1.0 + g), "segment {s} vs {g}");
+            }
+        }
+    }
 
     #[test]
     fn distance_to_a_segment_and_a_triangle() {
