@@ -230,20 +230,31 @@ pub fn gamma_at(
                     let mut bits = 0usize;
                     let mut lin_u = cd[0];
                     let mut g_sq = 0.0;
+                    let (mut smin, mut smax) = (cd[0], cd[0]);
                     for j in 0..k {
                         let a = order[j];
                         let step = cd[bits | (1 << a)] - cd[bits];
                         bits |= 1 << a;
+                        smin = smin.min(cd[bits]);
+                        smax = smax.max(cd[bits]);
                         g[a] = step / h[a];
                         g_sq += g[a] * g[a];
                         lin_u += step * fu[a];
                     }
                     let delta = lin_u - d_ref;
+                    // The simplex's own dose range bounds it more tightly than the cell's.
+                    let simplex_gap = if d_ref < smin {
+                        smin - d_ref
+                    } else if d_ref > smax {
+                        d_ref - smax
+                    } else {
+                        0.0
+                    };
                     for c in 0..nc {
                         if d > crits[c].max_search_mm * (1.0 + 1e-12) {
                             continue;
                         }
-                        let lb2 = d2 / (dt[c] * dt[c]) + (dose_gap / dd[c]).powi(2);
+                        let lb2 = d2 / (dt[c] * dt[c]) + (simplex_gap.max(dose_gap) / dd[c]).powi(2);
                         let best2 = out[c] * out[c];
                         if lb2 >= best2 {
                             continue;
