@@ -364,7 +364,11 @@ fn test_view(t: TestIn) -> TestView {
                         o.metrics
                             .into_iter()
                             .map(|m| MetricView {
-                                value: with_unit(fixed(m.value, 2), &m.unit),
+                                // Counts are whole numbers; everything else gets two decimals.
+                                value: with_unit(
+                                    fixed(m.value, if m.unit == "points" { 0 } else { 2 }),
+                                    &m.unit,
+                                ),
                                 tolerance: m
                                     .limits
                                     .as_ref()

@@ -445,7 +445,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         id: "points-evaluated".into(),
         label: format!("Points evaluated ({})", label(&b.spec[0])),
         value: primary.n_evaluated as f64,
-        unit: String::new(),
+        unit: "points".into(),
         limits: None,
         status: None,
     });

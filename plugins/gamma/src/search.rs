@@ -254,7 +254,8 @@ pub fn gamma_at(
                         if d > crits[c].max_search_mm * (1.0 + 1e-12) {
                             continue;
                         }
-                        let lb2 = d2 / (dt[c] * dt[c]) + (simplex_gap.max(dose_gap) / dd[c]).powi(2);
+                        let lb2 =
+                            d2 / (dt[c] * dt[c]) + (simplex_gap.max(dose_gap) / dd[c]).powi(2);
                         let best2 = out[c] * out[c];
                         if lb2 >= best2 {
                             continue;
