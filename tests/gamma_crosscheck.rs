@@ -23,6 +23,7 @@ fn run(
     dose_percent: f64,
     dta_mm: f64,
     method: &str,
+    step_dta: f64,
 ) -> beamproof_plugin_gamma::PointGammas {
     let read = |p: &Path| {
         read_dataset(p, &p.display().to_string(), None)
@@ -41,6 +42,7 @@ fn run(
             ("reference".to_string(), serde_json::json!("measured")),
             ("method".to_string(), serde_json::json!(method)),
             ("relative".to_string(), serde_json::json!(false)),
+            ("sample-step-dta".to_string(), serde_json::json!(step_dta)),
         ]),
         criteria: CriteriaSet {
             name: "c".into(),
@@ -64,7 +66,14 @@ fn run(
         .1
 }
 
-fn compare(case: &str, reference: &str, evaluated: &str, method: &str, per_point_tol: f64) {
+fn compare(
+    case: &str,
+    reference: &str,
+    evaluated: &str,
+    method: &str,
+    step_dta: f64,
+    per_point_tol: f64,
+) {
     let expected: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(fixture("expected.json")).expect("expected"))
             .expect("json");
@@ -73,7 +82,14 @@ fn compare(case: &str, reference: &str, evaluated: &str, method: &str, per_point
             c["dose_percent"].as_f64().expect("dose"),
             c["dta_mm"].as_f64().expect("dta"),
         );
-        let got = run(&fixture(reference), &fixture(evaluated), dp, dta, method);
+        let got = run(
+            &fixture(reference),
+            &fixture(evaluated),
+            dp,
+            dta,
+            method,
+            step_dta,
+        );
         let want = c["gamma"].as_array().expect("gamma");
         assert_eq!(got.gamma.len(), want.len(), "{case} point count");
         let (mut n, mut passed) = (0usize, 0usize);
@@ -111,6 +127,21 @@ fn profile_exact_search_matches_numpy_dense_sampling() {
         "profile_reference.csv",
         "profile_evaluated.csv",
         "exact",
+        0.1,
+        0.01,
+    );
+}
+
+#[test]
+fn profile_sampled_search_matches_numpy_at_the_same_step() {
+    // The sampled method on a 0.001 mm lattice (0.0005 x DTA for the 2 mm criteria; 0.0005 mm
+    // for 1 mm) samples the same linear interpolant as numpy.
+    compare(
+        "profile",
+        "profile_reference.csv",
+        "profile_evaluated.csv",
+        "sampled",
+        0.0005,
         0.01,
     );
 }
@@ -123,6 +154,7 @@ fn plane_node_search_matches_numpy_on_another_grid() {
         "plane_reference.csv",
         "plane_evaluated.csv",
         "nodes",
+        0.1,
         1e-9,
     );
 }

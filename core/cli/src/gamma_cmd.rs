@@ -154,6 +154,7 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
             ("reference".to_string(), serde_json::json!("measured")),
             ("method".to_string(), serde_json::json!(a.method)),
             ("relative".to_string(), serde_json::json!(a.relative)),
+            ("sample-step-dta".to_string(), serde_json::json!(0.1)),
         ]),
         criteria: CriteriaSet {
             name: "command line".into(),

@@ -97,8 +97,8 @@ enum Command {
         /// Isocentre X,Y,Z in the DICOM file's patient coordinates, mm (needed with CSV data)
         #[arg(long)]
         isocentre: Option<String>,
-        /// exact (linear interpolant) or nodes (no interpolation)
-        #[arg(long, default_value = "exact", value_parser = ["exact", "nodes"])]
+        /// exact (linear interpolant), sampled (every DTA/10) or nodes (no interpolation)
+        #[arg(long, default_value = "exact", value_parser = ["exact", "sampled", "nodes"])]
         method: String,
         /// Normalise both distributions to their own maximum
         #[arg(long)]

@@ -147,6 +147,41 @@ impl Field {
         d
     }
 
+    /// Dose at local coordinates `u` inside the grid by multilinear (bi- or trilinear)
+    /// interpolation between the 2^k corners of the containing cell.
+    pub fn multilinear(&self, u: &[f64; MAX_DIMS]) -> f64 {
+        let mut cell = [0; MAX_DIMS];
+        let mut frac = [0.0; MAX_DIMS];
+        for a in 0..self.k {
+            let c = self.cell_of(a, u[a]);
+            let ax = &self.axes[a];
+            cell[a] = c;
+            frac[a] = ((u[a] - ax[c]) / (ax[c + 1] - ax[c])).clamp(0.0, 1.0);
+        }
+        let mut d = 0.0;
+        for bits in 0..(1usize << self.k) {
+            let mut idx = cell;
+            let mut w = 1.0;
+            for a in 0..self.k {
+                if (bits >> a) & 1 == 1 {
+                    idx[a] += 1;
+                    w *= frac[a];
+                } else {
+                    w *= 1.0 - frac[a];
+                }
+            }
+            if w != 0.0 {
+                d += w * self.node(&idx);
+            }
+        }
+        d
+    }
+
+    /// True when local coordinates `u` lie inside the grid.
+    pub fn contains(&self, u: &[f64; MAX_DIMS]) -> bool {
+        (0..self.k).all(|a| u[a] >= self.axes[a][0] && u[a] <= self.axes[a][self.axes[a].len() - 1])
+    }
+
     /// Largest spacing between neighbouring nodes over all active axes, mm.
     pub fn max_spacing(&self) -> f64 {
         (0..self.k)
@@ -208,6 +243,30 @@ mod tests {
                 (got - (1.0 + 2.0 * x + 3.0 * y)).abs() < 1e-12,
                 "{x},{y}: {got}"
             );
+        }
+    }
+
+    #[test]
+    fn multilinear_interpolation_reproduces_bilinear_functions() {
+        // Bilinear interpolation is exact for f = a + bx + cy + dxy on each cell (definition).
+        let xs = [0.0, 1.0, 3.0];
+        let ys = [-1.0, 0.0, 2.0];
+        let f = |x: f64, y: f64| 1.0 + 2.0 * x + 3.0 * y + 0.5 * x * y;
+        let mut dose = Vec::new();
+        for y in ys {
+            for x in xs {
+                dose.push(f(x, y));
+            }
+        }
+        let field = Field::from_grid(&Grid {
+            x_mm: xs.to_vec(),
+            y_mm: ys.to_vec(),
+            z_mm: vec![0.0],
+            dose,
+        })
+        .expect("field");
+        for (x, y) in [(0.5, -0.5), (2.2, 1.1), (3.0, 2.0)] {
+            assert!((field.multilinear(&[x, y, 0.0]) - f(x, y)).abs() < 1e-12);
         }
     }
 

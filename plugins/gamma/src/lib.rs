@@ -27,7 +27,7 @@ use beamproof_api::{
 use rayon::prelude::*;
 
 use field::Field;
-use search::{Criterion, Method, Scratch, gamma_at};
+use search::{Criterion, Method, Offsets, Scratch, gamma_at, gamma_sampled};
 
 /// Plugin id used in campaign files.
 pub const NAME: &str = "gamma";
@@ -47,6 +47,14 @@ pub fn compute(
 ) -> Vec<f64> {
     let n = crits.len();
     let mut out = vec![f64::NAN; points.len() * n];
+    let offsets = match method {
+        Method::Sampled { step_mm } => Offsets::new(
+            field.k,
+            step_mm,
+            crits.iter().map(|c| c.max_search_mm).fold(0.0, f64::max),
+        ),
+        _ => Offsets::default(),
+    };
     out.par_chunks_mut(n.max(1)).enumerate().for_each_init(
         || {
             (
@@ -68,15 +76,26 @@ pub fn compute(
             if active.is_empty() {
                 return;
             }
-            if gamma_at(
-                field,
-                active,
-                method,
-                points[i],
-                doses[i],
-                scratch,
-                &mut buf[..active.len()],
-            ) {
+            let evaluated = match method {
+                Method::Sampled { .. } => gamma_sampled(
+                    field,
+                    active,
+                    &offsets,
+                    points[i],
+                    doses[i],
+                    &mut buf[..active.len()],
+                ),
+                _ => gamma_at(
+                    field,
+                    active,
+                    method,
+                    points[i],
+                    doses[i],
+                    scratch,
+                    &mut buf[..active.len()],
+                ),
+            };
+            if evaluated {
                 for (j, &c) in which.iter().enumerate() {
                     row[c] = buf[j];
                 }
@@ -99,6 +118,7 @@ fn references(method: Method) -> Vec<Reference> {
     match method {
         Method::Exact => r.push(Reference { key: "Ju 2008".into(), citation: "Ju T, Simpson T, Deasy JO, Low DA. Geometric interpretation of the gamma dose distribution comparison technique: interpolation-free calculation. Med Phys. 2008;35(3):879-887.".into() }),
         Method::Nodes => r.push(Reference { key: "Low 2003".into(), citation: "Low DA, Dempsey JF. Evaluation of the gamma dose distribution comparison method. Med Phys. 2003;30(9):2455-2464.".into() }),
+        Method::Sampled { .. } => {}
     }
     r
 }
@@ -120,10 +140,17 @@ impl Analysis for Gamma {
                 },
                 ParamSpec {
                     name: "method".into(),
-                    kind: ParamType::Choice { choices: vec!["exact".into(), "nodes".into()] },
+                    kind: ParamType::Choice { choices: vec!["exact".into(), "sampled".into(), "nodes".into()] },
                     default: Some("exact".into()),
                     unit: String::new(),
-                    description: "exact: distance to the linear interpolant (Ju et al 2008); nodes: grid nodes only, no interpolation".into(),
+                    description: "exact: distance to the linear interpolant (Ju et al 2008); sampled: multilinear interpolation sampled every sample-step-dta x DTA (Wendling et al 2007); nodes: grid nodes only, no interpolation".into(),
+                },
+                ParamSpec {
+                    name: "sample-step-dta".into(),
+                    kind: ParamType::Number { min: Some(0.01), max: Some(1.0) },
+                    default: Some(0.1.into()),
+                    unit: "x DTA".into(),
+                    description: "Sampling step of the sampled method, as a fraction of the smallest DTA of the criteria".into(),
                 },
                 ParamSpec {
                     name: "max-search-mm".into(),
@@ -188,10 +215,15 @@ pub fn analyse_with_points(
     } else {
         (measured, calculated)
     };
-    let method = if input.text("method")? == "nodes" {
-        Method::Nodes
-    } else {
-        Method::Exact
+    let method = match input.text("method")? {
+        "nodes" => Method::Nodes,
+        "sampled" => {
+            let min_dta = spec.iter().map(|g| g.dta_mm).fold(f64::INFINITY, f64::min);
+            Method::Sampled {
+                step_mm: input.number("sample-step-dta")? * min_dta,
+            }
+        }
+        _ => Method::Exact,
     };
     let relative = input
         .params
@@ -521,6 +553,10 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         match b.method {
             Method::Exact => "Search: exact distance to the linear (simplicial) interpolant of the evaluated grid (Ju et al 2008), with distance-ordered early termination (Wendling et al 2007).".to_string(),
             Method::Nodes => "Search: evaluated grid nodes only, no interpolation.".to_string(),
+            Method::Sampled { step_mm } => format!(
+                "Search: multilinear interpolation of the evaluated grid sampled every {} mm around each point, in order of distance (Wendling et al 2007); sampling can only overestimate gamma, most in steep gradients.",
+                trim(step_mm)
+            ),
         },
         format!("Global dose criteria are relative to {} {}.", trim_dose(b.crits[0].norm_dose), unit),
     ];

@@ -16,12 +16,91 @@
 use crate::field::{Field, MAX_DIMS, kuhn_orders};
 
 /// How the evaluated distribution is searched.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Method {
     /// Exact distance to the simplicial interpolant.
     Exact,
     /// Grid nodes only.
     Nodes,
+    /// Multilinear interpolation sampled on a lattice of the given step (mm) around the
+    /// point, visited in order of increasing distance (Wendling et al 2007).
+    Sampled { step_mm: f64 },
+}
+
+/// Lattice offsets within a radius, sorted by distance: the visiting order of the sampled
+/// search, built once per computation.
+#[derive(Debug, Clone, Default)]
+pub struct Offsets {
+    /// (distance in mm, offset along each active axis).
+    pub list: Vec<(f64, [f64; MAX_DIMS])>,
+}
+
+impl Offsets {
+    /// Every lattice point of spacing `step` along the first `k` axes within `radius`.
+    pub fn new(k: usize, step: f64, radius: f64) -> Offsets {
+        let m = (radius / step).floor() as i64;
+        let span = |a: usize| if a < k { -m..=m } else { 0..=0 };
+        let mut list = Vec::new();
+        for i in span(0) {
+            for j in span(1) {
+                for l in span(2) {
+                    let o = [i as f64 * step, j as f64 * step, l as f64 * step];
+                    let d = (o[0] * o[0] + o[1] * o[1] + o[2] * o[2]).sqrt();
+                    if d <= radius * (1.0 + 1e-12) {
+                        list.push((d, o));
+                    }
+                }
+            }
+        }
+        list.sort_by(|p, q| {
+            p.0.total_cmp(&q.0)
+                .then(p.1.partial_cmp(&q.1).unwrap_or(std::cmp::Ordering::Equal))
+        });
+        Offsets { list }
+    }
+}
+
+/// Gamma by the sampled search: multilinear dose at lattice offsets in order of distance,
+/// stopping once distance alone reaches the best value of every criterion.
+pub fn gamma_sampled(
+    field: &Field,
+    crits: &[Criterion],
+    offsets: &Offsets,
+    pos: [f64; 3],
+    d_ref: f64,
+    out: &mut [f64],
+) -> bool {
+    let Some(u) = field.local(pos) else {
+        return false;
+    };
+    let nc = crits.len();
+    for o in out.iter_mut().take(nc) {
+        *o = f64::INFINITY;
+    }
+    for &(d, off) in &offsets.list {
+        if (0..nc).all(|c| d / crits[c].dta_mm >= out[c]) {
+            break;
+        }
+        let mut q = u;
+        for a in 0..field.k {
+            q[a] += off[a];
+        }
+        if !field.contains(&q) {
+            continue;
+        }
+        let diff = field.multilinear(&q) - d_ref;
+        for (c, cr) in crits.iter().enumerate() {
+            if d > cr.max_search_mm * (1.0 + 1e-12) {
+                continue;
+            }
+            let dd = cr.delta_dose(d_ref);
+            let g = ((d / cr.dta_mm).powi(2) + (diff / dd).powi(2)).sqrt();
+            if g < out[c] {
+                out[c] = g;
+            }
+        }
+    }
+    true
 }
 
 /// One criterion in absolute terms.
@@ -86,13 +165,13 @@ pub fn gamma_at(
     let d0 = field.interpolate(&u);
     for c in 0..nc {
         out[c] = match method {
-            Method::Exact => (d0 - d_ref).abs() / dd[c],
             Method::Nodes => f64::INFINITY,
+            Method::Exact | Method::Sampled { .. } => (d0 - d_ref).abs() / dd[c],
         };
         let r = (out[c] * dt[c]).min(crits[c].max_search_mm);
         radius = radius.max(r);
     }
-    if radius <= 0.0 && method == Method::Exact {
+    if radius <= 0.0 && method != Method::Nodes {
         return true;
     }
     // Cells whose box lies within the radius, sorted by their distance from the point.
@@ -143,7 +222,7 @@ pub fn gamma_at(
     scratch.cells.sort_unstable_by(|p, q| p.0.total_cmp(&q.0));
 
     let corners = 1usize << k;
-    if method == Method::Exact {
+    if method != Method::Nodes {
         // Nodes are vertices of the interpolant: their values are achievable, and evaluating
         // them first gives a tight bound that lets most simplices be skipped below.
         for &(d2, cell) in &scratch.cells {
@@ -213,7 +292,7 @@ pub fn gamma_at(
                     }
                 }
             }
-            Method::Exact => {
+            Method::Exact | Method::Sampled { .. } => {
                 // Cell geometry shared by every simplex and criterion: origin, spacing, and the
                 // point's fractional coordinates (outside 0..1 when the point is outside).
                 let mut h = [0.0; MAX_DIMS];

@@ -133,6 +133,25 @@ fn no_interpolation_misses_the_continuous_optimum() {
 }
 
 #[test]
+fn sampled_search_hits_the_ramp_optimum_on_its_lattice() {
+    // G3 with sampling every DTA/10 = 0.3 mm: the optimum at u* = 1.5 mm (REFERENCES 1.7,
+    // u* = g^2 a dd^2 / (dD^2 + g^2 dd^2)) is a lattice point, so the sampled search is exact.
+    let field = curve_field(&steps(-40.0, 40.0, 1.0), |x| 500.0 + (x - 3.0));
+    let c = crit(3.0, 3.0, 100.0, false);
+    let got = g1(&field, 0.0, 500.0, c, Method::Sampled { step_mm: 0.3 });
+    assert_close(got, 1.0 / 2f64.sqrt(), 1e-12, "G3 sampled");
+    // With a step that misses the optimum (0.4 mm: nearest samples 1.2 and 1.6 mm) the sampled
+    // value lies above the exact one: sqrt((1.6/3)^2 + (1.4/3)^2) = 0.70868.
+    let got = g1(&field, 0.0, 500.0, c, Method::Sampled { step_mm: 0.4 });
+    assert_close(
+        got,
+        ((1.6f64 / 3.0).powi(2) + (1.4f64 / 3.0).powi(2)).sqrt(),
+        1e-12,
+        "G3 sampled, 0.4 mm",
+    );
+}
+
+#[test]
 fn local_and_global_normalisation_differ_in_low_dose() {
     // L1/L2: reference 20, evaluated 21, 3 %/3 mm: global (norm 100) 1/3, local 1/0.6.
     let field = curve_field(&steps(-20.0, 20.0, 1.0), |_| 21.0);
