@@ -311,7 +311,8 @@ pub fn analyse_with_points(
     ))
 }
 
-/// Reference points, their doses, and the grid itself when the reference is a 2D grid (maps).
+/// Reference points, their doses, and the grid itself when the reference is a 2D or 3D grid
+/// (maps).
 type ReferenceSet = (Vec<[f64; 3]>, Vec<f64>, Option<beamproof_api::Grid>);
 
 fn reference_points(ds: &Dataset) -> Result<ReferenceSet, AnalysisError> {
@@ -340,7 +341,7 @@ fn reference_points(ds: &Dataset) -> Result<ReferenceSet, AnalysisError> {
             Ok((
                 pts,
                 g.dose.clone(),
-                (g.dimensions() == 2).then(|| g.clone()),
+                (g.dimensions() >= 2).then(|| g.clone()),
             ))
         }
     }
@@ -541,8 +542,10 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         edges,
         counts,
     }];
-    if let Some(g) = b.ref_grid {
-        figures.extend(maps(b, g));
+    match b.ref_grid {
+        Some(g) if g.dimensions() == 2 => figures.extend(maps(b, g)),
+        Some(g) => figures.extend(worst_slices(b, g)),
+        None => {}
     }
     let mut notes = vec![
         format!(
@@ -624,6 +627,80 @@ fn maps(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
             y_mm: ys.clone(),
             values: diff,
         },
+    ]
+}
+
+/// Gamma maps on the three orthogonal planes of a 3D reference grid through its worst point
+/// (the largest gamma of the first criterion).
+fn worst_slices(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
+    let n = b.crits.len();
+    let (nx, ny) = (g.x_mm.len(), g.y_mm.len());
+    let Some(worst) = (0..b.points.len())
+        .filter(|&i| !b.gammas[i * n].is_nan())
+        .max_by(|&p, &q| b.gammas[p * n].total_cmp(&b.gammas[q * n]).then(q.cmp(&p)))
+    else {
+        return Vec::new();
+    };
+    let (wx, wy, wz) = (worst % nx, (worst / nx) % ny, worst / (nx * ny));
+    let value = |ix: usize, iy: usize, iz: usize| {
+        Some(b.gammas[((iz * ny + iy) * nx + ix) * n]).filter(|v| !v.is_nan())
+    };
+    let title = |plane: &str, at: String| {
+        format!(
+            "Gamma ({}), {plane} plane through the worst point, {at}",
+            label(&b.spec[0])
+        )
+    };
+    let map = |title: String,
+               xn: &str,
+               yn: &str,
+               xs: &Vec<f64>,
+               ys: &Vec<f64>,
+               values: Vec<Option<f64>>| Figure::Map {
+        title,
+        quantity: "gamma".into(),
+        unit: String::new(),
+        x_label: format!("{xn} (mm)"),
+        y_label: format!("{yn} (mm)"),
+        x_mm: xs.clone(),
+        y_mm: ys.clone(),
+        values,
+    };
+    let nz = g.z_mm.len();
+    vec![
+        map(
+            title("XY", format!("Z = {:.1} mm", g.z_mm[wz])),
+            "X",
+            "Y",
+            &g.x_mm,
+            &g.y_mm,
+            (0..ny)
+                .flat_map(|iy| (0..nx).map(move |ix| (ix, iy)))
+                .map(|(ix, iy)| value(ix, iy, wz))
+                .collect(),
+        ),
+        map(
+            title("XZ", format!("Y = {:.1} mm", g.y_mm[wy])),
+            "X",
+            "Z",
+            &g.x_mm,
+            &g.z_mm,
+            (0..nz)
+                .flat_map(|iz| (0..nx).map(move |ix| (ix, iz)))
+                .map(|(ix, iz)| value(ix, wy, iz))
+                .collect(),
+        ),
+        map(
+            title("YZ", format!("X = {:.1} mm", g.x_mm[wx])),
+            "Y",
+            "Z",
+            &g.y_mm,
+            &g.z_mm,
+            (0..nz)
+                .flat_map(|iz| (0..ny).map(move |iy| (iy, iz)))
+                .map(|(iy, iz)| value(wx, iy, iz))
+                .collect(),
+        ),
     ]
 }
 

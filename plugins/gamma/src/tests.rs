@@ -688,6 +688,52 @@ mod plugin {
     }
 
     #[test]
+    fn a_3d_reference_gets_three_slices_through_its_worst_point() {
+        // Reference flat 2 Gy except one voxel at 2.2 Gy; evaluated flat 2 Gy: the worst gamma
+        // is at that voxel (0.2/0.066 = 3.03 at 3 %/2 mm of the 2.2 Gy maximum), and each
+        // slice passes through it.
+        let xs = steps(-4.0, 4.0, 1.0);
+        let zs = steps(-2.0, 2.0, 1.0);
+        let mut r = grid(&xs, &xs, &zs, |_, _, _| 2.0);
+        let hot = (3 * xs.len() + 6) * xs.len() + 2; // z index 3, y index 6, x index 2
+        r.dose[hot] = 2.2;
+        let reference = Dataset {
+            source: "r".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(r),
+        };
+        let evaluated = Dataset {
+            source: "e".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(grid(&xs, &xs, &zs, |_, _, _| 2.0)),
+        };
+        let out = Gamma
+            .analyse(&input(
+                reference,
+                evaluated,
+                "measured",
+                vec![tg218(3.0, 2.0)],
+            ))
+            .expect("runs");
+        let titles: Vec<&str> = out
+            .figures
+            .iter()
+            .filter_map(|f| match f {
+                Figure::Map { title, .. } => Some(title.as_str()),
+                _ => None,
+            })
+            .collect();
+        assert_eq!(
+            titles,
+            [
+                "Gamma (3%/2mm global), XY plane through the worst point, Z = 1.0 mm",
+                "Gamma (3%/2mm global), XZ plane through the worst point, Y = 2.0 mm",
+                "Gamma (3%/2mm global), YZ plane through the worst point, X = -2.0 mm",
+            ]
+        );
+    }
+
+    #[test]
     fn points_outside_the_grid_are_reported_not_counted() {
         let pts = Dataset {
             source: "array.csv".into(),
