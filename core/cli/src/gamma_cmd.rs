@@ -225,7 +225,8 @@ fn write_map(path: &Path, g: &beamproof_plugin_gamma::PointGammas) -> Result<(),
         ));
     }
     let mut text = String::from("x_mm,y_mm,z_mm,reference_dose,gamma\n");
-    for ((p, d), v) in g.points.iter().zip(&g.reference_dose).zip(&g.gamma) {
+    for (i, (d, v)) in g.reference_dose.iter().zip(&g.gamma).enumerate() {
+        let p = g.points.at(i);
         let gamma = if v.is_nan() {
             String::new()
         } else {

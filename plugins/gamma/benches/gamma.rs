@@ -13,7 +13,7 @@ use std::time::Instant;
 use beamproof_api::Grid;
 use beamproof_plugin_gamma::field::Field;
 use beamproof_plugin_gamma::search::{Criterion, Method};
-use beamproof_plugin_gamma::{compute, stats};
+use beamproof_plugin_gamma::{Positions, compute, stats};
 
 /// Deterministic normal deviates (64-bit LCG + Box-Muller), seeded.
 struct Noise(u64);
@@ -114,14 +114,11 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
         })
         .collect();
     let thresholds = vec![0.1 * norm; crits.len()];
-    let mut points = Vec::with_capacity(reference.dose.len());
-    for &z in &reference.z_mm {
-        for &y in &reference.y_mm {
-            for &x in &reference.x_mm {
-                points.push([x, y, z]);
-            }
-        }
-    }
+    let points = Positions::Grid {
+        x: reference.x_mm.clone(),
+        y: reference.y_mm.clone(),
+        z: reference.z_mm.clone(),
+    };
     let mut best = f64::INFINITY;
     let mut out = Vec::new();
     for _ in 0..repeats {

@@ -34,12 +34,51 @@ pub const NAME: &str = "gamma";
 /// Most criteria one search evaluates together.
 pub const MAX_CRITERIA: usize = 16;
 
+/// Positions of the reference points (IEC mm): a list, or the nodes of a grid enumerated on
+/// the fly (x fastest), so a large reference grid needs no point list in memory.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Positions {
+    List(Vec<[f64; 3]>),
+    Grid {
+        x: Vec<f64>,
+        y: Vec<f64>,
+        z: Vec<f64>,
+    },
+}
+
+impl Positions {
+    /// Number of points.
+    pub fn len(&self) -> usize {
+        match self {
+            Positions::List(l) => l.len(),
+            Positions::Grid { x, y, z } => x.len() * y.len() * z.len(),
+        }
+    }
+
+    /// True when there is no point.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Position of point `i`.
+    #[inline]
+    pub fn at(&self, i: usize) -> [f64; 3] {
+        match self {
+            Positions::List(l) => l[i],
+            Positions::Grid { x, y, z } => {
+                let (nx, ny) = (x.len(), y.len());
+                [x[i % nx], y[(i / nx) % ny], z[i / (nx * ny)]]
+            }
+        }
+    }
+}
+
 /// Gamma of every reference point for every criterion, row-major (`gammas[i * n + c]`).
 /// NaN where a point is not evaluated: outside the evaluated grid, below `thresholds[c]`, or
 /// with zero dose under a local criterion. Runs in parallel over points.
 pub fn compute(
     field: &Field,
-    points: &[[f64; 3]],
+    points: &Positions,
     doses: &[f64],
     crits: &[Criterion],
     thresholds: &[f64],
@@ -81,7 +120,7 @@ pub fn compute(
                     field,
                     active,
                     &offsets,
-                    points[i],
+                    points.at(i),
                     doses[i],
                     &mut buf[..active.len()],
                 ),
@@ -89,7 +128,7 @@ pub fn compute(
                     field,
                     active,
                     method,
-                    points[i],
+                    points.at(i),
                     doses[i],
                     scratch,
                     &mut buf[..active.len()],
@@ -178,7 +217,7 @@ impl Analysis for Gamma {
 /// Gamma of every reference point for the first criterion (NaN where not evaluated).
 #[derive(Debug, Clone, PartialEq)]
 pub struct PointGammas {
-    pub points: Vec<[f64; 3]>,
+    pub points: Positions,
     pub reference_dose: Vec<f64>,
     pub gamma: Vec<f64>,
 }
@@ -230,7 +269,7 @@ pub fn analyse_with_points(
         .get("relative")
         .and_then(serde_json::Value::as_bool)
         .unwrap_or(false);
-    let (points, mut ref_dose, ref_grid) = reference_points(reference)?;
+    let (points, mut ref_dose) = reference_points(reference);
     let mut field = evaluated_field(evaluated, reference)?;
     check_doses(&reference.source, &ref_dose)?;
     check_doses(&evaluated.source, &field.dose)?;
@@ -278,7 +317,9 @@ pub fn analyse_with_points(
         });
         thresholds.push(g.threshold_percent / 100.0 * norm);
     }
-    let n_outside = points.iter().filter(|p| field.local(**p).is_none()).count();
+    let n_outside = (0..points.len())
+        .filter(|&i| field.local(points.at(i)).is_none())
+        .count();
     if n_outside == points.len() {
         return Err(AnalysisError::new(format!(
             "no overlap: no reference point of `{}` lies inside the evaluated grid of `{}`",
@@ -293,7 +334,6 @@ pub fn analyse_with_points(
         points: &points,
         ref_dose: &ref_dose,
         field: &field,
-        ref_grid: ref_grid.as_ref(),
         method,
         n_outside,
         unit,
@@ -311,39 +351,29 @@ pub fn analyse_with_points(
     ))
 }
 
-/// Reference points, their doses, and the grid itself when the reference is a 2D or 3D grid
-/// (maps).
-type ReferenceSet = (Vec<[f64; 3]>, Vec<f64>, Option<beamproof_api::Grid>);
-
-fn reference_points(ds: &Dataset) -> Result<ReferenceSet, AnalysisError> {
+/// Reference point positions and doses.
+fn reference_points(ds: &Dataset) -> (Positions, Vec<f64>) {
     match &ds.data {
-        DatasetData::Points(p) => Ok((
-            (0..p.len())
-                .map(|i| [p.x_mm[i], p.y_mm[i], p.z_mm[i]])
-                .collect(),
+        DatasetData::Points(p) => (
+            Positions::List(
+                (0..p.len())
+                    .map(|i| [p.x_mm[i], p.y_mm[i], p.z_mm[i]])
+                    .collect(),
+            ),
             p.dose.clone(),
-            None,
-        )),
-        DatasetData::Curve(c) => Ok((
-            c.positions_mm.iter().map(|&x| [x, 0.0, 0.0]).collect(),
+        ),
+        DatasetData::Curve(c) => (
+            Positions::List(c.positions_mm.iter().map(|&x| [x, 0.0, 0.0]).collect()),
             c.dose.clone(),
-            None,
-        )),
-        DatasetData::Grid(g) => {
-            let mut pts = Vec::with_capacity(g.dose.len());
-            for &z in &g.z_mm {
-                for &y in &g.y_mm {
-                    for &x in &g.x_mm {
-                        pts.push([x, y, z]);
-                    }
-                }
-            }
-            Ok((
-                pts,
-                g.dose.clone(),
-                (g.dimensions() >= 2).then(|| g.clone()),
-            ))
-        }
+        ),
+        DatasetData::Grid(g) => (
+            Positions::Grid {
+                x: g.x_mm.clone(),
+                y: g.y_mm.clone(),
+                z: g.z_mm.clone(),
+            },
+            g.dose.clone(),
+        ),
     }
 }
 
@@ -390,10 +420,9 @@ struct BuildInput<'a> {
     spec: &'a [GammaCriterion],
     crits: &'a [Criterion],
     gammas: &'a [f64],
-    points: &'a [[f64; 3]],
+    points: &'a Positions,
     ref_dose: &'a [f64],
     field: &'a Field,
-    ref_grid: Option<&'a beamproof_api::Grid>,
     method: Method,
     n_outside: usize,
     unit: DoseUnit,
@@ -521,7 +550,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
             rows: worst
                 .iter()
                 .map(|&i| {
-                    let p = b.points[i];
+                    let p = b.points.at(i);
                     let here = b.field.local(p).map(|u| b.field.interpolate(&u));
                     vec![
                         format!("{:.1}", p[0]),
@@ -542,10 +571,13 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         edges,
         counts,
     }];
-    match b.ref_grid {
-        Some(g) if g.dimensions() == 2 => figures.extend(maps(b, g)),
-        Some(g) => figures.extend(worst_slices(b, g)),
-        None => {}
+    if let Positions::Grid { x, y, z } = b.points {
+        let active = [x, y, z].iter().filter(|a| a.len() > 1).count();
+        match active {
+            2 => figures.extend(maps(b, [x, y, z])),
+            3 => figures.extend(worst_slices(b, [x, y, z])),
+            _ => {}
+        }
     }
     let mut notes = vec![
         format!(
@@ -590,9 +622,9 @@ fn trim_dose(v: f64) -> String {
 }
 
 /// Gamma and dose-difference maps on a 2D reference grid.
-fn maps(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
+fn maps(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
     let n = b.crits.len();
-    let axes = [("X", &g.x_mm), ("Y", &g.y_mm), ("Z", &g.z_mm)];
+    let axes = [("X", gx), ("Y", gy), ("Z", gz)];
     let active: Vec<&(&str, &Vec<f64>)> = axes.iter().filter(|(_, a)| a.len() > 1).collect();
     let [(xn, xs), (yn, ys)] = [active[0], active[1]].map(|p| (p.0, p.1));
     let gamma: Vec<Option<f64>> = (0..b.points.len())
@@ -602,7 +634,7 @@ fn maps(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
     let diff: Vec<Option<f64>> = (0..b.points.len())
         .map(|i| {
             b.field
-                .local(b.points[i])
+                .local(b.points.at(i))
                 .map(|u| 100.0 * (b.field.interpolate(&u) - b.ref_dose[i]) / norm)
         })
         .collect();
@@ -632,9 +664,9 @@ fn maps(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
 
 /// Gamma maps on the three orthogonal planes of a 3D reference grid through its worst point
 /// (the largest gamma of the first criterion).
-fn worst_slices(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
+fn worst_slices(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
     let n = b.crits.len();
-    let (nx, ny) = (g.x_mm.len(), g.y_mm.len());
+    let (nx, ny) = (gx.len(), gy.len());
     let Some(worst) = (0..b.points.len())
         .filter(|&i| !b.gammas[i * n].is_nan())
         .max_by(|&p, &q| b.gammas[p * n].total_cmp(&b.gammas[q * n]).then(q.cmp(&p)))
@@ -666,36 +698,36 @@ fn worst_slices(b: &BuildInput, g: &beamproof_api::Grid) -> Vec<Figure> {
         y_mm: ys.clone(),
         values,
     };
-    let nz = g.z_mm.len();
+    let nz = gz.len();
     vec![
         map(
-            title("XY", format!("Z = {:.1} mm", g.z_mm[wz])),
+            title("XY", format!("Z = {:.1} mm", gz[wz])),
             "X",
             "Y",
-            &g.x_mm,
-            &g.y_mm,
+            gx,
+            gy,
             (0..ny)
                 .flat_map(|iy| (0..nx).map(move |ix| (ix, iy)))
                 .map(|(ix, iy)| value(ix, iy, wz))
                 .collect(),
         ),
         map(
-            title("XZ", format!("Y = {:.1} mm", g.y_mm[wy])),
+            title("XZ", format!("Y = {:.1} mm", gy[wy])),
             "X",
             "Z",
-            &g.x_mm,
-            &g.z_mm,
+            gx,
+            gz,
             (0..nz)
                 .flat_map(|iz| (0..nx).map(move |ix| (ix, iz)))
                 .map(|(ix, iz)| value(ix, wy, iz))
                 .collect(),
         ),
         map(
-            title("YZ", format!("X = {:.1} mm", g.x_mm[wx])),
+            title("YZ", format!("X = {:.1} mm", gx[wx])),
             "Y",
             "Z",
-            &g.y_mm,
-            &g.z_mm,
+            gy,
+            gz,
             (0..nz)
                 .flat_map(|iz| (0..ny).map(move |iy| (iy, iz)))
                 .map(|(iy, iz)| value(wx, iy, iz))

@@ -6,6 +6,25 @@
 use super::*;
 use beamproof_api::{Curve, CurveAxis, Grid};
 
+/// The library's `compute` for a list of points.
+fn compute(
+    field: &Field,
+    points: &[[f64; 3]],
+    doses: &[f64],
+    crits: &[Criterion],
+    thresholds: &[f64],
+    method: Method,
+) -> Vec<f64> {
+    super::compute(
+        field,
+        &Positions::List(points.to_vec()),
+        doses,
+        crits,
+        thresholds,
+        method,
+    )
+}
+
 fn crit(dose_percent: f64, dta_mm: f64, norm: f64, local: bool) -> Criterion {
     Criterion {
         dose_fraction: dose_percent / 100.0,
