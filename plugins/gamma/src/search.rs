@@ -160,16 +160,52 @@ pub fn gamma_at(
         dd[c] = cr.delta_dose(d_ref);
         dt[c] = cr.dta_mm;
     }
-    // Upper bound from the evaluated dose at the point itself.
-    let mut radius: f64 = 0.0;
+    // Upper bound from the evaluated dose at the point itself and at the nodes next to it
+    // (the 3^k nodes around the nearest one): a tight bound keeps the search radius small.
     let d0 = field.interpolate(&u);
     for c in 0..nc {
         out[c] = match method {
             Method::Nodes => f64::INFINITY,
             Method::Exact | Method::Sampled { .. } => (d0 - d_ref).abs() / dd[c],
         };
-        let r = (out[c] * dt[c]).min(crits[c].max_search_mm);
-        radius = radius.max(r);
+    }
+    let mut first = [0usize; MAX_DIMS];
+    let mut count = [1usize; MAX_DIMS];
+    for a in 0..k {
+        let ax = &field.axes[a];
+        let cell = field.cell_of(a, u[a]);
+        let nearest = if u[a] - ax[cell] <= ax[cell + 1] - u[a] {
+            cell
+        } else {
+            cell + 1
+        };
+        first[a] = nearest.saturating_sub(1);
+        count[a] = (nearest + 2).min(ax.len()) - first[a];
+    }
+    for i0 in 0..count[0] {
+        for i1 in 0..count[1] {
+            for i2 in 0..count[2] {
+                let n = [first[0] + i0, first[1] + i1, first[2] + i2];
+                let mut s2 = 0.0;
+                for a in 0..k {
+                    let x = field.axes[a][n[a]] - u[a];
+                    s2 += x * x;
+                }
+                let dn = field.node(&n) - d_ref;
+                for c in 0..nc {
+                    if s2 <= crits[c].max_search_mm * crits[c].max_search_mm {
+                        let g2 = s2 / (dt[c] * dt[c]) + dn * dn / (dd[c] * dd[c]);
+                        if g2 < out[c] * out[c] {
+                            out[c] = g2.sqrt();
+                        }
+                    }
+                }
+            }
+        }
+    }
+    let mut radius: f64 = 0.0;
+    for c in 0..nc {
+        radius = radius.max((out[c] * dt[c]).min(crits[c].max_search_mm));
     }
     if radius <= 0.0 && method != Method::Nodes {
         return true;
