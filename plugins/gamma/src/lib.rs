@@ -185,6 +185,13 @@ impl Analysis for Gamma {
                     description: "exact: distance to the linear interpolant (Ju et al 2008); sampled: multilinear interpolation sampled every sample-step-dta x DTA (Wendling et al 2007); nodes: grid nodes only, no interpolation".into(),
                 },
                 ParamSpec {
+                    name: "normalisation-point".into(),
+                    kind: ParamType::Text,
+                    default: None,
+                    unit: String::new(),
+                    description: "Global normalisation at a point: `x,y,z` in mm, or the label of a reference point; with `relative`, both distributions are normalised to their dose there".into(),
+                },
+                ParamSpec {
                     name: "sample-step-dta".into(),
                     kind: ParamType::Number { min: Some(0.01), max: Some(1.0) },
                     default: Some(0.1.into()),
@@ -273,16 +280,32 @@ pub fn analyse_with_points(
     let mut field = evaluated_field(evaluated, reference)?;
     check_doses(&reference.source, &ref_dose)?;
     check_doses(&evaluated.source, &field.dose)?;
-    let ref_max = ref_dose.iter().copied().fold(0.0, f64::max);
+    // The normalisation point, when given: the dose of each distribution there.
+    let norm_point = match input
+        .params
+        .get("normalisation-point")
+        .and_then(serde_json::Value::as_str)
+    {
+        Some(spec) => Some(normalisation_point(
+            spec, reference, &points, &ref_dose, &field,
+        )?),
+        None => None,
+    };
     if relative {
-        let eval_max = field.dose.iter().copied().fold(0.0, f64::max);
-        if ref_max <= 0.0 || eval_max <= 0.0 {
+        let (ref_norm, eval_norm) = match norm_point {
+            Some(p) => (p.reference, p.evaluated),
+            None => (
+                ref_dose.iter().copied().fold(0.0, f64::max),
+                field.dose.iter().copied().fold(0.0, f64::max),
+            ),
+        };
+        if ref_norm <= 0.0 || eval_norm <= 0.0 {
             return Err(AnalysisError::new(
                 "a distribution has no positive dose to normalise to",
             ));
         }
-        ref_dose.iter_mut().for_each(|d| *d *= 100.0 / ref_max);
-        field.dose.iter_mut().for_each(|d| *d *= 100.0 / eval_max);
+        ref_dose.iter_mut().for_each(|d| *d *= 100.0 / ref_norm);
+        field.dose.iter_mut().for_each(|d| *d *= 100.0 / eval_norm);
     }
     let unit = if relative {
         DoseUnit::Percent
@@ -293,14 +316,21 @@ pub fn analyse_with_points(
     let mut crits = Vec::new();
     let mut thresholds = Vec::new();
     for g in spec {
-        let norm = match g.normalisation_dose_gy {
-            Some(_) if unit != DoseUnit::Gy => {
+        let norm = match (g.normalisation_dose_gy, norm_point) {
+            (Some(_), Some(_)) => {
+                return Err(AnalysisError::new(
+                    "both `normalisation-dose-gy` and `normalisation-point` are given; keep one",
+                ));
+            }
+            (Some(_), None) if unit != DoseUnit::Gy => {
                 return Err(AnalysisError::new(
                     "`normalisation-dose-gy` needs absolute dose in Gy; remove it or set `relative: false`",
                 ));
             }
-            Some(d) => d,
-            None => ref_max,
+            (Some(d), None) => d,
+            (None, Some(_)) if relative => 100.0,
+            (None, Some(p)) => p.reference,
+            (None, None) => ref_max,
         };
         if norm <= 0.0 {
             return Err(AnalysisError::new(
@@ -349,6 +379,88 @@ pub fn analyse_with_points(
             gamma,
         },
     ))
+}
+
+/// Doses of both distributions at the normalisation point.
+#[derive(Debug, Clone, Copy)]
+struct NormPoint {
+    reference: f64,
+    evaluated: f64,
+}
+
+/// Find the normalisation point: a label of the reference point set, or `x,y,z` in mm (a
+/// reference point within 0.5 mm, or the reference grid interpolated there).
+fn normalisation_point(
+    spec: &str,
+    reference: &Dataset,
+    points: &Positions,
+    ref_dose: &[f64],
+    field: &Field,
+) -> Result<NormPoint, AnalysisError> {
+    let coords: Option<Vec<f64>> = spec
+        .split(',')
+        .map(|p| p.trim().parse::<f64>().ok())
+        .collect();
+    let (pos, d_ref) = match (coords, &reference.data) {
+        (Some(c), data) if c.len() == 3 => {
+            let pos = [c[0], c[1], c[2]];
+            let d = match data {
+                DatasetData::Grid(g) => {
+                    Field::from_grid(g).and_then(|f| f.local(pos).map(|u| f.interpolate(&u)))
+                }
+                _ => (0..points.len())
+                    .find(|&i| {
+                        let p = points.at(i);
+                        ((p[0] - pos[0]).powi(2)
+                            + (p[1] - pos[1]).powi(2)
+                            + (p[2] - pos[2]).powi(2))
+                        .sqrt()
+                            <= 0.5
+                    })
+                    .map(|i| ref_dose[i]),
+            };
+            (
+                pos,
+                d.ok_or_else(|| {
+                    AnalysisError::new(format!(
+                        "normalisation point {spec} lies outside the reference `{}`",
+                        reference.source
+                    ))
+                })?,
+            )
+        }
+        (_, DatasetData::Points(p)) => {
+            let i = p.labels.iter().position(|l| l == spec).ok_or_else(|| {
+                AnalysisError::new(format!(
+                    "`{}` has no point labelled `{spec}` to normalise to",
+                    reference.source
+                ))
+            })?;
+            ([p.x_mm[i], p.y_mm[i], p.z_mm[i]], ref_dose[i])
+        }
+        _ => {
+            return Err(AnalysisError::new(format!(
+                "normalisation point `{spec}` must be `x,y,z` in mm, or a point label of a point set"
+            )));
+        }
+    };
+    let d_eval = field
+        .local(pos)
+        .map(|u| field.interpolate(&u))
+        .ok_or_else(|| {
+            AnalysisError::new(format!(
+                "normalisation point {spec} lies outside the evaluated grid"
+            ))
+        })?;
+    if d_ref <= 0.0 {
+        return Err(AnalysisError::new(format!(
+            "the reference dose at normalisation point {spec} is zero"
+        )));
+    }
+    Ok(NormPoint {
+        reference: d_ref,
+        evaluated: d_eval,
+    })
 }
 
 /// Reference point positions and doses.

@@ -753,6 +753,79 @@ mod plugin {
     }
 
     #[test]
+    fn normalisation_point_sets_the_global_dose_criterion() {
+        // Reference points iso (1.0 Gy) and hot (2.0 Gy) against a flat 1.02 Gy grid, 3 %/2 mm:
+        // normalised to the maximum (2.0 Gy) dD = 0.06 and gamma(iso) = 0.02/0.06 = 1/3;
+        // normalised to `iso` dD = 0.03 and gamma(iso) = 2/3 (definition of global dD).
+        let pts = Dataset {
+            source: "chambers.csv".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Points(PointSet {
+                labels: vec!["iso".into(), "hot".into()],
+                x_mm: vec![0.0, 1.0],
+                y_mm: vec![0.0; 2],
+                z_mm: vec![0.0; 2],
+                dose: vec![1.0, 2.0],
+            }),
+        };
+        let mut inp = input(
+            pts,
+            flat_grid(1.02),
+            "measured",
+            vec![GammaCriterion {
+                threshold_percent: 0.0,
+                ..tg218(3.0, 2.0)
+            }],
+        );
+        let (_, by_max) = analyse_with_points(&inp).expect("runs");
+        assert!(
+            (by_max.gamma[0] - 1.0 / 3.0).abs() < 1e-9,
+            "{:?}",
+            by_max.gamma
+        );
+        inp.params
+            .insert("normalisation-point".into(), serde_json::json!("iso"));
+        let (_, by_iso) = analyse_with_points(&inp).expect("runs");
+        assert!(
+            (by_iso.gamma[0] - 2.0 / 3.0).abs() < 1e-9,
+            "{:?}",
+            by_iso.gamma
+        );
+        inp.params
+            .insert("normalisation-point".into(), serde_json::json!("nowhere"));
+        let e = analyse_with_points(&inp).expect_err("unknown label");
+        assert_eq!(
+            e.message,
+            "`chambers.csv` has no point labelled `nowhere` to normalise to"
+        );
+    }
+
+    #[test]
+    fn relative_comparison_at_a_point_removes_a_uniform_scaling() {
+        // Flat 2.0 against flat 2.1 Gy: absolute gamma 0.1/0.06 = 1.67; relative to each
+        // distribution's dose at (0, 0, 0) both are 100 % and gamma is 0.
+        let mut inp = input(
+            flat_grid(2.0),
+            flat_grid(2.1),
+            "measured",
+            vec![tg218(3.0, 2.0)],
+        );
+        let (_, absolute) = analyse_with_points(&inp).expect("runs");
+        assert!((absolute.gamma[0] - 0.1 / 0.06).abs() < 1e-9);
+        inp.params
+            .insert("relative".into(), serde_json::json!(true));
+        inp.params
+            .insert("normalisation-point".into(), serde_json::json!("0, 0, 0"));
+        let (out, relative) = analyse_with_points(&inp).expect("runs");
+        assert!(
+            relative.gamma.iter().all(|&g| g.abs() < 1e-12),
+            "{:?}",
+            &relative.gamma[..3]
+        );
+        assert_eq!(out.status, Some(Status::Pass));
+    }
+
+    #[test]
     fn points_outside_the_grid_are_reported_not_counted() {
         let pts = Dataset {
             source: "array.csv".into(),
