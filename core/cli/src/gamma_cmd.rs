@@ -16,16 +16,35 @@ use beamproof_engine::readers::read_dataset;
 use crate::{EXIT_CANNOT_RUN, EXIT_GO, EXIT_NO_GO, Failure, Io};
 
 /// Options of the `gamma` command.
+#[derive(clap::Args)]
 pub struct GammaArgs {
+    /// Reference distribution (for example the measurement)
     pub reference: PathBuf,
+    /// Evaluated distribution, searched around each reference point (a grid or a curve)
     pub evaluated: PathBuf,
+    /// Criterion DOSE%/DTAmm, repeatable (default 3%/2mm, AAPM TG-218)
+    #[arg(long = "criteria", default_value = "3%/2mm")]
     pub criteria: Vec<String>,
+    /// Local dose difference (percent of each reference dose) instead of global
+    #[arg(long)]
     pub local: bool,
+    /// Low-dose threshold, percent of the normalisation dose
+    #[arg(long, default_value_t = 10.0)]
     pub threshold: f64,
+    /// Write x,y,z,reference dose,gamma of every reference point to this CSV file
+    #[arg(long)]
     pub map: Option<PathBuf>,
+    /// Patient position of DICOM dose files
+    #[arg(long = "patient-position", default_value = "HFS")]
     pub patient_position: String,
+    /// Isocentre X,Y,Z in the DICOM file's patient coordinates, mm (needed with CSV data)
+    #[arg(long)]
     pub isocentre: Option<String>,
+    /// exact (linear interpolant), sampled (every DTA/10) or nodes (no interpolation)
+    #[arg(long, default_value = "exact", value_parser = ["exact", "sampled", "nodes"])]
     pub method: String,
+    /// Normalise both distributions to their own maximum
+    #[arg(long)]
     pub relative: bool,
 }
 

@@ -74,36 +74,7 @@ enum Command {
     /// Re-compute every checksum of a run folder's manifest
     Verify { run_dir: PathBuf },
     /// Gamma comparison of two files outside a campaign (DICOM RT Dose or data CSV)
-    Gamma {
-        /// Reference distribution (for example the measurement)
-        reference: PathBuf,
-        /// Evaluated distribution, searched around each reference point (a grid or a curve)
-        evaluated: PathBuf,
-        /// Criterion DOSE%/DTAmm, repeatable (default 3%/2mm, AAPM TG-218)
-        #[arg(long = "criteria", default_value = "3%/2mm")]
-        criteria: Vec<String>,
-        /// Local dose difference (percent of each reference dose) instead of global
-        #[arg(long)]
-        local: bool,
-        /// Low-dose threshold, percent of the normalisation dose
-        #[arg(long, default_value_t = 10.0)]
-        threshold: f64,
-        /// Write x,y,z,reference dose,gamma of every reference point to this CSV file
-        #[arg(long)]
-        map: Option<PathBuf>,
-        /// Patient position of DICOM dose files
-        #[arg(long = "patient-position", default_value = "HFS")]
-        patient_position: String,
-        /// Isocentre X,Y,Z in the DICOM file's patient coordinates, mm (needed with CSV data)
-        #[arg(long)]
-        isocentre: Option<String>,
-        /// exact (linear interpolant), sampled (every DTA/10) or nodes (no interpolation)
-        #[arg(long, default_value = "exact", value_parser = ["exact", "sampled", "nodes"])]
-        method: String,
-        /// Normalise both distributions to their own maximum
-        #[arg(long)]
-        relative: bool,
-    },
+    Gamma(gamma_cmd::GammaArgs),
     /// List the built-in plugins and those found in plugin folders
     Plugins {
         /// Also load the plugin folders named by this campaign
@@ -175,32 +146,7 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
             plugin_dirs,
         } => run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs),
         Command::Verify { run_dir } => verify(io, &run_dir),
-        Command::Gamma {
-            reference,
-            evaluated,
-            criteria,
-            local,
-            threshold,
-            map,
-            patient_position,
-            isocentre,
-            method,
-            relative,
-        } => gamma_cmd::run(
-            io,
-            gamma_cmd::GammaArgs {
-                reference,
-                evaluated,
-                criteria,
-                local,
-                threshold,
-                map,
-                patient_position,
-                isocentre,
-                method,
-                relative,
-            },
-        ),
+        Command::Gamma(args) => gamma_cmd::run(io, args),
         Command::Plugins {
             campaign,
             plugin_dirs,

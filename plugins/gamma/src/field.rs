@@ -119,8 +119,9 @@ impl Field {
         ax.partition_point(|&c| c <= v).clamp(1, ax.len() - 1) - 1
     }
 
-    /// Dose at local coordinates `u` inside the grid by simplicial interpolation.
-    pub fn interpolate(&self, u: &[f64; MAX_DIMS]) -> f64 {
+    /// The cell containing `u` and the fractional position inside it along each active axis.
+    #[inline]
+    fn locate(&self, u: &[f64; MAX_DIMS]) -> ([usize; MAX_DIMS], [f64; MAX_DIMS]) {
         let mut cell = [0; MAX_DIMS];
         let mut frac = [0.0; MAX_DIMS];
         for a in 0..self.k {
@@ -129,6 +130,12 @@ impl Field {
             cell[a] = c;
             frac[a] = ((u[a] - ax[c]) / (ax[c + 1] - ax[c])).clamp(0.0, 1.0);
         }
+        (cell, frac)
+    }
+
+    /// Dose at local coordinates `u` inside the grid by simplicial interpolation.
+    pub fn interpolate(&self, u: &[f64; MAX_DIMS]) -> f64 {
+        let (cell, frac) = self.locate(u);
         // The containing simplex orders the axes by decreasing fraction; its barycentric
         // weights are the successive differences of the sorted fractions.
         let mut order = [0, 1, 2];
@@ -150,14 +157,7 @@ impl Field {
     /// Dose at local coordinates `u` inside the grid by multilinear (bi- or trilinear)
     /// interpolation between the 2^k corners of the containing cell.
     pub fn multilinear(&self, u: &[f64; MAX_DIMS]) -> f64 {
-        let mut cell = [0; MAX_DIMS];
-        let mut frac = [0.0; MAX_DIMS];
-        for a in 0..self.k {
-            let c = self.cell_of(a, u[a]);
-            let ax = &self.axes[a];
-            cell[a] = c;
-            frac[a] = ((u[a] - ax[c]) / (ax[c + 1] - ax[c])).clamp(0.0, 1.0);
-        }
+        let (cell, frac) = self.locate(u);
         let mut d = 0.0;
         for bits in 0..(1usize << self.k) {
             let mut idx = cell;
