@@ -79,6 +79,24 @@ pub struct Limits {
     pub action: f64,
 }
 
+/// JSON has no NaN: a value that is not a finite number is written as `null` and read back
+/// as NaN, so an undefined metric (for example a pass rate over no point) survives the trip.
+mod finite_or_null {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
+        if v.is_finite() {
+            s.serialize_f64(*v)
+        } else {
+            s.serialize_none()
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::NAN))
+    }
+}
+
 /// One named number with its unit, the limits it was judged against and its status.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Metric {
@@ -86,6 +104,8 @@ pub struct Metric {
     pub id: String,
     /// Human label.
     pub label: String,
+    /// NaN when undefined (serialised as `null`).
+    #[serde(with = "finite_or_null")]
     pub value: f64,
     /// Unit text, e.g. "%", "mm", "Gy"; empty for a pure number.
     pub unit: String,
@@ -210,6 +230,22 @@ mod tests {
         assert_eq!(Status::from_floor(95.0, 95.0, 90.0), Status::Pass);
         assert_eq!(Status::from_floor(92.0, 95.0, 90.0), Status::Warn);
         assert_eq!(Status::from_floor(89.9, 95.0, 90.0), Status::Fail);
+    }
+
+    #[test]
+    fn undefined_metric_values_survive_json() {
+        let m = Metric {
+            id: "m".into(),
+            label: "m".into(),
+            value: f64::NAN,
+            unit: String::new(),
+            limits: None,
+            status: None,
+        };
+        let json = serde_json::to_string(&m).expect("serialise");
+        assert!(json.contains("\"value\":null"), "{json}");
+        let back: Metric = serde_json::from_str(&json).expect("deserialise");
+        assert!(back.value.is_nan());
     }
 
     #[test]

@@ -103,7 +103,8 @@ pub struct OutputIn {
 #[derive(Debug, Deserialize)]
 pub struct MetricIn {
     pub label: String,
-    pub value: f64,
+    /// `null` in the results when undefined.
+    pub value: Option<f64>,
     pub unit: String,
     pub limits: Option<LimitsIn>,
     pub status: Option<String>,
@@ -365,10 +366,13 @@ fn test_view(t: TestIn) -> TestView {
                             .into_iter()
                             .map(|m| MetricView {
                                 // Counts are whole numbers; everything else gets two decimals.
-                                value: with_unit(
-                                    fixed(m.value, if m.unit == "points" { 0 } else { 2 }),
-                                    &m.unit,
-                                ),
+                                value: match m.value {
+                                    Some(v) => with_unit(
+                                        fixed(v, if m.unit == "points" { 0 } else { 2 }),
+                                        &m.unit,
+                                    ),
+                                    None => "undefined".into(),
+                                },
                                 tolerance: m
                                     .limits
                                     .as_ref()

@@ -550,6 +550,15 @@ fn label(g: &GammaCriterion) -> String {
     format!("{}%/{}mm {n}", trim(g.dose_percent), trim(g.dta_mm))
 }
 
+/// Fixed decimals, or `n/a` for an undefined value (no point evaluated).
+fn num(v: f64, digits: usize) -> String {
+    if v.is_finite() {
+        format!("{v:.digits$}")
+    } else {
+        "n/a".into()
+    }
+}
+
 fn trim(v: f64) -> String {
     let s = format!("{v:.2}");
     s.trim_end_matches('0').trim_end_matches('.').to_string()
@@ -589,12 +598,12 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
             label(g),
             format!("{}", trim(g.threshold_percent)),
             s.n_evaluated.to_string(),
-            format!("{:.1}", s.pass_rate_percent),
-            format!("{:.2}", s.mean),
-            format!("{:.2}", s.median),
-            format!("{:.2}", s.p95),
-            format!("{:.2}", s.p99),
-            format!("{:.2}", s.max),
+            num(s.pass_rate_percent, 1),
+            num(s.mean, 2),
+            num(s.median, 2),
+            num(s.p95, 2),
+            num(s.p99, 2),
+            num(s.max, 2),
             status.word().to_string(),
         ]);
     }

@@ -850,3 +850,60 @@ mod plugin {
         assert!(out.notes.iter().any(|n| n == "Reference points outside the evaluated grid, not evaluated (only the overlap is analysed): 1."), "{:?}", out.notes);
     }
 }
+
+#[test]
+fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
+    // Every reference dose below a 99 % threshold except none: nothing is evaluated.
+    use beamproof_api::{
+        CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, Normalisation, TestInfo,
+    };
+    let xs = steps(-5.0, 5.0, 1.0);
+    let r = grid(&xs, &xs, &[0.0], |x, _, _| 1.0 + 0.01 * x);
+    let e = grid(&xs, &xs, &[0.0], |_, _, _| 1.0);
+    let input = AnalysisInput {
+        test: TestInfo {
+            site: "s".into(),
+            id: "t".into(),
+            name: "t".into(),
+            kind: TestKind::Plane,
+            machine: "m".into(),
+            beam: None,
+        },
+        params: std::collections::BTreeMap::from([
+            ("reference".to_string(), serde_json::json!("measured")),
+            ("method".to_string(), serde_json::json!("exact")),
+        ]),
+        criteria: CriteriaSet {
+            name: "c".into(),
+            dose_difference_percent: None,
+            gamma: vec![GammaCriterion {
+                dose_percent: 3.0,
+                dta_mm: 2.0,
+                threshold_percent: 99.0,
+                normalisation: Normalisation::Global,
+                normalisation_dose_gy: Some(2.0),
+                tolerance_pass_percent: 95.0,
+                action_pass_percent: 90.0,
+            }],
+            metrics: std::collections::BTreeMap::new(),
+        },
+        measured: Some(Dataset {
+            source: "r".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(r),
+        }),
+        calculated: Some(Dataset {
+            source: "e".into(),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(e),
+        }),
+    };
+    let out = Gamma.analyse(&input).expect("runs");
+    assert_eq!(out.status, Some(Status::Error));
+    assert!(out.metrics[0].value.is_nan());
+    assert_eq!(out.tables[0].rows[0][3], "n/a");
+    // The undefined value crosses JSON as null.
+    let json = serde_json::to_string(&out).expect("json");
+    let back: AnalysisOutput = serde_json::from_str(&json).expect("back");
+    assert!(back.metrics[0].value.is_nan());
+}
