@@ -3,7 +3,7 @@
 
 use std::path::Path;
 
-use crate::support::{cli, demo_copy, relative, root, scratch};
+use crate::support::{cli, error_campaign_copy, relative, root, scratch};
 
 /// Run `check` and `run` on a campaign; both must fail the same way and `run` must write nothing.
 fn fails(campaign: &Path) -> String {
@@ -54,7 +54,7 @@ fn malformed_yaml_points_at_the_syntax_error() {
 
 #[test]
 fn every_structural_reference_and_file_problem_is_reported_at_once() {
-    let campaign = demo_copy("err-many");
+    let campaign = error_campaign_copy("err-many");
     edit(&campaign, "title: 6 MV", "titel: 6 MV");
     edit(
         &campaign,
@@ -79,13 +79,13 @@ fn every_structural_reference_and_file_problem_is_reported_at_once() {
     let msg = fails(&campaign);
     assert_eq!(
         msg,
-        "error: unknown key `titel` in the campaign\n  --> campaign.yaml:6:1\n  |\n6 | titel: 6 MV beam model validation, bunkers 1 and 2\n  | ^\n  = help: did you mean `title`?\n\nerror: the campaign is missing the required key `title`\n  --> campaign.yaml:4:1\n  |\n4 | beamproof-campaign: 1\n  | ^\n  = help: add `title:` with the campaign's title\n\nerror: `energy` must be a number, found `ten`\n  --> campaign.yaml:20:47\n   |\n20 |       - {id: 10fff, modality: photon, energy: ten, fff: true}\n   |                                               ^\n   = help: write a plain number (MV for photons, MeV for electrons)\n\nerror: no analysis plugin named `point-dos`\n  --> campaign.yaml:55:20\n   |\n55 |         analyses: [point-dos]\n   |                    ^\n   = help: did you mean `point-dose`?\n\nerror: input file `data/lin-a/output-6x-typo.csv` (for machine `lin-a`) cannot be read: it does not exist\n  --> campaign.yaml:60:19\n   |\n60 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-a/output-6x-typo.csv\n\nerror: input file `data/tps/missing.csv` cannot be read: it does not exist\n  --> campaign.yaml:91:21\n   |\n91 |         calculated: data/tps/missing.csv\n   |                     ^\n   = help: expected at data/tps/missing.csv\n\nerror: input file `data/lin-b/output-6x-typo.csv` (for machine `lin-b`) cannot be read: it does not exist\n  --> campaign.yaml:60:19\n   |\n60 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-b/output-6x-typo.csv\n\n7 problems found; nothing was run\n"
+        "error: unknown key `titel` in the campaign\n  --> campaign.yaml:6:1\n  |\n6 | titel: 6 MV beam model validation, bunkers 1 and 2\n  | ^\n  = help: did you mean `title`?\n\nerror: the campaign is missing the required key `title`\n  --> campaign.yaml:4:1\n  |\n4 | beamproof-campaign: 1\n  | ^\n  = help: add `title:` with the campaign's title\n\nerror: `energy` must be a number, found `ten`\n  --> campaign.yaml:20:47\n   |\n20 |       - {id: 10fff, modality: photon, energy: ten, fff: true}\n   |                                               ^\n   = help: write a plain number (MV for photons, MeV for electrons)\n\nerror: no analysis plugin named `point-dos`\n  --> campaign.yaml:59:20\n   |\n59 |         analyses: [point-dos]\n   |                    ^\n   = help: did you mean `point-dose`?\n\nerror: input file `data/lin-a/output-6x-typo.csv` (for machine `lin-a`) cannot be read: it does not exist\n  --> campaign.yaml:64:19\n   |\n64 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-a/output-6x-typo.csv\n\nerror: input file `data/tps/missing.csv` cannot be read: it does not exist\n  --> campaign.yaml:95:21\n   |\n95 |         calculated: data/tps/missing.csv\n   |                     ^\n   = help: expected at data/tps/missing.csv\n\nerror: input file `data/lin-b/output-6x-typo.csv` (for machine `lin-b`) cannot be read: it does not exist\n  --> campaign.yaml:64:19\n   |\n64 |         measured: data/{machine}/output-6x-typo.csv\n   |                   ^\n   = help: expected at data/lin-b/output-6x-typo.csv\n\n7 problems found; nothing was run\n"
     );
 }
 
 #[test]
 fn csv_with_a_bad_number_names_file_and_line() {
-    let campaign = demo_copy("err-csv");
+    let campaign = error_campaign_copy("err-csv");
     edit(
         &campaign.with_file_name("data/lin-a/prostate-chamber.csv"),
         "rectum,0.0,-5.0,-35.0",
@@ -100,7 +100,7 @@ fn csv_with_a_bad_number_names_file_and_line() {
 
 #[test]
 fn dicom_that_is_not_rt_dose_is_refused() {
-    let campaign = demo_copy("err-not-rtdose");
+    let campaign = error_campaign_copy("err-not-rtdose");
     std::fs::copy(
         root().join("tests/fixtures/rtdose/ct_image.dcm"),
         campaign.with_file_name("data/tps/open-6x-10x10.dcm"),
@@ -115,7 +115,7 @@ fn dicom_that_is_not_rt_dose_is_refused() {
 
 #[test]
 fn truncated_dicom_is_refused() {
-    let campaign = demo_copy("err-truncated");
+    let campaign = error_campaign_copy("err-truncated");
     let path = campaign.with_file_name("data/tps/open-6x-10x10.dcm");
     let bytes = std::fs::read(&path).expect("read");
     std::fs::write(&path, &bytes[..bytes.len() / 2]).expect("write");
@@ -128,7 +128,7 @@ fn truncated_dicom_is_refused() {
 
 #[test]
 fn mismatched_units_are_named() {
-    let campaign = demo_copy("err-units");
+    let campaign = error_campaign_copy("err-units");
     edit(
         &campaign.with_file_name("data/tps/output-6x.csv"),
         "# dose-unit: Gy",
@@ -137,13 +137,13 @@ fn mismatched_units_are_named() {
     let msg = fails(&campaign);
     assert_eq!(
         msg,
-        "error: mismatched dose units: measured `data/lin-a/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:56:9\n   |\n56 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\nerror: mismatched dose units: measured `data/lin-b/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:56:9\n   |\n56 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\n2 problems found; nothing was run\n"
+        "error: mismatched dose units: measured `data/lin-a/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:60:9\n   |\n60 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\nerror: mismatched dose units: measured `data/lin-b/output-6x.csv` is in Gy, calculated `data/tps/output-6x.csv` in %\n  --> campaign.yaml:60:9\n   |\n60 |       - id: output-6x\n   |         ^\n   = help: give both as absolute dose (Gy, cGy or mGy) or both as relative dose (%)\n\n2 problems found; nothing was run\n"
     );
 }
 
 #[test]
 fn unknown_machine_gets_a_suggestion() {
-    let campaign = demo_copy("err-machine");
+    let campaign = error_campaign_copy("err-machine");
     let o = cli(&[
         "run",
         campaign.to_str().expect("utf8"),

@@ -41,6 +41,15 @@ pub fn demo_copy(name: &str) -> PathBuf {
     dir.join("campaign.yaml")
 }
 
+/// The demo's data with the frozen campaign `tests/fixtures/error-campaign.yaml`, whose line
+/// numbers the bad-input tests quote.
+pub fn error_campaign_copy(name: &str) -> PathBuf {
+    let campaign = demo_copy(name);
+    std::fs::copy(root().join("tests/fixtures/error-campaign.yaml"), &campaign)
+        .expect("copy fixture campaign");
+    campaign
+}
+
 /// What one CLI invocation produced.
 pub struct Outcome {
     pub code: u8,

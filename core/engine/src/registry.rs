@@ -15,6 +15,7 @@ fn built_ins() -> Vec<Box<dyn Analysis>> {
     vec![
         Box::new(beamproof_plugin_point_dose::PointDose),
         Box::new(beamproof_plugin_gamma::Gamma),
+        Box::new(beamproof_plugin_depth_dose::DepthDose),
     ]
 }
 

@@ -1,0 +1,491 @@
+//! The `depth-dose` analysis: beam-quality and depth-dose metrics of the measured and the
+//! calculated central-axis curve, and their differences judged against the criteria set's
+//! metric levels. Combine it with the `gamma` analysis in the same test for a 1D gamma.
+//!
+//! Metric ids (for `metrics:` levels in the criteria set; differences are calculated minus
+//! measured): photons `dmax-mm`, `surface`, `pdd5`, `pdd10`, `pdd20` (percentage points),
+//! `pdd20-10`, `tpr20-10`, `pdd10x` (PDD20,10 and TPR20,10 in percent of the measured value,
+//! %dd(10)x in percentage points); electrons `dmax-mm`, `r90-mm`, `r80-mm`, `r50-mm`, `rp-mm`
+//! and `e0-mev`.
+
+pub mod metrics;
+
+use beamproof_api::{
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
+    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Status,
+    Table, TestKind,
+};
+
+use metrics::{at_depth, electron, normalise, photon};
+
+/// Plugin id used in campaign files.
+pub const NAME: &str = "depth-dose";
+
+/// The depth-dose analysis.
+#[derive(Debug, Default, Clone, Copy)]
+pub struct DepthDose;
+
+/// One compared quantity: id, label, unit, measured, calculated, and how the difference is
+/// expressed.
+struct Row {
+    id: &'static str,
+    label: &'static str,
+    unit: &'static str,
+    measured: f64,
+    calculated: f64,
+    relative: bool,
+}
+
+impl Row {
+    fn difference(&self) -> f64 {
+        if self.relative {
+            100.0 * (self.calculated - self.measured) / self.measured
+        } else {
+            self.calculated - self.measured
+        }
+    }
+
+    /// Unit of the difference: percent of the measured value for ratios, percentage points
+    /// for percentages, else the quantity's unit.
+    fn difference_unit(&self) -> &'static str {
+        match (self.relative, self.unit) {
+            (true, _) => "%",
+            (false, "%") => "pp",
+            (false, u) => u,
+        }
+    }
+}
+
+fn references(electrons: bool) -> Vec<Reference> {
+    let mut r = vec![Reference {
+        key: "TRS-398".into(),
+        citation: "IAEA. Absorbed Dose Determination in External Beam Radiotherapy: An International Code of Practice for Dosimetry Based on Standards of Absorbed Dose to Water. Technical Reports Series No. 398. Vienna: IAEA; 2000.".into(),
+    }];
+    if !electrons {
+        r.push(Reference {
+            key: "TG-51".into(),
+            citation: "Almond PR, Biggs PJ, Coursey BM, et al. AAPM's TG-51 protocol for clinical reference dosimetry of high-energy photon and electron beams. Med Phys. 1999;26(9):1847-1870.".into(),
+        });
+    }
+    r
+}
+
+fn curve<'a>(input: &'a AnalysisInput, role: &str) -> Result<&'a Curve, AnalysisError> {
+    let ds = match role {
+        "measured" => input.measured.as_ref(),
+        _ => input.calculated.as_ref(),
+    }
+    .ok_or_else(|| AnalysisError::new(format!("depth-dose needs `{role}` data")))?;
+    match &ds.data {
+        DatasetData::Curve(c) if c.axis == CurveAxis::Depth => Ok(c),
+        _ => Err(AnalysisError::new(format!(
+            "`{}` must be a depth curve (`# axis: depth`), it is a {}",
+            ds.source,
+            ds.shape_name()
+        ))),
+    }
+}
+
+impl Analysis for DepthDose {
+    fn manifest(&self) -> PluginManifest {
+        PluginManifest {
+            name: NAME.into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+            description: "Depth-dose and beam-quality metrics (d_max, PDD, PDD20,10, TPR20,10, %dd(10)x; electron R90, R80, R50, Rp, E0), measured against calculated".into(),
+            kinds: vec![TestKind::DepthDose],
+            params: vec![ParamSpec {
+                name: "modality".into(),
+                kind: ParamType::Choice { choices: vec!["beam".into(), "photon".into(), "electron".into()] },
+                default: Some("beam".into()),
+                unit: String::new(),
+                description: "Which metrics apply: from the test's beam (default), or stated".into(),
+            }],
+        }
+    }
+
+    fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
+        let electrons = match input.text("modality")? {
+            "photon" => false,
+            "electron" => true,
+            _ => match &input.test.beam {
+                Some(b) => b.modality == "electron",
+                None => {
+                    return Err(AnalysisError::new(
+                        "the test names no beam: add `beam:` to the test or set the `modality` parameter",
+                    ));
+                }
+            },
+        };
+        let (m, c) = (curve(input, "measured")?, curve(input, "calculated")?);
+        let fail = |role: &str, e: metrics::CurveError| {
+            AnalysisError::new(format!("{role} curve: {}", e.0))
+        };
+        let mp = normalise(&m.positions_mm, &m.dose).map_err(|e| fail("measured", e))?;
+        let cp = normalise(&c.positions_mm, &c.dose).map_err(|e| fail("calculated", e))?;
+        let rows: Vec<Row> = if electrons {
+            let a = electron(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
+            let b = electron(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
+            vec![
+                Row {
+                    id: "dmax-mm",
+                    label: "Depth of maximum",
+                    unit: "mm",
+                    measured: a.dmax_mm,
+                    calculated: b.dmax_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "r90-mm",
+                    label: "R90",
+                    unit: "mm",
+                    measured: a.r90_mm,
+                    calculated: b.r90_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "r80-mm",
+                    label: "R80",
+                    unit: "mm",
+                    measured: a.r80_mm,
+                    calculated: b.r80_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "r50-mm",
+                    label: "R50",
+                    unit: "mm",
+                    measured: a.r50_mm,
+                    calculated: b.r50_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "rp-mm",
+                    label: "Practical range Rp",
+                    unit: "mm",
+                    measured: a.rp_mm,
+                    calculated: b.rp_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "e0-mev",
+                    label: "Mean energy at the surface E0 = 2.33 R50",
+                    unit: "MeV",
+                    measured: a.e0_mev,
+                    calculated: b.e0_mev,
+                    relative: false,
+                },
+            ]
+        } else {
+            let a = photon(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
+            let b = photon(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
+            vec![
+                Row {
+                    id: "dmax-mm",
+                    label: "Depth of maximum",
+                    unit: "mm",
+                    measured: a.dmax_mm,
+                    calculated: b.dmax_mm,
+                    relative: false,
+                },
+                Row {
+                    id: "surface",
+                    label: "Surface dose (first point)",
+                    unit: "%",
+                    measured: a.surface_percent,
+                    calculated: b.surface_percent,
+                    relative: false,
+                },
+                Row {
+                    id: "pdd5",
+                    label: "PDD at 5 cm",
+                    unit: "%",
+                    measured: a.pdd5,
+                    calculated: b.pdd5,
+                    relative: false,
+                },
+                Row {
+                    id: "pdd10",
+                    label: "PDD at 10 cm",
+                    unit: "%",
+                    measured: a.pdd10,
+                    calculated: b.pdd10,
+                    relative: false,
+                },
+                Row {
+                    id: "pdd20",
+                    label: "PDD at 20 cm",
+                    unit: "%",
+                    measured: a.pdd20,
+                    calculated: b.pdd20,
+                    relative: false,
+                },
+                Row {
+                    id: "pdd20-10",
+                    label: "PDD20,10",
+                    unit: "",
+                    measured: a.pdd20_10,
+                    calculated: b.pdd20_10,
+                    relative: true,
+                },
+                Row {
+                    id: "tpr20-10",
+                    label: "TPR20,10 = 1.2661 PDD20,10 - 0.0595",
+                    unit: "",
+                    measured: a.tpr20_10,
+                    calculated: b.tpr20_10,
+                    relative: true,
+                },
+                Row {
+                    id: "pdd10x",
+                    label: "%dd(10)x, TG-51 without lead foil",
+                    unit: "%",
+                    measured: a.pdd10x,
+                    calculated: b.pdd10x,
+                    relative: false,
+                },
+            ]
+        };
+        Ok(build_output(input, &rows, m, &mp, c, &cp, electrons))
+    }
+}
+
+fn build_output(
+    input: &AnalysisInput,
+    rows: &[Row],
+    m: &Curve,
+    mp: &[f64],
+    c: &Curve,
+    cp: &[f64],
+    electrons: bool,
+) -> AnalysisOutput {
+    let mut metrics = Vec::new();
+    let mut statuses = Vec::new();
+    for r in rows {
+        let diff = r.difference();
+        let levels = input.criteria.metrics.get(r.id);
+        let status = levels.map(|l| Status::from_deviation(diff, l.tolerance, l.action));
+        statuses.extend(status);
+        metrics.push(Metric {
+            id: format!("difference:{}", r.id),
+            label: format!("{} difference", r.label),
+            value: diff,
+            unit: r.difference_unit().into(),
+            limits: levels.map(|l| Limits {
+                rule: "|difference| <= limit".into(),
+                tolerance: l.tolerance,
+                action: l.action,
+            }),
+            status,
+        });
+    }
+    let digits = |u: &str| if u.is_empty() { 4 } else { 2 };
+    let table = Table {
+        title: "Depth-dose metrics".into(),
+        columns: ["Metric", "Measured", "Calculated", "Difference", "Status"]
+            .map(String::from)
+            .to_vec(),
+        rows: rows
+            .iter()
+            .zip(&metrics)
+            .map(|(r, m)| {
+                let d = digits(r.unit);
+                vec![
+                    format!(
+                        "{}{}",
+                        r.label,
+                        if r.unit.is_empty() {
+                            String::new()
+                        } else {
+                            format!(" ({})", r.unit)
+                        }
+                    ),
+                    format!("{:.d$}", r.measured),
+                    format!("{:.d$}", r.calculated),
+                    format!("{:.2} {}", m.value, m.unit),
+                    m.status
+                        .map_or("info".to_string(), |s| s.word().to_string()),
+                ]
+            })
+            .collect(),
+    };
+    // Difference curve at the measured depths the calculated scan covers.
+    let (dz, dd): (Vec<f64>, Vec<f64>) = m
+        .positions_mm
+        .iter()
+        .zip(mp)
+        .filter_map(|(&z, &v)| at_depth(&c.positions_mm, cp, z).ok().map(|w| (z, w - v)))
+        .unzip();
+    let figures = vec![
+        Figure::Chart {
+            title: "Depth dose, normalised to each maximum".into(),
+            x_label: "Depth (mm)".into(),
+            y_label: "Dose (%)".into(),
+            series: vec![
+                Series {
+                    name: "measured".into(),
+                    style: SeriesStyle::Markers,
+                    x: m.positions_mm.clone(),
+                    y: mp.to_vec(),
+                },
+                Series {
+                    name: "calculated".into(),
+                    style: SeriesStyle::Line,
+                    x: c.positions_mm.clone(),
+                    y: cp.to_vec(),
+                },
+            ],
+            bands: vec![],
+        },
+        Figure::Chart {
+            title: "Calculated minus measured".into(),
+            x_label: "Depth (mm)".into(),
+            y_label: "Difference (percentage points)".into(),
+            series: vec![Series {
+                name: "difference".into(),
+                style: SeriesStyle::Line,
+                x: dz,
+                y: dd,
+            }],
+            bands: vec![],
+        },
+    ];
+    let mut notes = vec!["Both curves are normalised to their own maximum; differences are calculated minus measured.".to_string()];
+    if !electrons {
+        notes.push("TPR20,10 from PDD20,10 assumes a 10 x 10 cm field at SSD 100 cm (TRS-398); %dd(10)x without lead foil is the TG-51 photon component only below about 10 MV, and flattening-filter-free beams need the foil (TG-51 addendum).".into());
+    } else {
+        notes.push("R50 is read from the curve as given; for an ionisation curve convert I50 to R50 first (TG-51: R50 = 1.029 I50 - 0.06 cm).".into());
+    }
+    let unjudged: Vec<&str> = rows
+        .iter()
+        .filter(|r| !input.criteria.metrics.contains_key(r.id))
+        .map(|r| r.id)
+        .collect();
+    if !unjudged.is_empty() {
+        notes.push(format!(
+            "Informational (no levels in criteria set `{}`): {}.",
+            input.criteria.name,
+            unjudged.join(", ")
+        ));
+    }
+    AnalysisOutput {
+        metrics,
+        tables: vec![table],
+        figures,
+        notes,
+        references: references(electrons),
+        status: Some(Status::worst(statuses).unwrap_or(Status::Pass)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use beamproof_api::{BeamInfo, CriteriaSet, Dataset, DoseUnit, Levels, TestInfo};
+    use std::collections::BTreeMap;
+
+    fn pdd(shift_mm: f64) -> Curve {
+        // Invented smooth photon-like curve (test data): build-up to 15 mm, then attenuation.
+        let z: Vec<f64> = (0..=150).map(|i| 2.0 * f64::from(i)).collect();
+        let d = z.iter().map(|&x| {
+            let x = x - shift_mm;
+            let b = if x < 15.0 {
+                0.45 + 0.55 * (x.max(0.0) / 15.0)
+            } else {
+                1.0
+            };
+            b * (-0.0048 * (x - 15.0).max(0.0)).exp()
+        });
+        Curve {
+            axis: CurveAxis::Depth,
+            positions_mm: z.clone(),
+            dose: d.collect(),
+        }
+    }
+
+    fn input(m: Curve, c: Curve, levels: &[(&str, f64, f64)]) -> AnalysisInput {
+        AnalysisInput {
+            test: TestInfo {
+                site: "s".into(),
+                id: "t".into(),
+                name: "t".into(),
+                kind: TestKind::DepthDose,
+                machine: "m".into(),
+                beam: Some(BeamInfo {
+                    id: "6x".into(),
+                    modality: "photon".into(),
+                    energy: 6.0,
+                    fff: false,
+                }),
+            },
+            params: BTreeMap::from([("modality".to_string(), serde_json::json!("beam"))]),
+            criteria: CriteriaSet {
+                name: "c".into(),
+                dose_difference_percent: None,
+                gamma: vec![],
+                metrics: levels
+                    .iter()
+                    .map(|(k, t, a)| {
+                        (
+                            k.to_string(),
+                            Levels {
+                                tolerance: *t,
+                                action: *a,
+                            },
+                        )
+                    })
+                    .collect(),
+            },
+            measured: Some(Dataset {
+                source: "m.csv".into(),
+                unit: DoseUnit::Percent,
+                data: DatasetData::Curve(m),
+            }),
+            calculated: Some(Dataset {
+                source: "c.csv".into(),
+                unit: DoseUnit::Percent,
+                data: DatasetData::Curve(c),
+            }),
+        }
+    }
+
+    #[test]
+    fn identical_curves_agree_and_a_deeper_curve_is_judged() {
+        let out = DepthDose
+            .analyse(&input(
+                pdd(0.0),
+                pdd(0.0),
+                &[("pdd10", 1.0, 2.0), ("dmax-mm", 2.0, 3.0)],
+            ))
+            .expect("runs");
+        assert!(
+            out.metrics.iter().all(|m| m.value.abs() < 1e-12),
+            "identical curves"
+        );
+        assert_eq!(out.status, Some(Status::Pass));
+        // Calculated 4 mm deeper everywhere: d_max moves by 4 mm (action 3 -> FAIL).
+        let out = DepthDose
+            .analyse(&input(pdd(0.0), pdd(4.0), &[("dmax-mm", 2.0, 3.0)]))
+            .expect("runs");
+        let dmax = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:dmax-mm")
+            .expect("dmax");
+        assert!((dmax.value - 4.0).abs() < 0.2, "{}", dmax.value);
+        assert_eq!(out.status, Some(Status::Fail));
+    }
+
+    #[test]
+    fn a_scan_stopping_before_20_cm_is_an_error_naming_the_curve() {
+        let mut short = pdd(0.0);
+        short.positions_mm.truncate(80);
+        short.dose.truncate(80);
+        let e = DepthDose
+            .analyse(&input(short, pdd(0.0), &[]))
+            .expect_err("short");
+        assert_eq!(
+            e.message,
+            "measured curve: the scan (0.0 to 158.0 mm) does not reach 200 mm"
+        );
+    }
+}
