@@ -283,7 +283,7 @@ mod tests {
     fn linear_fall_off_gives_the_textbook_ranges() {
         // REFERENCES 5.2 (derived): 100 % at 2 cm falling linearly to 0 at 6 cm, no tail:
         // R90 = 2.4, R80 = 2.8, R50 = 4.0, Rp = 6.0 cm.
-        let depth: Vec<f64> = (0..=80).map(|i| f64::from(i)).collect();
+        let depth: Vec<f64> = (0..=80).map(f64::from).collect();
         let pct: Vec<f64> = depth
             .iter()
             .map(|&z| {
