@@ -153,4 +153,24 @@ for machine in ("lin-a", "lin-b"):
     noise = dict(zip(depths, rng.normal(0.0, 0.002, size=len(depths))))
     write_curve(DATA / machine / "pdd-6x-10x10.csv", depths, lambda d: 100 * depth_factor(d) / pdd_max * (1 + noise[d]),
                 f"water-tank depth dose, {machine}")
+
+# Crossplane profile at 10 cm depth (IEC z = 0), 1 mm steps, percent of the central axis; the
+# measured scans carry seeded noise, lin-b's is 0.6 mm wider on each side.
+xs_prof = [float(v) for v in np.arange(-90.0, 90.1, 1.0)]
+
+
+def write_profile(path, fn, note):
+    lines = ["# beamproof-data: 1", "# shape: curve", "# axis: x", "# dose-unit: %", "# position-unit: mm",
+             f"# description: {note}", "position,dose"]
+    lines += [f"{x:.1f},{fn(x):.3f}" for x in xs_prof]
+    path.write_text("\n".join(lines) + "\n")
+
+
+cax = dose_iec(0.0, 0.0, 0.0)
+write_profile(DATA / "tps" / "profile-6x-10x10-x.csv", lambda x: 100 * dose_iec(x, 0.0, 0.0) / cax, "calculated crossplane profile")
+for machine, widen in (("lin-a", 0.0), ("lin-b", 0.6)):
+    noise = dict(zip(xs_prof, rng.normal(0.0, 0.002, size=len(xs_prof))))
+    scale = (50.0 + widen) / 50.0
+    write_profile(DATA / machine / "profile-6x-10x10-x.csv", lambda x: 100 * dose_iec(x / scale, 0.0, 0.0) / cax * (1 + noise[x]),
+                  f"water-tank crossplane profile, {machine}")
 print("demo data written to", DATA)

@@ -61,7 +61,10 @@ fn demo_lin_b_is_go_with_a_warning() {
     assert_eq!(r["summary"]["verdict"], "GO");
     assert_eq!(
         r["summary"]["warnings"],
-        serde_json::json!(["standard-fields/cax-6x-10x10: WARN"])
+        serde_json::json!([
+            "standard-fields/cax-6x-10x10: WARN",
+            "standard-fields/profile-6x-10x10-x: WARN"
+        ])
     );
 }
 
@@ -104,7 +107,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
-        o.stdout.ends_with("all 12 files match the manifest\n"),
+        o.stdout.ends_with("all 14 files match the manifest\n"),
         "{}",
         o.stdout
     );
@@ -120,10 +123,12 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/data/lin-a/film-6x-10x10.csv",
         "inputs/data/lin-a/output-6x.csv",
         "inputs/data/lin-a/pdd-6x-10x10.csv",
+        "inputs/data/lin-a/profile-6x-10x10-x.csv",
         "inputs/data/lin-a/prostate-chamber.csv",
         "inputs/data/tps/open-6x-10x10.dcm",
         "inputs/data/tps/output-6x.csv",
         "inputs/data/tps/pdd-6x-10x10.csv",
+        "inputs/data/tps/profile-6x-10x10-x.csv",
         "inputs/data/tps/prostate-points.csv",
         "report.pdf",
         "results.json",

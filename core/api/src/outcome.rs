@@ -3,6 +3,20 @@
 
 use serde::{Deserialize, Serialize};
 
+/// Text of a number with fixed decimals for tables: never `-0.00` (a negative zero reads as a
+/// sign error) and `n/a` for an undefined value.
+pub fn fixed(value: f64, digits: usize) -> String {
+    if !value.is_finite() {
+        return "n/a".into();
+    }
+    let s = format!("{value:.digits$}");
+    if s.starts_with('-') && s[1..].chars().all(|c| c == '0' || c == '.') {
+        s[1..].to_string()
+    } else {
+        s
+    }
+}
+
 /// Absolute slack applied when a value is compared with a limit: far below any clinically
 /// meaningful difference, far above the rounding error of decimal inputs.
 pub const LIMIT_SLACK: f64 = 1e-9;
@@ -230,6 +244,13 @@ mod tests {
         assert_eq!(Status::from_floor(95.0, 95.0, 90.0), Status::Pass);
         assert_eq!(Status::from_floor(92.0, 95.0, 90.0), Status::Warn);
         assert_eq!(Status::from_floor(89.9, 95.0, 90.0), Status::Fail);
+    }
+
+    #[test]
+    fn fixed_never_prints_negative_zero() {
+        assert_eq!(fixed(-0.0004, 2), "0.00");
+        assert_eq!(fixed(-0.006, 2), "-0.01");
+        assert_eq!(fixed(f64::NAN, 2), "n/a");
     }
 
     #[test]

@@ -16,6 +16,7 @@ fn built_ins() -> Vec<Box<dyn Analysis>> {
         Box::new(beamproof_plugin_point_dose::PointDose),
         Box::new(beamproof_plugin_gamma::Gamma),
         Box::new(beamproof_plugin_depth_dose::DepthDose),
+        Box::new(beamproof_plugin_profile::Profile),
     ]
 }
 

@@ -13,7 +13,7 @@ pub mod metrics;
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
     Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Status,
-    Table, TestKind,
+    Table, TestKind, fixed,
 };
 
 use metrics::{at_depth, electron, normalise, photon};
@@ -299,9 +299,9 @@ fn build_output(
                             format!(" ({})", r.unit)
                         }
                     ),
-                    format!("{:.d$}", r.measured),
-                    format!("{:.d$}", r.calculated),
-                    format!("{:.2} {}", m.value, m.unit),
+                    fixed(r.measured, d),
+                    fixed(r.calculated, d),
+                    format!("{} {}", fixed(m.value, 2), m.unit),
                     m.status
                         .map_or("info".to_string(), |s| s.word().to_string()),
                 ]

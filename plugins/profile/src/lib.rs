@@ -1,0 +1,536 @@
+//! The `profile` analysis: lateral-profile metrics of the measured and the calculated scan and
+//! their differences judged against the criteria set's metric levels. Combine it with the
+//! `gamma` analysis in the same test for a 1D gamma.
+//!
+//! Metric ids for `metrics:` levels (differences are calculated minus measured): `field-size-mm`,
+//! `centre-mm`, `penumbra-left-mm`, `penumbra-right-mm` (80/20), `flatness` and `symmetry`
+//! (IEC 60976 forms, percentage points); for flattening-filter-free beams (Fogliata et al
+//! 2012) `fff-field-size-mm`, `fff-penumbra-left-mm`, `fff-penumbra-right-mm`, `unflatness`
+//! (percent of measured), `slope` (percent of measured) and `peak-mm`.
+
+pub mod metrics;
+
+use beamproof_api::{
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
+    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Status,
+    Table, TestKind, fixed,
+};
+
+use metrics::{at, fff, profile};
+
+/// Plugin id used in campaign files.
+pub const NAME: &str = "profile";
+
+/// The profile analysis.
+#[derive(Debug, Default, Clone, Copy)]
+pub struct Profile;
+
+/// One compared quantity.
+struct Row {
+    id: &'static str,
+    label: &'static str,
+    unit: &'static str,
+    measured: f64,
+    calculated: f64,
+    /// Difference in percent of the measured value (else in the quantity's unit).
+    relative: bool,
+}
+
+impl Row {
+    fn difference(&self) -> f64 {
+        if self.relative {
+            100.0 * (self.calculated - self.measured) / self.measured
+        } else {
+            self.calculated - self.measured
+        }
+    }
+
+    fn difference_unit(&self) -> &'static str {
+        match (self.relative, self.unit) {
+            (true, _) => "%",
+            (false, "%") => "pp",
+            (false, u) => u,
+        }
+    }
+}
+
+/// A profile normalised for analysis, with where its edge search starts and what was done.
+struct Prepared<'a> {
+    curve: &'a Curve,
+    percent: Vec<f64>,
+    origin: f64,
+    note: Option<String>,
+}
+
+fn prepare<'a>(
+    input: &'a AnalysisInput,
+    role: &str,
+    to_max: bool,
+) -> Result<Prepared<'a>, AnalysisError> {
+    let ds = if role == "measured" {
+        input.measured.as_ref()
+    } else {
+        input.calculated.as_ref()
+    }
+    .ok_or_else(|| AnalysisError::new(format!("profile needs `{role}` data")))?;
+    let c = match &ds.data {
+        DatasetData::Curve(c) if c.axis != CurveAxis::Depth => c,
+        _ => {
+            return Err(AnalysisError::new(format!(
+                "`{}` must be a lateral profile (`# axis: x`, `y` or `diagonal`), it is a {}",
+                ds.source,
+                ds.shape_name()
+            )));
+        }
+    };
+    let (imax, max) = c
+        .dose
+        .iter()
+        .copied()
+        .enumerate()
+        .fold(
+            (0, f64::MIN),
+            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
+        );
+    if max.is_nan() || max <= 0.0 {
+        return Err(AnalysisError::new(format!(
+            "`{}` holds no positive dose",
+            ds.source
+        )));
+    }
+    let cax = at(&c.positions_mm, &c.dose, 0.0);
+    // Normalise to the central axis when it lies inside the field, else to the maximum and
+    // search the edges from the maximum (an off-axis field).
+    let (norm, origin, note) = match cax {
+        Some(v) if !to_max && v >= 0.5 * max => (v, 0.0, None),
+        Some(v) if v >= 0.5 * max => (max, 0.0, None),
+        _ => (
+            max,
+            c.positions_mm[imax],
+            Some(format!(
+                "`{}`: the central axis lies outside the field, so the profile is normalised to its maximum and the edges are searched from it.",
+                ds.source
+            )),
+        ),
+    };
+    Ok(Prepared {
+        curve: c,
+        percent: c.dose.iter().map(|d| 100.0 * d / norm).collect(),
+        origin,
+        note,
+    })
+}
+
+fn references(fff_beam: bool) -> Vec<Reference> {
+    let mut r = vec![Reference {
+        key: "IEC 60976".into(),
+        citation: "IEC 60976. Medical electrical equipment - Medical electron accelerators - Functional performance characteristics. Geneva: International Electrotechnical Commission.".into(),
+    }];
+    if fff_beam {
+        r.push(Reference {
+            key: "Fogliata 2012".into(),
+            citation: "Fogliata A, Garcia R, Knoos T, et al. Definition of parameters for quality assurance of flattening filter free (FFF) photon beams in radiation therapy. Med Phys. 2012;39(10):6455-6464.".into(),
+        });
+    }
+    r
+}
+
+impl Analysis for Profile {
+    fn manifest(&self) -> PluginManifest {
+        PluginManifest {
+            name: NAME.into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+            description: "Profile metrics: field size, centre, 80/20 and 90/10 penumbrae, IEC flatness and symmetry; FFF parameters (Fogliata et al 2012) for flattening-filter-free beams; measured against calculated".into(),
+            kinds: vec![TestKind::Profile],
+            params: vec![ParamSpec {
+                name: "normalise".into(),
+                kind: ParamType::Choice { choices: vec!["central-axis".into(), "maximum".into()] },
+                default: Some("central-axis".into()),
+                unit: String::new(),
+                description: "Normalisation of both profiles before the metrics (the maximum is used when the central axis lies outside the field)".into(),
+            }],
+        }
+    }
+
+    fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
+        let to_max = input.text("normalise")? == "maximum";
+        let fff_beam = input.test.beam.as_ref().is_some_and(|b| b.fff);
+        let m = prepare(input, "measured", to_max)?;
+        let c = prepare(input, "calculated", to_max)?;
+        let diagonal = m.curve.axis == CurveAxis::Diagonal;
+        let fail = |role: &str, e: metrics::ProfileError| {
+            AnalysisError::new(format!("{role} profile: {}", e.0))
+        };
+        let a = profile(&m.curve.positions_mm, &m.percent, m.origin, diagonal)
+            .map_err(|e| fail("measured", e))?;
+        let b = profile(&c.curve.positions_mm, &c.percent, c.origin, diagonal)
+            .map_err(|e| fail("calculated", e))?;
+        let row = |id, label, unit, measured, calculated| Row {
+            id,
+            label,
+            unit,
+            measured,
+            calculated,
+            relative: false,
+        };
+        let mut rows = vec![
+            row(
+                "field-size-mm",
+                "Field size (50 %)",
+                "mm",
+                a.field_size_mm,
+                b.field_size_mm,
+            ),
+            row(
+                "centre-mm",
+                "Field centre (mid 50 % points)",
+                "mm",
+                a.centre_mm,
+                b.centre_mm,
+            ),
+            row(
+                "penumbra-left-mm",
+                "Penumbra 80/20 left",
+                "mm",
+                a.penumbra80_20_left_mm,
+                b.penumbra80_20_left_mm,
+            ),
+            row(
+                "penumbra-right-mm",
+                "Penumbra 80/20 right",
+                "mm",
+                a.penumbra80_20_right_mm,
+                b.penumbra80_20_right_mm,
+            ),
+            row(
+                "penumbra90-left-mm",
+                "Penumbra 90/10 left",
+                "mm",
+                a.penumbra90_10_left_mm,
+                b.penumbra90_10_left_mm,
+            ),
+            row(
+                "penumbra90-right-mm",
+                "Penumbra 90/10 right",
+                "mm",
+                a.penumbra90_10_right_mm,
+                b.penumbra90_10_right_mm,
+            ),
+        ];
+        if fff_beam {
+            let fa = fff(&m.curve.positions_mm, &m.percent, m.origin)
+                .map_err(|e| fail("measured", e))?;
+            let fb = fff(&c.curve.positions_mm, &c.percent, c.origin)
+                .map_err(|e| fail("calculated", e))?;
+            rows.extend([
+                row(
+                    "fff-field-size-mm",
+                    "FFF field size (renormalised)",
+                    "mm",
+                    fa.field_size_mm,
+                    fb.field_size_mm,
+                ),
+                row(
+                    "fff-penumbra-left-mm",
+                    "FFF penumbra 80/20 left (renormalised)",
+                    "mm",
+                    fa.penumbra80_20_left_mm,
+                    fb.penumbra80_20_left_mm,
+                ),
+                row(
+                    "fff-penumbra-right-mm",
+                    "FFF penumbra 80/20 right (renormalised)",
+                    "mm",
+                    fa.penumbra80_20_right_mm,
+                    fb.penumbra80_20_right_mm,
+                ),
+                Row {
+                    id: "unflatness",
+                    label: "Unflatness D(0)/D(80 % FS)",
+                    unit: "",
+                    measured: fa.unflatness,
+                    calculated: fb.unflatness,
+                    relative: true,
+                },
+                Row {
+                    id: "slope",
+                    label: "Slope (FS/6 to FS/3)",
+                    unit: "%/mm",
+                    measured: fa.slope_percent_per_mm,
+                    calculated: fb.slope_percent_per_mm,
+                    relative: true,
+                },
+                row("peak-mm", "Peak position", "mm", fa.peak_mm, fb.peak_mm),
+            ]);
+        } else {
+            rows.extend([
+                row(
+                    "flatness",
+                    "Flatness, IEC 100 Dmax/Dmin",
+                    "%",
+                    a.flatness_iec,
+                    b.flatness_iec,
+                ),
+                row(
+                    "symmetry",
+                    "Symmetry, IEC 100 max D(x)/D(-x)",
+                    "%",
+                    a.symmetry_iec,
+                    b.symmetry_iec,
+                ),
+                row(
+                    "flatness-variation",
+                    "Flatness, 100 (Dmax-Dmin)/(Dmax+Dmin)",
+                    "%",
+                    a.flatness_variation,
+                    b.flatness_variation,
+                ),
+                row(
+                    "symmetry-point",
+                    "Symmetry, 100 max |D(x)-D(-x)|/D(centre)",
+                    "%",
+                    a.symmetry_point,
+                    b.symmetry_point,
+                ),
+            ]);
+        }
+        let mut notes = vec![format!(
+            "Edges, penumbrae and the flattened region are taken about the field centre; the region excludes {:.1} mm from each 50 % edge of the measured profile (IEC 60976 table, central 80 % below 5 cm).",
+            a.field_size_mm / 2.0 - a.region_half_mm
+        )];
+        notes.extend(m.note.clone());
+        notes.extend(c.note.clone());
+        if fff_beam {
+            notes.push("Flattening-filter-free beam: profiles renormalised so the inflection points (steepest gradient, quadratic vertex of the sampled derivative) sit at 50 % (Fogliata et al 2012).".into());
+        }
+        Ok(build_output(input, &rows, &m, &c, notes, fff_beam))
+    }
+}
+
+fn build_output(
+    input: &AnalysisInput,
+    rows: &[Row],
+    m: &Prepared,
+    c: &Prepared,
+    mut notes: Vec<String>,
+    fff_beam: bool,
+) -> AnalysisOutput {
+    let mut metrics = Vec::new();
+    let mut statuses = Vec::new();
+    for r in rows {
+        let diff = r.difference();
+        let levels = input.criteria.metrics.get(r.id);
+        let status = levels.map(|l| Status::from_deviation(diff, l.tolerance, l.action));
+        statuses.extend(status);
+        metrics.push(Metric {
+            id: format!("difference:{}", r.id),
+            label: format!("{} difference", r.label),
+            value: diff,
+            unit: r.difference_unit().into(),
+            limits: levels.map(|l| Limits {
+                rule: "|difference| <= limit".into(),
+                tolerance: l.tolerance,
+                action: l.action,
+            }),
+            status,
+        });
+    }
+    let table = Table {
+        title: "Profile metrics".into(),
+        columns: ["Metric", "Measured", "Calculated", "Difference", "Status"]
+            .map(String::from)
+            .to_vec(),
+        rows: rows
+            .iter()
+            .zip(&metrics)
+            .map(|(r, mt)| {
+                let d = if r.unit.is_empty() { 4 } else { 2 };
+                vec![
+                    format!(
+                        "{}{}",
+                        r.label,
+                        if r.unit.is_empty() {
+                            String::new()
+                        } else {
+                            format!(" ({})", r.unit)
+                        }
+                    ),
+                    fixed(r.measured, d),
+                    fixed(r.calculated, d),
+                    format!("{} {}", fixed(mt.value, 2), mt.unit),
+                    mt.status
+                        .map_or("info".to_string(), |s| s.word().to_string()),
+                ]
+            })
+            .collect(),
+    };
+    let (dx, dd): (Vec<f64>, Vec<f64>) = m
+        .curve
+        .positions_mm
+        .iter()
+        .zip(&m.percent)
+        .filter_map(|(&x, &v)| at(&c.curve.positions_mm, &c.percent, x).map(|w| (x, w - v)))
+        .unzip();
+    let figures = vec![
+        Figure::Chart {
+            title: "Profiles, normalised".into(),
+            x_label: "Position (mm)".into(),
+            y_label: "Dose (%)".into(),
+            series: vec![
+                Series {
+                    name: "measured".into(),
+                    style: SeriesStyle::Markers,
+                    x: m.curve.positions_mm.clone(),
+                    y: m.percent.clone(),
+                },
+                Series {
+                    name: "calculated".into(),
+                    style: SeriesStyle::Line,
+                    x: c.curve.positions_mm.clone(),
+                    y: c.percent.clone(),
+                },
+            ],
+            bands: vec![],
+        },
+        Figure::Chart {
+            title: "Calculated minus measured".into(),
+            x_label: "Position (mm)".into(),
+            y_label: "Difference (percentage points)".into(),
+            series: vec![Series {
+                name: "difference".into(),
+                style: SeriesStyle::Line,
+                x: dx,
+                y: dd,
+            }],
+            bands: vec![],
+        },
+    ];
+    let unjudged: Vec<&str> = rows
+        .iter()
+        .filter(|r| !input.criteria.metrics.contains_key(r.id))
+        .map(|r| r.id)
+        .collect();
+    if !unjudged.is_empty() {
+        notes.push(format!(
+            "Informational (no levels in criteria set `{}`): {}.",
+            input.criteria.name,
+            unjudged.join(", ")
+        ));
+    }
+    AnalysisOutput {
+        metrics,
+        tables: vec![table],
+        figures,
+        notes,
+        references: references(fff_beam),
+        status: Some(Status::worst(statuses).unwrap_or(Status::Pass)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use beamproof_api::{BeamInfo, CriteriaSet, Dataset, DoseUnit, Levels, TestInfo};
+    use std::collections::BTreeMap;
+
+    fn linear_edge_profile(half: f64, shift: f64) -> Curve {
+        // Plateau 100 % with linear edges 4 mm wide centred on +-half (test data).
+        let x: Vec<f64> = (-120..=120).map(|i| f64::from(i) * 0.5).collect();
+        let d = x.iter().map(|&u| {
+            let e = (u - shift).abs() - half;
+            (50.0 - 12.5 * e).clamp(2.0, 100.0)
+        });
+        Curve {
+            axis: CurveAxis::X,
+            positions_mm: x.clone(),
+            dose: d.collect(),
+        }
+    }
+
+    fn input(m: Curve, c: Curve, fff_beam: bool, levels: &[(&str, f64, f64)]) -> AnalysisInput {
+        AnalysisInput {
+            test: TestInfo {
+                site: "s".into(),
+                id: "t".into(),
+                name: "t".into(),
+                kind: TestKind::Profile,
+                machine: "m".into(),
+                beam: Some(BeamInfo {
+                    id: "b".into(),
+                    modality: "photon".into(),
+                    energy: 6.0,
+                    fff: fff_beam,
+                }),
+            },
+            params: BTreeMap::from([("normalise".to_string(), serde_json::json!("central-axis"))]),
+            criteria: CriteriaSet {
+                name: "c".into(),
+                dose_difference_percent: None,
+                gamma: vec![],
+                metrics: levels
+                    .iter()
+                    .map(|(k, t, a)| {
+                        (
+                            k.to_string(),
+                            Levels {
+                                tolerance: *t,
+                                action: *a,
+                            },
+                        )
+                    })
+                    .collect(),
+            },
+            measured: Some(Dataset {
+                source: "m.csv".into(),
+                unit: DoseUnit::Percent,
+                data: DatasetData::Curve(m),
+            }),
+            calculated: Some(Dataset {
+                source: "c.csv".into(),
+                unit: DoseUnit::Percent,
+                data: DatasetData::Curve(c),
+            }),
+        }
+    }
+
+    #[test]
+    fn a_shifted_field_is_seen_in_the_centre_and_judged() {
+        // Linear edges from 100 % to 0 over 8 mm centred on the edge: 50 % exactly at +-40 mm
+        // (field size 80 mm), 80/20 penumbra 0.6 x 8 = 4.8 mm (geometry of a linear ramp).
+        let out = Profile
+            .analyse(&input(
+                linear_edge_profile(40.0, 0.0),
+                linear_edge_profile(40.0, 1.5),
+                false,
+                &[("centre-mm", 1.0, 2.0)],
+            ))
+            .expect("runs");
+        let get = |id: &str| {
+            out.metrics
+                .iter()
+                .find(|m| m.id == id)
+                .map(|m| (m.value, m.status))
+                .expect(id)
+        };
+        assert!((get("difference:centre-mm").0 - 1.5).abs() < 1e-9);
+        assert_eq!(get("difference:centre-mm").1, Some(Status::Warn));
+        assert!(get("difference:field-size-mm").0.abs() < 1e-9);
+        let row = &out.tables[0].rows[2];
+        assert_eq!(row[1], "4.80", "{row:?}");
+        assert_eq!(out.status, Some(Status::Warn));
+    }
+
+    #[test]
+    fn a_profile_without_50_percent_names_the_side() {
+        let mut m = linear_edge_profile(40.0, 0.0);
+        m.positions_mm.truncate(150);
+        m.dose.truncate(150);
+        let e = Profile
+            .analyse(&input(m, linear_edge_profile(40.0, 0.0), false, &[]))
+            .expect_err("cut");
+        assert_eq!(
+            e.message,
+            "measured profile: the profile never falls to 50 % on the right side"
+        );
+    }
+}

@@ -1,0 +1,425 @@
+//! Metrics of one lateral profile: 50 % edges and field size, field-centre offset, 80/20 and
+//! 90/10 penumbrae, flatness and symmetry in the IEC 60976 form and the common variants, and
+//! for flattening-filter-free beams the parameters of Fogliata et al (Med Phys 2012).
+//!
+//! Positions in mm (IEC 61217, 0 = central axis); doses in percent of the normalisation value.
+//! Crossings are found from the field centre outwards and interpolated linearly.
+
+/// Why a profile cannot give its metrics.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ProfileError(pub String);
+
+/// Metrics of one profile.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ProfileMetrics {
+    pub left50_mm: f64,
+    pub right50_mm: f64,
+    pub field_size_mm: f64,
+    /// Midpoint of the 50 % edges (offset of the field centre from the central axis).
+    pub centre_mm: f64,
+    pub penumbra80_20_left_mm: f64,
+    pub penumbra80_20_right_mm: f64,
+    pub penumbra90_10_left_mm: f64,
+    pub penumbra90_10_right_mm: f64,
+    /// Half-width of the flattened (evaluation) region, about the field centre.
+    pub region_half_mm: f64,
+    /// IEC: 100 Dmax / Dmin in the region, percent.
+    pub flatness_iec: f64,
+    /// Variation form: 100 (Dmax - Dmin) / (Dmax + Dmin), percent.
+    pub flatness_variation: f64,
+    /// IEC: 100 max D(x)/D(-x) over mirrored pairs about the centre, percent.
+    pub symmetry_iec: f64,
+    /// Point difference: 100 max |D(x) - D(-x)| / D(centre), percent.
+    pub symmetry_point: f64,
+    pub max_in_region: f64,
+    pub min_in_region: f64,
+}
+
+/// Fogliata et al 2012 parameters of a flattening-filter-free profile.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FffMetrics {
+    pub left_inflection_mm: f64,
+    pub right_inflection_mm: f64,
+    /// Factor bringing the inflection points to 50 %.
+    pub renormalisation: f64,
+    /// Field size and penumbra of the renormalised profile.
+    pub field_size_mm: f64,
+    pub penumbra80_20_left_mm: f64,
+    pub penumbra80_20_right_mm: f64,
+    /// D(centre) / mean D at +-0.4 field size (the points at 80 % of the field size).
+    pub unflatness: f64,
+    /// Mean |gradient| between 1/3 and 2/3 of the half field (FS/6 to FS/3 from the centre),
+    /// percent of the renormalised profile per mm.
+    pub slope_percent_per_mm: f64,
+    /// Position of the profile maximum.
+    pub peak_mm: f64,
+}
+
+/// Dose at `x` by linear interpolation; `None` outside the scan.
+pub fn at(x: &[f64], d: &[f64], v: f64) -> Option<f64> {
+    if v < x[0] || v > x[x.len() - 1] {
+        return None;
+    }
+    let j = x.partition_point(|&p| p <= v).clamp(1, x.len() - 1);
+    let t = (v - x[j - 1]) / (x[j] - x[j - 1]);
+    Some(d[j - 1] + t * (d[j] - d[j - 1]))
+}
+
+/// First crossing of `level` walking from index `start` in direction `step` (+1 or -1),
+/// interpolated; `None` when the profile never falls to it.
+fn crossing(x: &[f64], d: &[f64], start: usize, step: isize, level: f64) -> Option<f64> {
+    let mut j = start as isize;
+    while (0..x.len() as isize).contains(&(j + step)) {
+        let (a, b) = (j as usize, (j + step) as usize);
+        if d[a] >= level && d[b] < level {
+            let t = (d[a] - level) / (d[a] - d[b]);
+            return Some(x[a] + t * (x[b] - x[a]));
+        }
+        j += step;
+    }
+    None
+}
+
+/// Half-width of the IEC 60976 flattened region for a square-field side `fs` (mm) on a
+/// major axis (`diagonal` doubles the exclusion strip): exclude 10 mm from each 50 % edge for
+/// 50-100 mm fields, 10 % of the side for 100-300 mm, 30 mm above 300 mm. Below 50 mm the
+/// standard defines no region; the central 80 % of the field size is used (stated in notes).
+pub fn region_half_width(fs: f64, diagonal: bool) -> f64 {
+    let strip = if fs < 50.0 {
+        0.1 * fs
+    } else if fs <= 100.0 {
+        10.0
+    } else if fs <= 300.0 {
+        0.1 * fs
+    } else {
+        30.0
+    };
+    let strip = if diagonal { 2.0 * strip } else { strip };
+    (fs / 2.0 - strip).max(0.0)
+}
+
+/// Index of the sample nearest to `v`.
+fn nearest(x: &[f64], v: f64) -> usize {
+    (0..x.len())
+        .min_by(|&a, &b| (x[a] - v).abs().total_cmp(&(x[b] - v).abs()))
+        .unwrap_or(0)
+}
+
+/// Profile metrics. `d` must already be in percent of the chosen normalisation; `origin` is
+/// where the edge search starts (the central axis, or the maximum for an off-axis field).
+pub fn profile(
+    x: &[f64],
+    d: &[f64],
+    origin: f64,
+    diagonal: bool,
+) -> Result<ProfileMetrics, ProfileError> {
+    if x.len() < 5 {
+        return Err(ProfileError(format!(
+            "a profile needs at least 5 points, this one has {}",
+            x.len()
+        )));
+    }
+    if x.windows(2).any(|w| w[1] <= w[0]) {
+        return Err(ProfileError(
+            "positions must increase strictly with no repeats".into(),
+        ));
+    }
+    let start = nearest(x, origin);
+    if d[start] < 50.0 {
+        return Err(ProfileError(format!(
+            "the dose at {origin:.1} mm is below 50 %: the search for the field edges cannot start there"
+        )));
+    }
+    let edge = |level: f64, step: isize, side: &str| {
+        crossing(x, d, start, step, level).ok_or_else(|| {
+            ProfileError(format!(
+                "the profile never falls to {level} % on the {side} side"
+            ))
+        })
+    };
+    let (l50, r50) = (edge(50.0, -1, "left")?, edge(50.0, 1, "right")?);
+    let (l80, r80) = (edge(80.0, -1, "left")?, edge(80.0, 1, "right")?);
+    let (l20, r20) = (edge(20.0, -1, "left")?, edge(20.0, 1, "right")?);
+    let (l90, r90) = (edge(90.0, -1, "left")?, edge(90.0, 1, "right")?);
+    let (l10, r10) = (edge(10.0, -1, "left")?, edge(10.0, 1, "right")?);
+    let fs = r50 - l50;
+    let centre = 0.5 * (l50 + r50);
+    let half = region_half_width(fs, diagonal);
+    let inside: Vec<usize> = (0..x.len())
+        .filter(|&i| (x[i] - centre).abs() <= half)
+        .collect();
+    if inside.len() < 3 {
+        return Err(ProfileError(format!(
+            "the flattened region (+-{half:.1} mm) holds fewer than 3 samples"
+        )));
+    }
+    let max = inside.iter().map(|&i| d[i]).fold(f64::MIN, f64::max);
+    let min = inside.iter().map(|&i| d[i]).fold(f64::MAX, f64::min);
+    let d_centre = at(x, d, centre).unwrap_or(d[start]);
+    let (mut sym_ratio, mut sym_diff) = (100.0_f64, 0.0_f64);
+    for &i in &inside {
+        if let Some(mirror) = at(x, d, 2.0 * centre - x[i]) {
+            sym_ratio = sym_ratio.max(100.0 * d[i] / mirror);
+            sym_diff = sym_diff.max(100.0 * (d[i] - mirror).abs() / d_centre);
+        }
+    }
+    Ok(ProfileMetrics {
+        left50_mm: l50,
+        right50_mm: r50,
+        field_size_mm: fs,
+        centre_mm: centre,
+        penumbra80_20_left_mm: l80 - l20,
+        penumbra80_20_right_mm: r20 - r80,
+        penumbra90_10_left_mm: l90 - l10,
+        penumbra90_10_right_mm: r10 - r90,
+        region_half_mm: half,
+        flatness_iec: 100.0 * max / min,
+        flatness_variation: 100.0 * (max - min) / (max + min),
+        symmetry_iec: sym_ratio,
+        symmetry_point: sym_diff,
+        max_in_region: max,
+        min_in_region: min,
+    })
+}
+
+/// Position of the steepest descent on one side, from a quadratic fit (vertex) through the
+/// largest central-difference gradient and its neighbours; the derivative is taken on the
+/// samples themselves (no smoothing), so noisy scans should be smoothed upstream.
+fn inflection(x: &[f64], d: &[f64], from: usize, step: isize) -> Option<f64> {
+    let mut best: Option<(usize, f64)> = None;
+    let mut j = from as isize + step;
+    while j > 0 && j + 1 < x.len() as isize {
+        let i = j as usize;
+        let g = (d[i + 1] - d[i - 1]) / (x[i + 1] - x[i - 1]);
+        let steep = -g * step as f64;
+        if best.is_none_or(|(_, b)| steep > b) {
+            best = Some((i, steep));
+        }
+        j += step;
+    }
+    let (i, _) = best?;
+    if i < 2 || i + 2 >= x.len() {
+        return Some(x[i]);
+    }
+    let g = |k: usize| (d[k + 1] - d[k - 1]) / (x[k + 1] - x[k - 1]);
+    let (y0, y1, y2) = (g(i - 1).abs(), g(i).abs(), g(i + 1).abs());
+    let (x0, x1, x2) = (x[i - 1], x[i], x[i + 1]);
+    let num = (x1 - x0).powi(2) * (y1 - y2) - (x1 - x2).powi(2) * (y1 - y0);
+    let den = (x1 - x0) * (y1 - y2) - (x1 - x2) * (y1 - y0);
+    Some(if den.abs() < 1e-300 {
+        x1
+    } else {
+        (x1 - 0.5 * num / den).clamp(x0, x2)
+    })
+}
+
+/// Fogliata et al 2012 parameters. `d` in percent of the central-axis dose.
+pub fn fff(x: &[f64], d: &[f64], origin: f64) -> Result<FffMetrics, ProfileError> {
+    let start = nearest(x, origin);
+    let (li, ri) = match (inflection(x, d, start, -1), inflection(x, d, start, 1)) {
+        (Some(l), Some(r)) => (l, r),
+        _ => {
+            return Err(ProfileError(
+                "no inflection point found on both sides of the field".into(),
+            ));
+        }
+    };
+    let dl = at(x, d, li).unwrap_or(f64::NAN);
+    let dr = at(x, d, ri).unwrap_or(f64::NAN);
+    let renorm = 50.0 / (0.5 * (dl + dr));
+    let rd: Vec<f64> = d.iter().map(|v| v * renorm).collect();
+    let edge = |level: f64, step: isize| {
+        crossing(x, &rd, start, step, level).ok_or_else(|| {
+            ProfileError(format!("the renormalised profile never falls to {level} %"))
+        })
+    };
+    let (l50, r50) = (edge(50.0, -1)?, edge(50.0, 1)?);
+    let (l80, r80) = (edge(80.0, -1)?, edge(80.0, 1)?);
+    let (l20, r20) = (edge(20.0, -1)?, edge(20.0, 1)?);
+    let fs = r50 - l50;
+    let c = 0.5 * (l50 + r50);
+    let d_c = at(x, &rd, c)
+        .ok_or_else(|| ProfileError("the field centre lies outside the scan".into()))?;
+    let off = |u: f64| {
+        at(x, &rd, c + u).ok_or_else(|| {
+            ProfileError(format!(
+                "the scan does not reach {:.1} mm from the centre",
+                u.abs()
+            ))
+        })
+    };
+    let unflatness = d_c / (0.5 * (off(-0.4 * fs)? + off(0.4 * fs)?));
+    let (a, b) = (fs / 6.0, fs / 3.0);
+    let slope = 0.5 * ((off(-a)? - off(-b)?).abs() + (off(a)? - off(b)?).abs()) / (b - a);
+    let peak = (0..x.len())
+        .filter(|&i| x[i] > l50 && x[i] < r50)
+        .max_by(|&p, &q| d[p].total_cmp(&d[q]))
+        .map_or(c, |i| x[i]);
+    Ok(FffMetrics {
+        left_inflection_mm: li,
+        right_inflection_mm: ri,
+        renormalisation: renorm,
+        field_size_mm: fs,
+        penumbra80_20_left_mm: l80 - l20,
+        penumbra80_20_right_mm: r20 - r80,
+        unflatness,
+        slope_percent_per_mm: slope,
+        peak_mm: peak,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// erf by the Abramowitz & Stegun 7.1.26 rational approximation (|error| < 1.5e-7).
+    fn erf(v: f64) -> f64 {
+        let t = 1.0 / (1.0 + 0.3275911 * v.abs());
+        let y = 1.0
+            - (((((1.061405429 * t - 1.453152027) * t) + 1.421413741) * t - 0.284496736) * t
+                + 0.254829592)
+                * t
+                * (-v * v).exp();
+        if v >= 0.0 { y } else { -y }
+    }
+
+    fn erf_field(half: f64, sigma: f64, top: impl Fn(f64) -> f64) -> (Vec<f64>, Vec<f64>) {
+        let x: Vec<f64> = (-1000..=1000).map(|i| f64::from(i) * 0.1).collect();
+        let d = x
+            .iter()
+            .map(|&u| {
+                top(u)
+                    * 0.5
+                    * (erf((half - u) / (std::f64::consts::SQRT_2 * sigma))
+                        + erf((half + u) / (std::f64::consts::SQRT_2 * sigma)))
+            })
+            .collect();
+        (x, d)
+    }
+
+    #[test]
+    fn erf_edges_give_the_analytic_penumbra_and_field_size() {
+        // REFERENCES 4.1 (derived): an error-function edge has its 50 % point at the edge and
+        // an 80-20 % width of 2 x 0.841621 sigma = 1.683242 sigma (3.3665 mm for sigma 2 mm),
+        // 90-10 % = 2.563103 sigma. The field is wide enough for the far edge not to matter.
+        let (x, d) = erf_field(50.0, 2.0, |_| 100.0);
+        let m = profile(&x, &d, 0.0, false).expect("metrics");
+        assert!(
+            (m.field_size_mm - 100.0).abs() < 1e-3,
+            "{}",
+            m.field_size_mm
+        );
+        assert!(m.centre_mm.abs() < 1e-9);
+        assert!(
+            (m.penumbra80_20_left_mm - 3.3665).abs() < 5e-3,
+            "{}",
+            m.penumbra80_20_left_mm
+        );
+        assert!((m.penumbra80_20_right_mm - 3.3665).abs() < 5e-3);
+        assert!(
+            (m.penumbra90_10_right_mm - 2.563103 * 2.0).abs() < 5e-3,
+            "{}",
+            m.penumbra90_10_right_mm
+        );
+    }
+
+    /// A 100 % plateau with linear edges (50 % at +-52 mm) and given values at some points.
+    fn plateau(points: &[(f64, f64)]) -> (Vec<f64>, Vec<f64>) {
+        let x: Vec<f64> = (-100..=100).map(f64::from).collect();
+        let d = x
+            .iter()
+            .map(|&u| {
+                if let Some(&(_, v)) = points.iter().find(|(p, _)| *p == u) {
+                    v
+                } else if u.abs() > 60.0 {
+                    5.0
+                } else if u.abs() > 50.0 {
+                    60.0 - (u.abs() - 50.0) * 5.0
+                } else {
+                    100.0
+                }
+            })
+            .collect();
+        (x, d)
+    }
+
+    #[test]
+    fn flatness_check_values() {
+        // REFERENCES 4.1 (derived): Dmax 103, Dmin 98 -> IEC flatness 105.102 %, variation
+        // 2.4876 % (placed symmetrically, so symmetry stays 100 %).
+        let (x, d) = plateau(&[(20.0, 103.0), (-20.0, 103.0), (10.0, 98.0), (-10.0, 98.0)]);
+        let m = profile(&x, &d, 0.0, false).expect("metrics");
+        assert!(
+            (m.flatness_iec - 105.102).abs() < 1e-3,
+            "{}",
+            m.flatness_iec
+        );
+        assert!((m.flatness_variation - 2.4876).abs() < 1e-4);
+        assert!((m.symmetry_iec - 100.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn symmetry_check_values() {
+        // REFERENCES 4.1 (derived): the pair 101/99 about D(0) = 100 -> IEC symmetry
+        // 102.02 %, point difference 2.0 %.
+        let (x, d) = plateau(&[(10.0, 101.0), (-10.0, 99.0)]);
+        let m = profile(&x, &d, 0.0, false).expect("metrics");
+        assert!(
+            (m.symmetry_iec - 102.0202).abs() < 1e-4,
+            "{}",
+            m.symmetry_iec
+        );
+        assert!((m.symmetry_point - 2.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn iec_region_follows_the_field_size_table() {
+        // IEC 60976 table as summarised in REFERENCES 4.1 (value from memory there).
+        assert_eq!(region_half_width(100.0, false), 40.0);
+        assert_eq!(region_half_width(200.0, false), 80.0);
+        assert_eq!(region_half_width(400.0, false), 170.0);
+        assert_eq!(region_half_width(200.0, true), 60.0);
+    }
+
+    #[test]
+    fn fff_inflection_renormalisation_and_slope() {
+        // A flat top at 150 % with erf edges has its inflection points at the 50 % edges of the
+        // top (x = +-50 mm), where the dose is 75 %: renormalisation 50/75, field size 100 mm.
+        let (x, d) = erf_field(50.0, 2.0, |_| 150.0);
+        let f = fff(&x, &d, 0.0).expect("fff");
+        assert!(
+            (f.left_inflection_mm + 50.0).abs() < 0.05
+                && (f.right_inflection_mm - 50.0).abs() < 0.05,
+            "{f:?}"
+        );
+        assert!((f.renormalisation - 50.0 / 75.0).abs() < 1e-3);
+        assert!((f.field_size_mm - 100.0).abs() < 0.05);
+        assert!((f.unflatness - 1.0).abs() < 1e-6 && f.slope_percent_per_mm.abs() < 1e-6);
+        // A cone-shaped top 100 - 0.0025 x^2 (REFERENCES 4.2 consistency check): the slope
+        // between FS/6 and FS/3 is the mean gradient 0.0025 (a + b) in renormalised units.
+        let (x, d) = erf_field(50.0, 2.0, |u| 100.0 - 0.0025 * u * u);
+        let f = fff(&x, &d, 0.0).expect("fff");
+        let (a, b) = (f.field_size_mm / 6.0, f.field_size_mm / 3.0);
+        let expected = f.renormalisation * 0.0025 * (a + b);
+        assert!(
+            (f.slope_percent_per_mm - expected).abs() < 0.01 * expected,
+            "{} vs {expected}",
+            f.slope_percent_per_mm
+        );
+        assert!(f.unflatness > 1.0);
+    }
+
+    #[test]
+    fn a_profile_that_never_reaches_50_percent_is_refused() {
+        let x: Vec<f64> = (0..10).map(f64::from).collect();
+        let d = vec![40.0; 10];
+        assert_eq!(profile(&x, &d, 5.0, false), Err(ProfileError("the dose at 5.0 mm is below 50 %: the search for the field edges cannot start there".into())));
+        let d: Vec<f64> = (0..10).map(|i| 100.0 - f64::from(i)).collect();
+        assert_eq!(
+            profile(&x, &d, 0.0, false),
+            Err(ProfileError(
+                "the profile never falls to 50 % on the left side".into()
+            ))
+        );
+    }
+}
