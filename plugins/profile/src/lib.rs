@@ -9,6 +9,7 @@
 //! (percent of measured), `slope` (percent of measured) and `peak-mm`.
 
 pub mod metrics;
+pub mod regions;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
@@ -142,13 +143,22 @@ impl Analysis for Profile {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Profile metrics: field size, centre, 80/20 and 90/10 penumbrae, IEC flatness and symmetry; FFF parameters (Fogliata et al 2012) for flattening-filter-free beams; measured against calculated".into(),
             kinds: vec![TestKind::Profile],
-            params: vec![ParamSpec {
-                name: "normalise".into(),
-                kind: ParamType::Choice { choices: vec!["central-axis".into(), "maximum".into()] },
-                default: Some("central-axis".into()),
-                unit: String::new(),
-                description: "Normalisation of both profiles before the metrics (the maximum is used when the central axis lies outside the field)".into(),
-            }],
+            params: vec![
+                ParamSpec {
+                    name: "normalise".into(),
+                    kind: ParamType::Choice { choices: vec!["central-axis".into(), "maximum".into()] },
+                    default: Some("central-axis".into()),
+                    unit: String::new(),
+                    description: "Normalisation of both profiles before the metrics (the maximum is used when the central axis lies outside the field)".into(),
+                },
+                ParamSpec {
+                    name: "regional-tolerances".into(),
+                    kind: ParamType::Choice { choices: vec!["off".into(), "simple".into(), "complex".into(), "more-complex".into()] },
+                    default: Some("off".into()),
+                    unit: String::new(),
+                    description: "Judge the regional comparison of Venselaar et al 2001 with the tolerances of this geometry class (off: shown, not judged)".into(),
+                },
+            ],
         }
     }
 
@@ -294,6 +304,18 @@ impl Analysis for Profile {
                 ),
             ]);
         }
+        let regional = input.text("regional-tolerances")?;
+        let geometry = regions::Geometry::from_name(regional).unwrap_or(regions::Geometry::Simple);
+        let fringe =
+            |p: &metrics::ProfileMetrics| 0.5 * (p.fringe50_90_left_mm + p.fringe50_90_right_mm);
+        let regional_results = regions::compare(
+            &m.curve.positions_mm,
+            &m.percent,
+            &c.curve.positions_mm,
+            &c.percent,
+            [(a.field_size_mm, b.field_size_mm), (fringe(&a), fringe(&b))],
+            geometry,
+        );
         let mut notes = vec![format!(
             "Edges, penumbrae and the flattened region are taken about the field centre; the region excludes {:.1} mm from each 50 % edge of the measured profile (IEC 60976 table, central 80 % below 5 cm).",
             a.field_size_mm / 2.0 - a.region_half_mm
@@ -303,10 +325,25 @@ impl Analysis for Profile {
         if fff_beam {
             notes.push("Flattening-filter-free beam: profiles renormalised so the inflection points (steepest gradient, quadratic vertex of the sampled derivative) sit at 50 % (Fogliata et al 2012).".into());
         }
-        Ok(build_output(input, &rows, &m, &c, notes, fff_beam))
+        notes.push(if regional == "off" {
+            "Regional comparison (Venselaar et al 2001) shown for information with the tolerances of simple geometry; set `regional-tolerances` to judge it.".to_string()
+        } else {
+            format!("Regional comparison judged with the `{regional}` tolerances of Venselaar et al 2001 on the confidence limit |mean| + 1.5 SD; region boundaries at 80 % and 20 % of the measured central-axis dose (common practice).")
+        });
+        Ok(build_output(
+            input,
+            &rows,
+            &m,
+            &c,
+            notes,
+            fff_beam,
+            &regional_results,
+            regional != "off",
+        ))
     }
 }
 
+#[allow(clippy::too_many_arguments)]
 fn build_output(
     input: &AnalysisInput,
     rows: &[Row],
@@ -314,6 +351,8 @@ fn build_output(
     c: &Prepared,
     mut notes: Vec<String>,
     fff_beam: bool,
+    regional: &[regions::RegionResult],
+    judge_regions: bool,
 ) -> AnalysisOutput {
     let mut metrics = Vec::new();
     let mut statuses = Vec::new();
@@ -358,6 +397,53 @@ fn build_output(
                     fixed(r.measured, d),
                     fixed(r.calculated, d),
                     format!("{} {}", fixed(mt.value, 2), mt.unit),
+                    mt.status
+                        .map_or("info".to_string(), |s| s.word().to_string()),
+                ]
+            })
+            .collect(),
+    };
+    for r in regional {
+        let status = (judge_regions && r.n_points > 0)
+            .then(|| Status::from_deviation(r.confidence_limit, r.tolerance, r.tolerance));
+        statuses.extend(status);
+        metrics.push(Metric {
+            id: format!("regional:{}", r.id),
+            label: format!("{}, confidence limit", r.label),
+            value: r.confidence_limit,
+            unit: r.unit.into(),
+            limits: judge_regions.then(|| Limits {
+                rule: "|mean| + 1.5 SD <= tolerance".into(),
+                tolerance: r.tolerance,
+                action: r.tolerance,
+            }),
+            status,
+        });
+    }
+    let regional_table = Table {
+        title: "Regional comparison (Venselaar et al 2001)".into(),
+        columns: [
+            "Region",
+            "Points",
+            "Mean",
+            "SD",
+            "|mean| + 1.5 SD",
+            "Tolerance",
+            "Status",
+        ]
+        .map(String::from)
+        .to_vec(),
+        rows: regional
+            .iter()
+            .zip(metrics.iter().rev().take(regional.len()).rev())
+            .map(|(r, mt)| {
+                vec![
+                    r.label.to_string(),
+                    r.n_points.to_string(),
+                    format!("{} {}", fixed(r.mean, 2), r.unit),
+                    format!("{} {}", fixed(r.sd, 2), r.unit),
+                    format!("{} {}", fixed(r.confidence_limit, 2), r.unit),
+                    format!("{} {}", fixed(r.tolerance, 1), r.unit),
                     mt.status
                         .map_or("info".to_string(), |s| s.word().to_string()),
                 ]
@@ -417,12 +503,17 @@ fn build_output(
             unjudged.join(", ")
         ));
     }
+    let mut refs = references(fff_beam);
+    refs.push(Reference {
+        key: "Venselaar 2001".into(),
+        citation: "Venselaar J, Welleweerd H, Mijnheer B. Tolerances for the accuracy of photon beam dose calculations of treatment planning systems. Radiother Oncol. 2001;60(2):191-201.".into(),
+    });
     AnalysisOutput {
         metrics,
-        tables: vec![table],
+        tables: vec![table, regional_table],
         figures,
         notes,
-        references: references(fff_beam),
+        references: refs,
         status: Some(Status::worst(statuses).unwrap_or(Status::Pass)),
     }
 }
@@ -462,7 +553,10 @@ mod tests {
                     fff: fff_beam,
                 }),
             },
-            params: BTreeMap::from([("normalise".to_string(), serde_json::json!("central-axis"))]),
+            params: BTreeMap::from([
+                ("normalise".to_string(), serde_json::json!("central-axis")),
+                ("regional-tolerances".to_string(), serde_json::json!("off")),
+            ]),
             criteria: CriteriaSet {
                 name: "c".into(),
                 dose_difference_percent: None,
@@ -518,6 +612,34 @@ mod tests {
         let row = &out.tables[0].rows[2];
         assert_eq!(row[1], "4.80", "{row:?}");
         assert_eq!(out.status, Some(Status::Warn));
+    }
+
+    #[test]
+    fn regional_tolerances_are_judged_only_when_asked() {
+        // Calculated 1 mm wider per side: delta2 = 1 mm (linear edges), RW50 = 2 mm; with the
+        // simple-geometry tolerances (2 mm, 2 mm; Venselaar et al 2001) both pass at the limit.
+        let mut inp = input(
+            linear_edge_profile(40.0, 0.0),
+            linear_edge_profile(41.0, 0.0),
+            false,
+            &[],
+        );
+        let out = Profile.analyse(&inp).expect("runs");
+        assert!(
+            out.metrics
+                .iter()
+                .filter(|m| m.id.starts_with("regional:"))
+                .all(|m| m.status.is_none())
+        );
+        inp.params
+            .insert("regional-tolerances".into(), serde_json::json!("simple"));
+        let out = Profile.analyse(&inp).expect("runs");
+        let get = |id: &str| out.metrics.iter().find(|m| m.id == id).expect(id).clone();
+        assert!((get("regional:delta2").value - 1.0).abs() < 1e-9);
+        assert_eq!(get("regional:delta2").status, Some(Status::Pass));
+        assert!((get("regional:rw50").value - 2.0).abs() < 1e-9);
+        assert_eq!(get("regional:rw50").status, Some(Status::Pass));
+        assert_eq!(out.tables[1].rows.len(), 5);
     }
 
     #[test]

@@ -21,6 +21,9 @@ pub struct ProfileMetrics {
     pub penumbra80_20_right_mm: f64,
     pub penumbra90_10_left_mm: f64,
     pub penumbra90_10_right_mm: f64,
+    /// Beam fringe: distance from the 90 % to the 50 % point on each side.
+    pub fringe50_90_left_mm: f64,
+    pub fringe50_90_right_mm: f64,
     /// Half-width of the flattened (evaluation) region, about the field centre.
     pub region_half_mm: f64,
     /// IEC: 100 Dmax / Dmin in the region, percent.
@@ -172,6 +175,8 @@ pub fn profile(
         penumbra80_20_right_mm: r20 - r80,
         penumbra90_10_left_mm: l90 - l10,
         penumbra90_10_right_mm: r10 - r90,
+        fringe50_90_left_mm: l90 - l50,
+        fringe50_90_right_mm: r50 - r90,
         region_half_mm: half,
         flatness_iec: 100.0 * max / min,
         flatness_variation: 100.0 * (max - min) / (max + min),
