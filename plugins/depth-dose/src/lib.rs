@@ -16,6 +16,7 @@ use beamproof_api::{
     Table, TestKind, fixed,
 };
 
+use beamproof_curve_tools::{Geometry, regional_output};
 use metrics::{at_depth, electron, normalise, photon};
 
 /// Plugin id used in campaign files.
@@ -93,13 +94,22 @@ impl Analysis for DepthDose {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Depth-dose and beam-quality metrics (d_max, PDD, PDD20,10, TPR20,10, %dd(10)x; electron R90, R80, R50, Rp, E0), measured against calculated".into(),
             kinds: vec![TestKind::DepthDose],
-            params: vec![ParamSpec {
-                name: "modality".into(),
-                kind: ParamType::Choice { choices: vec!["beam".into(), "photon".into(), "electron".into()] },
-                default: Some("beam".into()),
-                unit: String::new(),
-                description: "Which metrics apply: from the test's beam (default), or stated".into(),
-            }],
+            params: vec![
+                ParamSpec {
+                    name: "modality".into(),
+                    kind: ParamType::Choice { choices: vec!["beam".into(), "photon".into(), "electron".into()] },
+                    default: Some("beam".into()),
+                    unit: String::new(),
+                    description: "Which metrics apply: from the test's beam (default), or stated".into(),
+                },
+                ParamSpec {
+                    name: "regional-tolerances".into(),
+                    kind: ParamType::Choice { choices: vec!["off".into(), "simple".into(), "complex".into(), "more-complex".into()] },
+                    default: Some("off".into()),
+                    unit: String::new(),
+                    description: "Judge the photon regional comparison of Venselaar et al 2001 (build-up, beyond d_max) with this geometry class (off: shown, not judged)".into(),
+                },
+            ],
         }
     }
 
@@ -245,7 +255,32 @@ impl Analysis for DepthDose {
                 },
             ]
         };
-        Ok(build_output(input, &rows, m, &mp, c, &cp, electrons))
+        let regional = input.text("regional-tolerances")?;
+        let regions = if electrons {
+            Vec::new()
+        } else {
+            let geometry = Geometry::from_name(regional).unwrap_or(Geometry::Simple);
+            metrics::regions(&m.positions_mm, &mp, &c.positions_mm, &cp, geometry)
+        };
+        let mut out = build_output(input, &rows, m, &mp, c, &cp, electrons);
+        if !regions.is_empty() {
+            let judge = regional != "off";
+            let (rm, table) = regional_output(&regions, judge);
+            let worst = Status::worst(rm.iter().filter_map(|m| m.status));
+            out.status = Status::worst(out.status.into_iter().chain(worst));
+            out.metrics.extend(rm);
+            out.tables.push(table);
+            out.notes.push(if judge {
+                format!("Regional comparison judged with the `{regional}` tolerances of Venselaar et al 2001 on |mean| + 1.5 SD; build-up shallower than the measured d_max.")
+            } else {
+                "Regional comparison (Venselaar et al 2001) shown for information with the simple-geometry tolerances; set `regional-tolerances` to judge it.".to_string()
+            });
+            out.references.push(Reference {
+                key: "Venselaar 2001".into(),
+                citation: "Venselaar J, Welleweerd H, Mijnheer B. Tolerances for the accuracy of photon beam dose calculations of treatment planning systems. Radiother Oncol. 2001;60(2):191-201.".into(),
+            });
+        }
+        Ok(out)
     }
 }
 
@@ -417,7 +452,10 @@ mod tests {
                     fff: false,
                 }),
             },
-            params: BTreeMap::from([("modality".to_string(), serde_json::json!("beam"))]),
+            params: BTreeMap::from([
+                ("modality".to_string(), serde_json::json!("beam")),
+                ("regional-tolerances".to_string(), serde_json::json!("off")),
+            ]),
             criteria: CriteriaSet {
                 name: "c".into(),
                 dose_difference_percent: None,

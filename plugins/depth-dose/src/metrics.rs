@@ -5,6 +5,8 @@
 //! Depths are in mm; doses in percent of the curve maximum. All depth look-ups interpolate
 //! linearly between samples.
 
+use beamproof_curve_tools::Region;
+
 /// Why a curve cannot give its metrics.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct CurveError(pub String);
@@ -131,16 +133,55 @@ pub fn dmax(depth: &[f64], pct: &[f64]) -> f64 {
 
 /// Dose (percent) at a depth by linear interpolation; error outside the scan.
 pub fn at_depth(depth: &[f64], pct: &[f64], z: f64) -> Result<f64, CurveError> {
-    if z < depth[0] || z > depth[depth.len() - 1] {
-        return Err(CurveError(format!(
+    beamproof_curve_tools::at(depth, pct, z).ok_or_else(|| {
+        CurveError(format!(
             "the scan ({:.1} to {:.1} mm) does not reach {z} mm",
             depth[0],
             depth[depth.len() - 1]
-        )));
+        ))
+    })
+}
+
+/// Regional comparison after Venselaar et al 2001 on the central axis: the build-up region
+/// (shallower than the measured d_max; delta2, as the depth distance to the calculated curve
+/// at the same dose) and the region from d_max on (delta1, local dose deviation). Both curves
+/// in percent of their maximum.
+pub fn regions(
+    mz: &[f64],
+    mp: &[f64],
+    cz: &[f64],
+    cp: &[f64],
+    geometry: beamproof_curve_tools::Geometry,
+) -> Vec<Region> {
+    let t = geometry.tolerances();
+    let zmax = dmax(mz, mp);
+    let (mut d1, mut d2) = (Vec::new(), Vec::new());
+    for (&z, &m) in mz.iter().zip(mp) {
+        let Some(c) = beamproof_curve_tools::at(cz, cp, z) else {
+            continue;
+        };
+        if z >= zmax {
+            d1.push(100.0 * (c - m) / m);
+        } else if let Some(p) = beamproof_curve_tools::nearest_crossing(cz, cp, m, z) {
+            d2.push((p - z).abs());
+        }
     }
-    let j = depth.partition_point(|&d| d <= z).clamp(1, depth.len() - 1);
-    let t = (z - depth[j - 1]) / (depth[j] - depth[j - 1]);
-    Ok(pct[j - 1] + t * (pct[j] - pct[j - 1]))
+    vec![
+        Region::from_deviations(
+            "delta1",
+            "delta1 from d_max on (local dose)",
+            "%",
+            &d1,
+            t.delta1_percent,
+        ),
+        Region::from_deviations(
+            "delta2",
+            "delta2 build-up (distance)",
+            "mm",
+            &d2,
+            t.delta2_mm,
+        ),
+    ]
 }
 
 /// Depth beyond the maximum where the curve first falls to `level` percent (linear
@@ -300,6 +341,34 @@ mod tests {
         assert!(close(e.r50_mm, 40.0, 1e-9));
         assert!(close(e.rp_mm, 60.0, 1e-9), "{}", e.rp_mm);
         assert!(close(e.e0_mev, 2.33 * 4.0, 1e-12));
+    }
+
+    #[test]
+    fn regions_split_at_dmax() {
+        // Calculated 1 % above measured beyond 20 mm (delta1 = 1 % exactly) and identical up to
+        // it (delta2 = 0). The sampled peak is at 20 mm; the parabola through 19, 20 and 21 mm
+        // puts d_max at 20.39 mm, so 0..20 mm (21 points) is build-up and 21..100 mm (80) beyond.
+        let z: Vec<f64> = (0..=100).map(f64::from).collect();
+        let m: Vec<f64> = z
+            .iter()
+            .map(|&x| {
+                if x <= 20.0 {
+                    50.0 + 2.5 * x
+                } else {
+                    100.0 - 0.3 * (x - 20.0)
+                }
+            })
+            .collect();
+        let c: Vec<f64> = z
+            .iter()
+            .zip(&m)
+            .map(|(&x, &v)| if x > 20.0 { 1.01 * v } else { v })
+            .collect();
+        let r = regions(&z, &m, &z, &c, beamproof_curve_tools::Geometry::Simple);
+        assert_eq!((r[0].n_points, r[1].n_points), (80, 21));
+        assert!((r[0].mean - 1.0).abs() < 1e-9 && r[0].sd < 1e-9);
+        assert!(r[1].confidence_limit.abs() < 1e-9);
+        assert_eq!((r[0].tolerance, r[1].tolerance), (2.0, 2.0));
     }
 
     #[test]

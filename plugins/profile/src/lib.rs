@@ -17,7 +17,8 @@ use beamproof_api::{
     Table, TestKind, fixed,
 };
 
-use metrics::{at, fff, profile};
+use beamproof_curve_tools::{Geometry, Region, at, regional_output};
+use metrics::{fff, profile};
 
 /// Plugin id used in campaign files.
 pub const NAME: &str = "profile";
@@ -305,7 +306,7 @@ impl Analysis for Profile {
             ]);
         }
         let regional = input.text("regional-tolerances")?;
-        let geometry = regions::Geometry::from_name(regional).unwrap_or(regions::Geometry::Simple);
+        let geometry = Geometry::from_name(regional).unwrap_or(Geometry::Simple);
         let fringe =
             |p: &metrics::ProfileMetrics| 0.5 * (p.fringe50_90_left_mm + p.fringe50_90_right_mm);
         let regional_results = regions::compare(
@@ -351,7 +352,7 @@ fn build_output(
     c: &Prepared,
     mut notes: Vec<String>,
     fff_beam: bool,
-    regional: &[regions::RegionResult],
+    regional: &[Region],
     judge_regions: bool,
 ) -> AnalysisOutput {
     let mut metrics = Vec::new();
@@ -403,53 +404,9 @@ fn build_output(
             })
             .collect(),
     };
-    for r in regional {
-        let status = (judge_regions && r.n_points > 0)
-            .then(|| Status::from_deviation(r.confidence_limit, r.tolerance, r.tolerance));
-        statuses.extend(status);
-        metrics.push(Metric {
-            id: format!("regional:{}", r.id),
-            label: format!("{}, confidence limit", r.label),
-            value: r.confidence_limit,
-            unit: r.unit.into(),
-            limits: judge_regions.then(|| Limits {
-                rule: "|mean| + 1.5 SD <= tolerance".into(),
-                tolerance: r.tolerance,
-                action: r.tolerance,
-            }),
-            status,
-        });
-    }
-    let regional_table = Table {
-        title: "Regional comparison (Venselaar et al 2001)".into(),
-        columns: [
-            "Region",
-            "Points",
-            "Mean",
-            "SD",
-            "|mean| + 1.5 SD",
-            "Tolerance",
-            "Status",
-        ]
-        .map(String::from)
-        .to_vec(),
-        rows: regional
-            .iter()
-            .zip(metrics.iter().rev().take(regional.len()).rev())
-            .map(|(r, mt)| {
-                vec![
-                    r.label.to_string(),
-                    r.n_points.to_string(),
-                    format!("{} {}", fixed(r.mean, 2), r.unit),
-                    format!("{} {}", fixed(r.sd, 2), r.unit),
-                    format!("{} {}", fixed(r.confidence_limit, 2), r.unit),
-                    format!("{} {}", fixed(r.tolerance, 1), r.unit),
-                    mt.status
-                        .map_or("info".to_string(), |s| s.word().to_string()),
-                ]
-            })
-            .collect(),
-    };
+    let (regional_metrics, regional_table) = regional_output(regional, judge_regions);
+    statuses.extend(regional_metrics.iter().filter_map(|m| m.status));
+    metrics.extend(regional_metrics);
     let (dx, dd): (Vec<f64>, Vec<f64>) = m
         .curve
         .positions_mm

@@ -58,15 +58,7 @@ pub struct FffMetrics {
     pub peak_mm: f64,
 }
 
-/// Dose at `x` by linear interpolation; `None` outside the scan.
-pub fn at(x: &[f64], d: &[f64], v: f64) -> Option<f64> {
-    if v < x[0] || v > x[x.len() - 1] {
-        return None;
-    }
-    let j = x.partition_point(|&p| p <= v).clamp(1, x.len() - 1);
-    let t = (v - x[j - 1]) / (x[j] - x[j - 1]);
-    Some(d[j - 1] + t * (d[j] - d[j - 1]))
-}
+pub use beamproof_curve_tools::at;
 
 /// First crossing of `level` walking from index `start` in direction `step` (+1 or -1),
 /// interpolated; `None` when the profile never falls to it.

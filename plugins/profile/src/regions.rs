@@ -9,80 +9,7 @@
 //! common practice, no source; the tolerances are the paper's table. The radiological width
 //! (RW50) and beam fringe (delta50-90) compare single widths.
 
-use crate::metrics::at;
-
-/// Geometry complexity classes of the paper's table.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Geometry {
-    Simple,
-    Complex,
-    MoreComplex,
-}
-
-impl Geometry {
-    pub fn from_name(s: &str) -> Option<Geometry> {
-        match s {
-            "simple" => Some(Geometry::Simple),
-            "complex" => Some(Geometry::Complex),
-            "more-complex" => Some(Geometry::MoreComplex),
-            _ => None,
-        }
-    }
-
-    /// Tolerances (delta2 mm, delta3 %, delta4 % of CAX, RW50 mm, delta50-90 mm) from
-    /// Venselaar et al 2001, table as given in REFERENCES 3.2 (found).
-    pub fn tolerances(self) -> [f64; 5] {
-        match self {
-            Geometry::Simple => [2.0, 3.0, 3.0, 2.0, 2.0],
-            Geometry::Complex => [3.0, 3.0, 4.0, 2.0, 3.0],
-            Geometry::MoreComplex => [3.0, 4.0, 5.0, 2.0, 3.0],
-        }
-    }
-}
-
-/// One region's result.
-#[derive(Debug, Clone, PartialEq)]
-pub struct RegionResult {
-    pub id: &'static str,
-    pub label: &'static str,
-    pub unit: &'static str,
-    pub n_points: usize,
-    pub mean: f64,
-    pub sd: f64,
-    /// |mean| + 1.5 SD (the value judged against the tolerance).
-    pub confidence_limit: f64,
-    pub tolerance: f64,
-}
-
-/// Mean, sample SD and confidence limit of deviations (NaN for an empty set).
-fn summary(v: &[f64]) -> (f64, f64, f64) {
-    if v.is_empty() {
-        return (f64::NAN, f64::NAN, f64::NAN);
-    }
-    let n = v.len() as f64;
-    let mean = v.iter().sum::<f64>() / n;
-    let sd = if v.len() > 1 {
-        (v.iter().map(|d| (d - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt()
-    } else {
-        0.0
-    };
-    (mean, sd, mean.abs() + 1.5 * sd)
-}
-
-/// Position where the profile `(x, d)` crosses `level` nearest to `near`, interpolated.
-fn nearest_crossing(x: &[f64], d: &[f64], level: f64, near: f64) -> Option<f64> {
-    let mut best: Option<f64> = None;
-    for j in 1..x.len() {
-        let (a, b) = (d[j - 1], d[j]);
-        if (a - level) * (b - level) <= 0.0 && a != b {
-            let p = x[j - 1] + (level - a) / (b - a) * (x[j] - x[j - 1]);
-            if best.is_none_or(|q| (p - near).abs() < (q - near).abs()) {
-                best = Some(p);
-            }
-        }
-    }
-    best
-}
+use beamproof_curve_tools::{Geometry, Region, at, nearest_crossing};
 
 /// Compare a calculated profile with the measured one region by region. Both in percent of
 /// their central-axis dose; `widths` are (measured, calculated) field sizes and 50-90 % fringe
@@ -94,8 +21,8 @@ pub fn compare(
     cd: &[f64],
     widths: [(f64, f64); 2],
     geometry: Geometry,
-) -> Vec<RegionResult> {
-    let tol = geometry.tolerances();
+) -> Vec<Region> {
+    let t = geometry.tolerances();
     let (mut d2, mut d3, mut d4) = (Vec::new(), Vec::new(), Vec::new());
     for (&x, &m) in mx.iter().zip(md) {
         let Some(c) = at(cx, cd, x) else { continue };
@@ -109,53 +36,42 @@ pub fn compare(
             d4.push(c - m);
         }
     }
-    let region = |id, label, unit, v: &[f64], tolerance| {
-        let (mean, sd, cl) = summary(v);
-        RegionResult {
-            id,
-            label,
-            unit,
-            n_points: v.len(),
-            mean,
-            sd,
-            confidence_limit: cl,
-            tolerance,
-        }
-    };
-    let single = |id, label, (m, c): (f64, f64), tolerance| RegionResult {
-        id,
-        label,
-        unit: "mm",
-        n_points: 1,
-        mean: c - m,
-        sd: 0.0,
-        confidence_limit: (c - m).abs(),
-        tolerance,
-    };
     vec![
-        region(
+        Region::from_deviations(
             "delta2",
             "delta2 penumbra, 20-80 % (distance)",
             "mm",
             &d2,
-            tol[0],
+            t.delta2_mm,
         ),
-        region(
+        Region::from_deviations(
             "delta3",
             "delta3 in field, >= 80 % (local dose)",
             "%",
             &d3,
-            tol[1],
+            t.delta3_percent,
         ),
-        region(
+        Region::from_deviations(
             "delta4",
             "delta4 outside, <= 20 % (of CAX dose)",
             "%",
             &d4,
-            tol[2],
+            t.delta4_percent,
         ),
-        single("rw50", "RW50 radiological width", widths[0], tol[3]),
-        single("delta50-90", "delta50-90 beam fringe", widths[1], tol[4]),
+        Region::single(
+            "rw50",
+            "RW50 radiological width",
+            widths[0].0,
+            widths[0].1,
+            t.rw50_mm,
+        ),
+        Region::single(
+            "delta50-90",
+            "delta50-90 beam fringe",
+            widths[1].0,
+            widths[1].1,
+            t.fringe_mm,
+        ),
     ]
 }
 

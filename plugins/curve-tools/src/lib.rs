@@ -1,0 +1,259 @@
+//! Helpers shared by the beam-data plugins (profile, depth-dose): linear interpolation on a
+//! sampled curve, level crossings, and the regional tolerances of Venselaar, Welleweerd &
+//! Mijnheer (Radiother Oncol 2001;60:191-201) with their confidence-limit statistic.
+
+use beamproof_api::{Limits, Metric, Status, Table, fixed};
+
+/// One region of a regional comparison (Venselaar et al 2001).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Region {
+    pub id: &'static str,
+    pub label: &'static str,
+    pub unit: &'static str,
+    pub n_points: usize,
+    pub mean: f64,
+    pub sd: f64,
+    /// |mean| + 1.5 SD, the value judged against the tolerance.
+    pub confidence_limit: f64,
+    pub tolerance: f64,
+}
+
+impl Region {
+    /// A region from its deviations.
+    pub fn from_deviations(
+        id: &'static str,
+        label: &'static str,
+        unit: &'static str,
+        v: &[f64],
+        tolerance: f64,
+    ) -> Region {
+        let (mean, sd, confidence_limit) = confidence(v);
+        Region {
+            id,
+            label,
+            unit,
+            n_points: v.len(),
+            mean,
+            sd,
+            confidence_limit,
+            tolerance,
+        }
+    }
+
+    /// A region made of one width difference (calculated minus measured).
+    pub fn single(
+        id: &'static str,
+        label: &'static str,
+        measured: f64,
+        calculated: f64,
+        tolerance: f64,
+    ) -> Region {
+        let d = calculated - measured;
+        Region {
+            id,
+            label,
+            unit: "mm",
+            n_points: 1,
+            mean: d,
+            sd: 0.0,
+            confidence_limit: d.abs(),
+            tolerance,
+        }
+    }
+}
+
+/// Metrics (`regional:<id>`) and a table for regions; judged (tolerance as the action level)
+/// only when `judge` is true, otherwise informational.
+pub fn regional_output(regions: &[Region], judge: bool) -> (Vec<Metric>, Table) {
+    let metrics: Vec<Metric> = regions
+        .iter()
+        .map(|r| {
+            let status = (judge && r.n_points > 0)
+                .then(|| Status::from_deviation(r.confidence_limit, r.tolerance, r.tolerance));
+            Metric {
+                id: format!("regional:{}", r.id),
+                label: format!("{}, confidence limit", r.label),
+                value: r.confidence_limit,
+                unit: r.unit.into(),
+                limits: judge.then(|| Limits {
+                    rule: "|mean| + 1.5 SD <= tolerance".into(),
+                    tolerance: r.tolerance,
+                    action: r.tolerance,
+                }),
+                status,
+            }
+        })
+        .collect();
+    let table = Table {
+        title: "Regional comparison (Venselaar et al 2001)".into(),
+        columns: [
+            "Region",
+            "Points",
+            "Mean",
+            "SD",
+            "|mean| + 1.5 SD",
+            "Tolerance",
+            "Status",
+        ]
+        .map(String::from)
+        .to_vec(),
+        rows: regions
+            .iter()
+            .zip(&metrics)
+            .map(|(r, m)| {
+                vec![
+                    r.label.to_string(),
+                    r.n_points.to_string(),
+                    format!("{} {}", fixed(r.mean, 2), r.unit),
+                    format!("{} {}", fixed(r.sd, 2), r.unit),
+                    format!("{} {}", fixed(r.confidence_limit, 2), r.unit),
+                    format!("{} {}", fixed(r.tolerance, 1), r.unit),
+                    m.status
+                        .map_or("info".to_string(), |s| s.word().to_string()),
+                ]
+            })
+            .collect(),
+    };
+    (metrics, table)
+}
+
+/// Value at `v` by linear interpolation of increasing samples `x`; `None` outside the scan.
+pub fn at(x: &[f64], d: &[f64], v: f64) -> Option<f64> {
+    if x.is_empty() || v < x[0] || v > x[x.len() - 1] {
+        return None;
+    }
+    if x.len() == 1 {
+        return Some(d[0]);
+    }
+    let j = x.partition_point(|&p| p <= v).clamp(1, x.len() - 1);
+    let t = (v - x[j - 1]) / (x[j] - x[j - 1]);
+    Some(d[j - 1] + t * (d[j] - d[j - 1]))
+}
+
+/// Position where the curve crosses `level` nearest to `near`, interpolated; `None` when it
+/// never does.
+pub fn nearest_crossing(x: &[f64], d: &[f64], level: f64, near: f64) -> Option<f64> {
+    let mut best: Option<f64> = None;
+    for j in 1..x.len() {
+        let (a, b) = (d[j - 1], d[j]);
+        if (a - level) * (b - level) <= 0.0 && a != b {
+            let p = x[j - 1] + (level - a) / (b - a) * (x[j] - x[j - 1]);
+            if best.is_none_or(|q| (p - near).abs() < (q - near).abs()) {
+                best = Some(p);
+            }
+        }
+    }
+    best
+}
+
+/// Geometry classes of the Venselaar et al 2001 tolerance table.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Geometry {
+    Simple,
+    Complex,
+    MoreComplex,
+}
+
+/// Tolerances of one geometry class (Venselaar et al 2001, as tabulated in REFERENCES 3.2).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Tolerances {
+    /// delta1: central axis beyond build-up, local dose deviation, %.
+    pub delta1_percent: f64,
+    /// delta2: build-up and penumbra, as distance, mm.
+    pub delta2_mm: f64,
+    /// delta3: off-axis in field, local dose deviation, %.
+    pub delta3_percent: f64,
+    /// delta4: outside the field, % of the central-axis dose.
+    pub delta4_percent: f64,
+    /// Radiological width (50-50 %), mm.
+    pub rw50_mm: f64,
+    /// Beam fringe (50-90 %), mm.
+    pub fringe_mm: f64,
+}
+
+impl Geometry {
+    /// Parse `simple`, `complex` or `more-complex`.
+    pub fn from_name(s: &str) -> Option<Geometry> {
+        match s {
+            "simple" => Some(Geometry::Simple),
+            "complex" => Some(Geometry::Complex),
+            "more-complex" => Some(Geometry::MoreComplex),
+            _ => None,
+        }
+    }
+
+    pub fn tolerances(self) -> Tolerances {
+        let (d1, d2, d3, d4, rw, fr) = match self {
+            Geometry::Simple => (2.0, 2.0, 3.0, 3.0, 2.0, 2.0),
+            Geometry::Complex => (3.0, 3.0, 3.0, 4.0, 2.0, 3.0),
+            Geometry::MoreComplex => (4.0, 3.0, 4.0, 5.0, 2.0, 3.0),
+        };
+        Tolerances {
+            delta1_percent: d1,
+            delta2_mm: d2,
+            delta3_percent: d3,
+            delta4_percent: d4,
+            rw50_mm: rw,
+            fringe_mm: fr,
+        }
+    }
+}
+
+/// Mean, sample standard deviation and confidence limit |mean| + 1.5 SD of deviations
+/// (Venselaar et al 2001; the 1.5 factor is value from memory in REFERENCES 3.2). NaN for an
+/// empty set; SD 0 for one value.
+pub fn confidence(v: &[f64]) -> (f64, f64, f64) {
+    if v.is_empty() {
+        return (f64::NAN, f64::NAN, f64::NAN);
+    }
+    let n = v.len() as f64;
+    let mean = v.iter().sum::<f64>() / n;
+    let sd = if v.len() > 1 {
+        (v.iter().map(|d| (d - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt()
+    } else {
+        0.0
+    };
+    (mean, sd, mean.abs() + 1.5 * sd)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn confidence_limit_uses_the_sample_standard_deviation() {
+        // Values 1, 2, 3: mean 2, sample SD 1 (n - 1 denominator), limit 2 + 1.5 = 3.5.
+        assert_eq!(confidence(&[1.0, 2.0, 3.0]), (2.0, 1.0, 3.5));
+        assert!(confidence(&[]).2.is_nan());
+    }
+
+    #[test]
+    fn crossings_and_interpolation() {
+        let x = [0.0, 1.0, 2.0, 3.0];
+        let d = [0.0, 10.0, 10.0, 0.0];
+        assert_eq!(at(&x, &d, 0.5), Some(5.0));
+        assert_eq!(at(&x, &d, 3.5), None);
+        assert_eq!(nearest_crossing(&x, &d, 5.0, 2.9), Some(2.5));
+        assert_eq!(nearest_crossing(&x, &d, 5.0, 0.1), Some(0.5));
+        assert_eq!(nearest_crossing(&x, &d, 20.0, 0.0), None);
+    }
+
+    #[test]
+    fn tolerance_table() {
+        // Venselaar et al 2001 (REFERENCES 3.2, found): simple geometry 2 %, 2 mm, 3 %, 3 %.
+        let t = Geometry::Simple.tolerances();
+        assert_eq!(
+            (
+                t.delta1_percent,
+                t.delta2_mm,
+                t.delta3_percent,
+                t.delta4_percent
+            ),
+            (2.0, 2.0, 3.0, 3.0)
+        );
+        assert_eq!(
+            Geometry::from_name("more-complex").map(|g| g.tolerances().delta1_percent),
+            Some(4.0)
+        );
+    }
+}
