@@ -16,5 +16,5 @@ pub use data::{
 };
 pub use outcome::{
     AnalysisOutput, Band, Figure, LIMIT_SLACK, Limits, Metric, Reference, Series, SeriesStyle,
-    Status, Table, fixed,
+    Span, Status, Table, fixed,
 };

@@ -161,6 +161,14 @@ pub struct Band {
     pub high: f64,
 }
 
+/// A range along the x axis of a chart, shaded and labelled.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Span {
+    pub label: String,
+    pub from: f64,
+    pub to: f64,
+}
+
 /// Figures are described as data; the report decides how to draw them.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "figure", rename_all = "kebab-case")]
@@ -172,6 +180,9 @@ pub enum Figure {
         y_label: String,
         series: Vec<Series>,
         bands: Vec<Band>,
+        /// Shaded ranges along the x axis, e.g. the regions of a regional comparison.
+        #[serde(default)]
+        spans: Vec<Span>,
     },
     /// Histogram with `edges.len() == counts.len() + 1`.
     Histogram {

@@ -12,8 +12,8 @@ pub mod metrics;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
-    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Status,
-    Table, TestKind, fixed,
+    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
+    Status, Table, TestKind, fixed,
 };
 
 use beamproof_curve_tools::{Geometry, regional_output};
@@ -350,6 +350,22 @@ fn build_output(
         .zip(mp)
         .filter_map(|(&z, &v)| at_depth(&c.positions_mm, cp, z).ok().map(|w| (z, w - v)))
         .unzip();
+    // Region shading for photons: build-up before the measured d_max, then beyond.
+    let spans = match (electrons, m.positions_mm.first(), m.positions_mm.last()) {
+        (false, Some(&first), Some(&last)) => vec![
+            Span {
+                label: "delta2 build-up".into(),
+                from: first,
+                to: rows[0].measured,
+            },
+            Span {
+                label: "delta1".into(),
+                from: rows[0].measured,
+                to: last,
+            },
+        ],
+        _ => Vec::new(),
+    };
     let figures = vec![
         Figure::Chart {
             title: "Depth dose, normalised to each maximum".into(),
@@ -370,6 +386,7 @@ fn build_output(
                 },
             ],
             bands: vec![],
+            spans: spans.clone(),
         },
         Figure::Chart {
             title: "Calculated minus measured".into(),
@@ -382,6 +399,7 @@ fn build_output(
                 y: dd,
             }],
             bands: vec![],
+            spans: spans.clone(),
         },
     ];
     let mut notes = vec!["Both curves are normalised to their own maximum; differences are calculated minus measured.".to_string()];

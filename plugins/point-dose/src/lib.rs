@@ -315,6 +315,7 @@ fn build_output(
                 high: levels.tolerance,
             },
         ],
+        spans: vec![],
     };
     AnalysisOutput {
         metrics,

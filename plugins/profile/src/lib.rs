@@ -13,8 +13,8 @@ pub mod regions;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
-    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Status,
-    Table, TestKind, fixed,
+    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
+    Status, Table, TestKind, fixed,
 };
 
 use beamproof_curve_tools::{Geometry, Region, at, regional_output};
@@ -331,6 +331,23 @@ impl Analysis for Profile {
         } else {
             format!("Regional comparison judged with the `{regional}` tolerances of Venselaar et al 2001 on the confidence limit |mean| + 1.5 SD; region boundaries at 80 % and 20 % of the measured central-axis dose (common practice).")
         });
+        let spans = vec![
+            Span {
+                label: "delta2".into(),
+                from: a.left20_mm,
+                to: a.left80_mm,
+            },
+            Span {
+                label: "delta3".into(),
+                from: a.left80_mm,
+                to: a.right80_mm,
+            },
+            Span {
+                label: "delta2".into(),
+                from: a.right80_mm,
+                to: a.right20_mm,
+            },
+        ];
         Ok(build_output(
             input,
             &rows,
@@ -340,6 +357,7 @@ impl Analysis for Profile {
             fff_beam,
             &regional_results,
             regional != "off",
+            &spans,
         ))
     }
 }
@@ -354,6 +372,7 @@ fn build_output(
     fff_beam: bool,
     regional: &[Region],
     judge_regions: bool,
+    spans: &[Span],
 ) -> AnalysisOutput {
     let mut metrics = Vec::new();
     let mut statuses = Vec::new();
@@ -434,6 +453,7 @@ fn build_output(
                 },
             ],
             bands: vec![],
+            spans: spans.to_vec(),
         },
         Figure::Chart {
             title: "Calculated minus measured".into(),
@@ -446,6 +466,7 @@ fn build_output(
                 y: dd,
             }],
             bands: vec![],
+            spans: spans.to_vec(),
         },
     ];
     let unjudged: Vec<&str> = rows

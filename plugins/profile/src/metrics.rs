@@ -14,6 +14,11 @@ pub struct ProfileError(pub String);
 pub struct ProfileMetrics {
     pub left50_mm: f64,
     pub right50_mm: f64,
+    /// 80 % and 20 % crossings (region boundaries of the regional comparison).
+    pub left80_mm: f64,
+    pub right80_mm: f64,
+    pub left20_mm: f64,
+    pub right20_mm: f64,
     pub field_size_mm: f64,
     /// Midpoint of the 50 % edges (offset of the field centre from the central axis).
     pub centre_mm: f64,
@@ -161,6 +166,10 @@ pub fn profile(
     Ok(ProfileMetrics {
         left50_mm: l50,
         right50_mm: r50,
+        left80_mm: l80,
+        right80_mm: r80,
+        left20_mm: l20,
+        right20_mm: r20,
         field_size_mm: fs,
         centre_mm: centre,
         penumbra80_20_left_mm: l80 - l20,
