@@ -146,6 +146,40 @@ pub fn nearest_crossing(x: &[f64], d: &[f64], level: f64, near: f64) -> Option<f
     best
 }
 
+/// Savitzky-Golay smoothing (quadratic, window `2 half + 1` samples) of uniformly spaced data
+/// (Savitzky & Golay, Anal Chem 1964;36:1627-1639): weights
+/// `c_i = (3(3m^2 + 3m - 1) - 15 i^2) / ((2m - 1)(2m + 1)(2m + 3))`, i = -m..m. Polynomials up
+/// to degree 3 pass unchanged. The first and last `half` samples are left as they are.
+pub fn savitzky_golay(d: &[f64], half: usize) -> Vec<f64> {
+    if half == 0 || d.len() < 2 * half + 1 {
+        return d.to_vec();
+    }
+    let m = half as f64;
+    let norm = (2.0 * m - 1.0) * (2.0 * m + 1.0) * (2.0 * m + 3.0);
+    let w: Vec<f64> = (-(half as i64)..=half as i64)
+        .map(|i| (3.0 * (3.0 * m * m + 3.0 * m - 1.0) - 15.0 * (i * i) as f64) / norm)
+        .collect();
+    let mut out = d.to_vec();
+    for (j, o) in out.iter_mut().enumerate().take(d.len() - half).skip(half) {
+        *o = w
+            .iter()
+            .enumerate()
+            .map(|(k, wk)| wk * d[j + k - half])
+            .sum();
+    }
+    out
+}
+
+/// True when the positions are evenly spaced within 1 % of the mean step.
+pub fn uniformly_spaced(x: &[f64]) -> bool {
+    if x.len() < 3 {
+        return true;
+    }
+    let step = (x[x.len() - 1] - x[0]) / (x.len() - 1) as f64;
+    x.windows(2)
+        .all(|p| ((p[1] - p[0]) - step).abs() <= 0.01 * step.abs())
+}
+
 /// Geometry classes of the Venselaar et al 2001 tolerance table.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Geometry {
@@ -236,6 +270,36 @@ mod tests {
         assert_eq!(nearest_crossing(&x, &d, 5.0, 2.9), Some(2.5));
         assert_eq!(nearest_crossing(&x, &d, 5.0, 0.1), Some(0.5));
         assert_eq!(nearest_crossing(&x, &d, 20.0, 0.0), None);
+    }
+
+    #[test]
+    fn savitzky_golay_five_point_weights_and_polynomials() {
+        // Savitzky & Golay 1964, quadratic 5-point smoothing: (-3, 12, 17, 12, -3) / 35.
+        let impulse = [0.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0];
+        let s = savitzky_golay(&impulse, 2);
+        let want = [
+            0.0,
+            0.0,
+            -3.0 / 35.0,
+            12.0 / 35.0,
+            17.0 / 35.0,
+            12.0 / 35.0,
+            -3.0 / 35.0,
+            0.0,
+            0.0,
+        ];
+        for (a, b) in s.iter().zip(want) {
+            assert!((a - b).abs() < 1e-15, "{s:?}");
+        }
+        // A cubic passes unchanged (the quadratic smoother is exact to degree 3).
+        let x: Vec<f64> = (0..30).map(f64::from).collect();
+        let cubic: Vec<f64> = x
+            .iter()
+            .map(|v| 1.0 + 0.5 * v - 0.02 * v * v + 0.001 * v * v * v)
+            .collect();
+        let sm = savitzky_golay(&cubic, 3);
+        assert!(sm.iter().zip(&cubic).all(|(a, b)| (a - b).abs() < 1e-9));
+        assert!(uniformly_spaced(&x) && !uniformly_spaced(&[0.0, 1.0, 3.0]));
     }
 
     #[test]

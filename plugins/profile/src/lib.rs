@@ -12,9 +12,9 @@ pub mod metrics;
 pub mod regions;
 
 use beamproof_api::{
-    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
-    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
-    Status, Table, TestKind, fixed,
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, CurveAxis, DatasetData, Figure, Limits,
+    Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
+    Table, TestKind, fixed,
 };
 
 use beamproof_curve_tools::{Geometry, Region, at, regional_output};
@@ -57,18 +57,20 @@ impl Row {
 }
 
 /// A profile normalised for analysis, with where its edge search starts and what was done.
-struct Prepared<'a> {
-    curve: &'a Curve,
+struct Prepared {
+    axis: CurveAxis,
+    positions: Vec<f64>,
     percent: Vec<f64>,
     origin: f64,
     note: Option<String>,
 }
 
-fn prepare<'a>(
-    input: &'a AnalysisInput,
+fn prepare(
+    input: &AnalysisInput,
     role: &str,
     to_max: bool,
-) -> Result<Prepared<'a>, AnalysisError> {
+    smooth_half: usize,
+) -> Result<Prepared, AnalysisError> {
     let ds = if role == "measured" {
         input.measured.as_ref()
     } else {
@@ -115,12 +117,36 @@ fn prepare<'a>(
             )),
         ),
     };
+    let mut percent: Vec<f64> = c.dose.iter().map(|d| 100.0 * d / norm).collect();
+    if smooth_half > 0 {
+        if !beamproof_curve_tools::uniformly_spaced(&c.positions_mm) {
+            return Err(AnalysisError::new(format!(
+                "`{}`: smoothing needs evenly spaced positions",
+                ds.source
+            )));
+        }
+        percent = beamproof_curve_tools::savitzky_golay(&percent, smooth_half);
+    }
     Ok(Prepared {
-        curve: c,
-        percent: c.dose.iter().map(|d| 100.0 * d / norm).collect(),
+        axis: c.axis,
+        positions: c.positions_mm.clone(),
+        percent,
         origin,
         note,
     })
+}
+
+impl Prepared {
+    /// The same profile with positions shifted so that `centre` is at 0.
+    fn centred(&self, centre: f64) -> Prepared {
+        Prepared {
+            axis: self.axis,
+            positions: self.positions.iter().map(|x| x - centre).collect(),
+            percent: self.percent.clone(),
+            origin: self.origin - centre,
+            note: self.note.clone(),
+        }
+    }
 }
 
 fn references(fff_beam: bool) -> Vec<Reference> {
@@ -153,6 +179,20 @@ impl Analysis for Profile {
                     description: "Normalisation of both profiles before the metrics (the maximum is used when the central axis lies outside the field)".into(),
                 },
                 ParamSpec {
+                    name: "smoothing-points".into(),
+                    kind: ParamType::Integer { min: Some(0), max: Some(51) },
+                    default: Some(0.into()),
+                    unit: "samples".into(),
+                    description: "Savitzky-Golay (quadratic) smoothing window applied to both profiles before the metrics; 0 is off, else odd".into(),
+                },
+                ParamSpec {
+                    name: "centre-on-edges".into(),
+                    kind: ParamType::Bool,
+                    default: Some(false.into()),
+                    unit: String::new(),
+                    description: "Shift each profile so its 50 % centre is at 0 before the regional comparison and the difference curve".into(),
+                },
+                ParamSpec {
                     name: "regional-tolerances".into(),
                     kind: ParamType::Choice { choices: vec!["off".into(), "simple".into(), "complex".into(), "more-complex".into()] },
                     default: Some("off".into()),
@@ -166,15 +206,26 @@ impl Analysis for Profile {
     fn analyse(&self, input: &AnalysisInput) -> Result<AnalysisOutput, AnalysisError> {
         let to_max = input.text("normalise")? == "maximum";
         let fff_beam = input.test.beam.as_ref().is_some_and(|b| b.fff);
-        let m = prepare(input, "measured", to_max)?;
-        let c = prepare(input, "calculated", to_max)?;
-        let diagonal = m.curve.axis == CurveAxis::Diagonal;
+        let smoothing = input
+            .params
+            .get("smoothing-points")
+            .and_then(|v| v.as_i64())
+            .unwrap_or(0);
+        if smoothing != 0 && (smoothing < 3 || smoothing % 2 == 0) {
+            return Err(AnalysisError::new(format!(
+                "`smoothing-points` must be 0 (off) or an odd number of at least 3, not {smoothing}"
+            )));
+        }
+        let smooth_half = (smoothing / 2) as usize;
+        let m = prepare(input, "measured", to_max, smooth_half)?;
+        let c = prepare(input, "calculated", to_max, smooth_half)?;
+        let diagonal = m.axis == CurveAxis::Diagonal;
         let fail = |role: &str, e: metrics::ProfileError| {
             AnalysisError::new(format!("{role} profile: {}", e.0))
         };
-        let a = profile(&m.curve.positions_mm, &m.percent, m.origin, diagonal)
+        let a = profile(&m.positions, &m.percent, m.origin, diagonal)
             .map_err(|e| fail("measured", e))?;
-        let b = profile(&c.curve.positions_mm, &c.percent, c.origin, diagonal)
+        let b = profile(&c.positions, &c.percent, c.origin, diagonal)
             .map_err(|e| fail("calculated", e))?;
         let row = |id, label, unit, measured, calculated| Row {
             id,
@@ -229,10 +280,8 @@ impl Analysis for Profile {
             ),
         ];
         if fff_beam {
-            let fa = fff(&m.curve.positions_mm, &m.percent, m.origin)
-                .map_err(|e| fail("measured", e))?;
-            let fb = fff(&c.curve.positions_mm, &c.percent, c.origin)
-                .map_err(|e| fail("calculated", e))?;
+            let fa = fff(&m.positions, &m.percent, m.origin).map_err(|e| fail("measured", e))?;
+            let fb = fff(&c.positions, &c.percent, c.origin).map_err(|e| fail("calculated", e))?;
             rows.extend([
                 row(
                     "fff-field-size-mm",
@@ -305,14 +354,25 @@ impl Analysis for Profile {
                 ),
             ]);
         }
+        // Optionally align the two field centres before the point-by-point comparisons.
+        let centre_on_edges = input
+            .params
+            .get("centre-on-edges")
+            .and_then(|v| v.as_bool())
+            .unwrap_or(false);
+        let (m, c) = if centre_on_edges {
+            (m.centred(a.centre_mm), c.centred(b.centre_mm))
+        } else {
+            (m, c)
+        };
         let regional = input.text("regional-tolerances")?;
         let geometry = Geometry::from_name(regional).unwrap_or(Geometry::Simple);
         let fringe =
             |p: &metrics::ProfileMetrics| 0.5 * (p.fringe50_90_left_mm + p.fringe50_90_right_mm);
         let regional_results = regions::compare(
-            &m.curve.positions_mm,
+            &m.positions,
             &m.percent,
-            &c.curve.positions_mm,
+            &c.positions,
             &c.percent,
             [(a.field_size_mm, b.field_size_mm), (fringe(&a), fringe(&b))],
             geometry,
@@ -427,11 +487,10 @@ fn build_output(
     statuses.extend(regional_metrics.iter().filter_map(|m| m.status));
     metrics.extend(regional_metrics);
     let (dx, dd): (Vec<f64>, Vec<f64>) = m
-        .curve
-        .positions_mm
+        .positions
         .iter()
         .zip(&m.percent)
-        .filter_map(|(&x, &v)| at(&c.curve.positions_mm, &c.percent, x).map(|w| (x, w - v)))
+        .filter_map(|(&x, &v)| at(&c.positions, &c.percent, x).map(|w| (x, w - v)))
         .unzip();
     let figures = vec![
         Figure::Chart {
@@ -442,13 +501,13 @@ fn build_output(
                 Series {
                     name: "measured".into(),
                     style: SeriesStyle::Markers,
-                    x: m.curve.positions_mm.clone(),
+                    x: m.positions.clone(),
                     y: m.percent.clone(),
                 },
                 Series {
                     name: "calculated".into(),
                     style: SeriesStyle::Line,
-                    x: c.curve.positions_mm.clone(),
+                    x: c.positions.clone(),
                     y: c.percent.clone(),
                 },
             ],
@@ -499,7 +558,7 @@ fn build_output(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use beamproof_api::{BeamInfo, CriteriaSet, Dataset, DoseUnit, Levels, TestInfo};
+    use beamproof_api::{BeamInfo, CriteriaSet, Curve, Dataset, DoseUnit, Levels, TestInfo};
     use std::collections::BTreeMap;
 
     fn linear_edge_profile(half: f64, shift: f64) -> Curve {
@@ -618,6 +677,67 @@ mod tests {
         assert!((get("regional:rw50").value - 2.0).abs() < 1e-9);
         assert_eq!(get("regional:rw50").status, Some(Status::Pass));
         assert_eq!(out.tables[1].rows.len(), 5);
+    }
+
+    #[test]
+    fn centring_aligns_the_edges_before_the_regional_comparison() {
+        // Calculated shifted 1.5 mm: without centring the penumbra points are 1.5 mm apart
+        // (linear edges); centred on their 50 % midpoints they coincide. The centre metric
+        // still reports the 1.5 mm offset.
+        let mut inp = input(
+            linear_edge_profile(40.0, 0.0),
+            linear_edge_profile(40.0, 1.5),
+            false,
+            &[],
+        );
+        let delta2 = |out: &AnalysisOutput| {
+            out.metrics
+                .iter()
+                .find(|m| m.id == "regional:delta2")
+                .map(|m| m.value)
+                .expect("delta2")
+        };
+        let plain = Profile.analyse(&inp).expect("runs");
+        inp.params
+            .insert("centre-on-edges".into(), serde_json::json!(true));
+        let centred = Profile.analyse(&inp).expect("runs");
+        assert!(delta2(&plain) > 1.4, "{}", delta2(&plain));
+        assert!(delta2(&centred) < 1e-9, "{}", delta2(&centred));
+        let centre = centred
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:centre-mm")
+            .expect("centre")
+            .value;
+        assert!((centre - 1.5).abs() < 1e-9);
+    }
+
+    #[test]
+    fn smoothing_window_must_be_odd() {
+        let mut inp = input(
+            linear_edge_profile(40.0, 0.0),
+            linear_edge_profile(40.0, 0.0),
+            false,
+            &[],
+        );
+        inp.params
+            .insert("smoothing-points".into(), serde_json::json!(4));
+        let e = Profile.analyse(&inp).expect_err("even window");
+        assert_eq!(
+            e.message,
+            "`smoothing-points` must be 0 (off) or an odd number of at least 3, not 4"
+        );
+        inp.params
+            .insert("smoothing-points".into(), serde_json::json!(5));
+        let out = Profile.analyse(&inp).expect("odd window");
+        // Linear edges and plateau are polynomials piecewise; smoothing keeps the field size.
+        let fs = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:field-size-mm")
+            .expect("fs")
+            .value;
+        assert!(fs.abs() < 1e-9);
     }
 
     #[test]
