@@ -11,9 +11,9 @@
 pub mod metrics;
 
 use beamproof_api::{
-    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Curve, CurveAxis, DatasetData, Figure,
-    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
-    Status, Table, TestKind, fixed,
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, Curve, CurveAxis, DatasetData,
+    Figure, Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle,
+    Span, Status, Table, TestKind, fixed,
 };
 
 use beamproof_curve_tools::{Geometry, regional_output};
@@ -266,6 +266,18 @@ impl Analysis for DepthDose {
         if !regions.is_empty() {
             let judge = regional != "off";
             let (rm, table) = regional_output(&regions, judge);
+            // The delta1 tolerance as a band on the difference curve (percentage points of the
+            // maximum approximate the local deviation near the maximum).
+            if let (Some(d1), Some(Figure::Chart { bands, .. })) = (
+                regions.iter().find(|r| r.id == "delta1"),
+                out.figures.get_mut(1),
+            ) {
+                bands.push(Band {
+                    label: format!("delta1 tolerance +-{} %", d1.tolerance),
+                    low: -d1.tolerance,
+                    high: d1.tolerance,
+                });
+            }
             let worst = Status::worst(rm.iter().filter_map(|m| m.status));
             out.status = Status::worst(out.status.into_iter().chain(worst));
             out.metrics.extend(rm);

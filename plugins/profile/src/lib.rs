@@ -12,9 +12,9 @@ pub mod metrics;
 pub mod regions;
 
 use beamproof_api::{
-    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, CurveAxis, DatasetData, Figure, Limits,
-    Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
-    Table, TestKind, fixed,
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, CurveAxis, DatasetData, Figure,
+    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
+    Status, Table, TestKind, fixed,
 };
 
 use beamproof_curve_tools::{Geometry, Region, at, regional_output};
@@ -354,6 +354,22 @@ impl Analysis for Profile {
                 ),
             ]);
         }
+        rows.extend([
+            row(
+                "in-field-max",
+                "Maximum in the flattened region",
+                "%",
+                a.max_in_region,
+                b.max_in_region,
+            ),
+            row(
+                "in-field-min",
+                "Minimum in the flattened region",
+                "%",
+                a.min_in_region,
+                b.min_in_region,
+            ),
+        ]);
         // Optionally align the two field centres before the point-by-point comparisons.
         let centre_on_edges = input
             .params
@@ -484,6 +500,16 @@ fn build_output(
             .collect(),
     };
     let (regional_metrics, regional_table) = regional_output(regional, judge_regions);
+    // The in-field tolerance (delta3) of the regional comparison as a band on the difference.
+    let bands: Vec<Band> = regional
+        .iter()
+        .filter(|r| r.id == "delta3")
+        .map(|r| Band {
+            label: format!("delta3 tolerance +-{} %", r.tolerance),
+            low: -r.tolerance,
+            high: r.tolerance,
+        })
+        .collect();
     statuses.extend(regional_metrics.iter().filter_map(|m| m.status));
     metrics.extend(regional_metrics);
     let (dx, dd): (Vec<f64>, Vec<f64>) = m
@@ -524,7 +550,7 @@ fn build_output(
                 x: dx,
                 y: dd,
             }],
-            bands: vec![],
+            bands,
             spans: spans.to_vec(),
         },
     ];

@@ -379,6 +379,39 @@ mod tests {
     }
 
     #[test]
+    fn a_tilted_plateau_has_the_analytic_symmetry() {
+        // Plateau 100 + 0.05 x (a 0.05 %/mm tilt) with untilted edges, 50 % at +-52 mm so the
+        // field centre is 0: the region is
+        // +-41.6 mm (IEC table, 10 % of 104 mm excluded per side), the farthest sample pair
+        // inside is x = +-41, so IEC symmetry = 100 (100 + 2.05)/(100 - 2.05) = 104.186 % and
+        // the point difference 4.1 % (algebra).
+        let x: Vec<f64> = (-100..=100).map(f64::from).collect();
+        let d: Vec<f64> = x
+            .iter()
+            .map(|&u| {
+                if u.abs() > 60.0 {
+                    5.0
+                } else if u.abs() > 50.0 {
+                    60.0 - (u.abs() - 50.0) * 5.0
+                } else {
+                    100.0 + 0.05 * u
+                }
+            })
+            .collect();
+        let m = profile(&x, &d, 0.0, false).expect("metrics");
+        assert!(
+            (m.symmetry_iec - 100.0 * 102.05 / 97.95).abs() < 1e-9,
+            "{}",
+            m.symmetry_iec
+        );
+        assert!(
+            (m.symmetry_point - 4.1).abs() < 1e-9,
+            "{}",
+            m.symmetry_point
+        );
+    }
+
+    #[test]
     fn iec_region_follows_the_field_size_table() {
         // IEC 60976 table as summarised in REFERENCES 4.1 (value from memory there).
         assert_eq!(region_half_width(100.0, false), 40.0);
