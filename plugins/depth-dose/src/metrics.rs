@@ -155,6 +155,11 @@ pub fn regions(
 ) -> Vec<Region> {
     let t = geometry.tolerances();
     let zmax = dmax(mz, mp);
+    // The calculated build-up only: a build-up dose is looked for before the calculated d_max,
+    // never in the fall-off at depth. Points whose dose the calculated build-up does not reach
+    // (for example a surface dose below the calculated one) are left out of delta2.
+    let c_end = cz.partition_point(|&z| z <= dmax(cz, cp)).min(cz.len());
+    let (bz, bp) = (&cz[..c_end], &cp[..c_end]);
     let (mut d1, mut d2) = (Vec::new(), Vec::new());
     for (&z, &m) in mz.iter().zip(mp) {
         let Some(c) = beamproof_curve_tools::at(cz, cp, z) else {
@@ -162,7 +167,7 @@ pub fn regions(
         };
         if z >= zmax {
             d1.push(100.0 * (c - m) / m);
-        } else if let Some(p) = beamproof_curve_tools::nearest_crossing(cz, cp, m, z) {
+        } else if let Some(p) = beamproof_curve_tools::nearest_crossing(bz, bp, m, z) {
             d2.push((p - z).abs());
         }
     }
@@ -369,6 +374,37 @@ mod tests {
         assert!((r[0].mean - 1.0).abs() < 1e-9 && r[0].sd < 1e-9);
         assert!(r[1].confidence_limit.abs() < 1e-9);
         assert_eq!((r[0].tolerance, r[1].tolerance), (2.0, 2.0));
+    }
+
+    #[test]
+    fn build_up_distances_stay_in_the_build_up() {
+        // Measured surface dose 40 %, calculated 45 %: the calculated build-up never falls to
+        // 40 %, so that point is left out rather than matched to the 40 % level deep in the
+        // fall-off (more than 100 mm away).
+        let z: Vec<f64> = (0..=200).map(f64::from).collect();
+        let m: Vec<f64> = z
+            .iter()
+            .map(|&x| {
+                if x <= 20.0 {
+                    40.0 + 3.0 * x
+                } else {
+                    100.0 - 0.4 * (x - 20.0)
+                }
+            })
+            .collect();
+        let c: Vec<f64> = z
+            .iter()
+            .map(|&x| {
+                if x <= 20.0 {
+                    45.0 + 2.75 * x
+                } else {
+                    100.0 - 0.4 * (x - 20.0)
+                }
+            })
+            .collect();
+        let r = regions(&z, &m, &z, &c, beamproof_curve_tools::Geometry::Simple);
+        assert!(r[1].n_points < 20, "{:?}", r[1]);
+        assert!(r[1].confidence_limit < 3.0, "{:?}", r[1]);
     }
 
     #[test]

@@ -390,6 +390,7 @@ impl Analysis for Profile {
             &m.percent,
             &c.positions,
             &c.percent,
+            if centre_on_edges { 0.0 } else { b.centre_mm },
             [(a.field_size_mm, b.field_size_mm), (fringe(&a), fringe(&b))],
             geometry,
         );

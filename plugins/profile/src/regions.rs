@@ -2,34 +2,52 @@
 //! Mijnheer (Radiother Oncol 2001;60:191-201): each region has its own kind of deviation and
 //! tolerance, applied to the confidence limit |mean| + 1.5 SD over the region's points.
 //!
-//! Regions are taken from the measured profile (percent of the central axis): high dose and low
-//! gradient at or above 80 % (delta3, local dose deviation), the penumbra between 20 % and 80 %
-//! (delta2, distance to the calculated profile at the same dose level), low dose at or below
-//! 20 % (delta4, deviation in percent of the central-axis dose). These dose-level boundaries are
+//! Regions are found on the measured profile (percent of the central axis) from its gradient and
+//! dose: a gradient of at least [`HIGH_GRADIENT`] %/mm is the penumbra (delta2, distance to the
+//! calculated profile at the same dose level on the same side); elsewhere above 20 % is the
+//! field (delta3, local dose deviation) and at or below 20 % the low-dose region outside
+//! (delta4, deviation in percent of the central-axis dose). The gradient and dose boundaries are
 //! common practice, no source; the tolerances are the paper's table. The radiological width
 //! (RW50) and beam fringe (delta50-90) compare single widths.
 
 use beamproof_curve_tools::{Geometry, Region, at, nearest_crossing};
 
+/// Gradient (percent of the central-axis dose per mm) from which a point is in the penumbra.
+pub const HIGH_GRADIENT: f64 = 2.0;
+
 /// Compare a calculated profile with the measured one region by region. Both in percent of
 /// their central-axis dose; `widths` are (measured, calculated) field sizes and 50-90 % fringe
-/// widths (left + right averaged), mm.
+/// widths (left + right averaged), mm; `c_centre` is the calculated field centre, so a
+/// penumbra point is matched on its own side of the field only.
 pub fn compare(
     mx: &[f64],
     md: &[f64],
     cx: &[f64],
     cd: &[f64],
+    c_centre: f64,
     widths: [(f64, f64); 2],
     geometry: Geometry,
 ) -> Vec<Region> {
     let t = geometry.tolerances();
+    let split = cx.partition_point(|&x| x < c_centre);
     let (mut d2, mut d3, mut d4) = (Vec::new(), Vec::new(), Vec::new());
-    for (&x, &m) in mx.iter().zip(md) {
+    for (i, (&x, &m)) in mx.iter().zip(md).enumerate() {
         let Some(c) = at(cx, cd, x) else { continue };
-        if m >= 80.0 {
+        let (lo, hi) = (i.saturating_sub(1), (i + 1).min(mx.len() - 1));
+        let gradient = if hi > lo {
+            (md[hi] - md[lo]) / (mx[hi] - mx[lo])
+        } else {
+            0.0
+        };
+        if gradient.abs() < HIGH_GRADIENT && m > 20.0 {
             d3.push(100.0 * (c - m) / m);
-        } else if m > 20.0 {
-            if let Some(p) = nearest_crossing(cx, cd, m, x) {
+        } else if gradient.abs() >= HIGH_GRADIENT {
+            let (sx, sd) = if x < c_centre {
+                (&cx[..split], &cd[..split])
+            } else {
+                (&cx[split..], &cd[split..])
+            };
+            if let Some(p) = nearest_crossing(sx, sd, m, x) {
                 d2.push((p - x).abs());
             }
         } else {
@@ -39,21 +57,21 @@ pub fn compare(
     vec![
         Region::from_deviations(
             "delta2",
-            "delta2 penumbra, 20-80 % (distance)",
+            "delta2 penumbra, high gradient (distance)",
             "mm",
             &d2,
             t.delta2_mm,
         ),
         Region::from_deviations(
             "delta3",
-            "delta3 in field, >= 80 % (local dose)",
+            "delta3 in field, low gradient (local dose)",
             "%",
             &d3,
             t.delta3_percent,
         ),
         Region::from_deviations(
             "delta4",
-            "delta4 outside, <= 20 % (of CAX dose)",
+            "delta4 outside, <= 20 %, low gradient (of CAX dose)",
             "%",
             &d4,
             t.delta4_percent,
@@ -93,8 +111,7 @@ mod tests {
     #[test]
     fn a_uniform_two_percent_excess_shows_in_delta3_only() {
         // Calculated = 1.02 x measured: in field the local deviation is exactly +2 % with no
-        // spread (confidence limit 2 %); at or below 20 % the excess is 2 % of doses between
-        // 5 % and 20 %, so 0.1 to 0.4 % of the CAX dose.
+        // spread (confidence limit 2 %); in the 5 % tail the excess is 0.1 % of the CAX dose.
         let (mx, md) = ramp_profile(40.0, 1.0);
         let (cx, cd) = ramp_profile(40.0, 1.02);
         let r = compare(
@@ -102,6 +119,7 @@ mod tests {
             &md,
             &cx,
             &cd,
+            0.0,
             [(80.0, 80.0), (3.2, 3.2)],
             Geometry::Simple,
         );
@@ -131,6 +149,7 @@ mod tests {
             &md,
             &cx,
             &cd,
+            0.0,
             [(80.0, 82.0), (3.2, 3.2)],
             Geometry::Complex,
         );
