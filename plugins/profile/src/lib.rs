@@ -401,7 +401,7 @@ impl Analysis for Profile {
         notes.extend(m.note.clone());
         notes.extend(c.note.clone());
         if fff_beam {
-            notes.push("Flattening-filter-free beam: profiles renormalised so the inflection points (steepest gradient, quadratic vertex of the sampled derivative) sit at 50 % (Fogliata et al 2012).".into());
+            notes.push("Flattening-filter-free beam: profiles renormalised so the inflection points (steepest gradient of a Savitzky-Golay smoothed profile over about 2 mm, quadratic vertex) sit at 50 % (Fogliata et al 2012).".into());
         }
         notes.push(if regional == "off" {
             "Regional comparison (Venselaar et al 2001) shown for information with the tolerances of simple geometry; set `regional-tolerances` to judge it.".to_string()
