@@ -2,7 +2,128 @@
 //! sampled curve, level crossings, and the regional tolerances of Venselaar, Welleweerd &
 //! Mijnheer (Radiother Oncol 2001;60:191-201) with their confidence-limit statistic.
 
-use beamproof_api::{Limits, Metric, Status, Table, fixed};
+use beamproof_api::{CriteriaSet, Limits, Metric, Status, Table, fixed};
+
+/// Index and value of the largest sample (the first one on ties; `(0, f64::MIN)` when empty).
+pub fn argmax(v: &[f64]) -> (usize, f64) {
+    v.iter().copied().enumerate().fold(
+        (0, f64::MIN),
+        |(bi, bv), (i, x)| if x > bv { (i, x) } else { (bi, bv) },
+    )
+}
+
+/// One quantity measured and calculated.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Compared {
+    /// Metric id for `metrics:` levels in the criteria set.
+    pub id: &'static str,
+    pub label: &'static str,
+    pub unit: &'static str,
+    pub measured: f64,
+    pub calculated: f64,
+    /// Difference in percent of the measured value (else in the quantity's unit).
+    pub relative: bool,
+}
+
+impl Compared {
+    /// Calculated minus measured.
+    pub fn difference(&self) -> f64 {
+        if self.relative {
+            100.0 * (self.calculated - self.measured) / self.measured
+        } else {
+            self.calculated - self.measured
+        }
+    }
+
+    /// Unit of the difference: percent of the measured value for ratios, percentage points for
+    /// percentages, else the quantity's unit.
+    pub fn difference_unit(&self) -> &'static str {
+        match (self.relative, self.unit) {
+            (true, _) => "%",
+            (false, "%") => "pp",
+            (false, u) => u,
+        }
+    }
+}
+
+/// Metrics, statuses, table and a note for compared quantities.
+pub struct Comparison {
+    /// `difference:<id>` metrics, judged where the criteria set has levels for the id.
+    pub metrics: Vec<Metric>,
+    pub statuses: Vec<Status>,
+    pub table: Table,
+    /// Names the ids without levels, when there are any.
+    pub note: Option<String>,
+}
+
+/// Judge each difference against the criteria set's levels for its id (informational when it
+/// has none) and lay the quantities out in a table.
+pub fn compare_quantities(title: &str, rows: &[Compared], criteria: &CriteriaSet) -> Comparison {
+    let mut metrics = Vec::new();
+    let mut statuses = Vec::new();
+    for r in rows {
+        let diff = r.difference();
+        let levels = criteria.metrics.get(r.id);
+        let status = levels.map(|l| Status::from_deviation(diff, l.tolerance, l.action));
+        statuses.extend(status);
+        metrics.push(Metric {
+            id: format!("difference:{}", r.id),
+            label: format!("{} difference", r.label),
+            value: diff,
+            unit: r.difference_unit().into(),
+            limits: levels.map(|l| Limits {
+                rule: "|difference| <= limit".into(),
+                tolerance: l.tolerance,
+                action: l.action,
+            }),
+            status,
+        });
+    }
+    let table = Table {
+        title: title.into(),
+        columns: ["Metric", "Measured", "Calculated", "Difference", "Status"]
+            .map(String::from)
+            .to_vec(),
+        rows: rows
+            .iter()
+            .zip(&metrics)
+            .map(|(r, m)| {
+                let d = if r.unit.is_empty() { 4 } else { 2 };
+                let unit = if r.unit.is_empty() {
+                    String::new()
+                } else {
+                    format!(" ({})", r.unit)
+                };
+                vec![
+                    format!("{}{unit}", r.label),
+                    fixed(r.measured, d),
+                    fixed(r.calculated, d),
+                    format!("{} {}", fixed(m.value, 2), m.unit),
+                    m.status
+                        .map_or("info".to_string(), |s| s.word().to_string()),
+                ]
+            })
+            .collect(),
+    };
+    let unjudged: Vec<&str> = rows
+        .iter()
+        .filter(|r| !criteria.metrics.contains_key(r.id))
+        .map(|r| r.id)
+        .collect();
+    let note = (!unjudged.is_empty()).then(|| {
+        format!(
+            "Informational (no levels in criteria set `{}`): {}.",
+            criteria.name,
+            unjudged.join(", ")
+        )
+    });
+    Comparison {
+        metrics,
+        statuses,
+        table,
+        note,
+    }
+}
 
 /// One region of a regional comparison (Venselaar et al 2001).
 #[derive(Debug, Clone, PartialEq)]

@@ -12,11 +12,11 @@ pub mod metrics;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, Curve, CurveAxis, DatasetData,
-    Figure, Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle,
-    Span, Status, Table, TestKind, fixed,
+    Figure, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
+    TestKind,
 };
 
-use beamproof_curve_tools::{Geometry, regional_output};
+use beamproof_curve_tools::{Comparison, Geometry, compare_quantities, regional_output};
 use metrics::{at_depth, electron, normalise, photon};
 
 /// Plugin id used in campaign files.
@@ -26,36 +26,7 @@ pub const NAME: &str = "depth-dose";
 #[derive(Debug, Default, Clone, Copy)]
 pub struct DepthDose;
 
-/// One compared quantity: id, label, unit, measured, calculated, and how the difference is
-/// expressed.
-struct Row {
-    id: &'static str,
-    label: &'static str,
-    unit: &'static str,
-    measured: f64,
-    calculated: f64,
-    relative: bool,
-}
-
-impl Row {
-    fn difference(&self) -> f64 {
-        if self.relative {
-            100.0 * (self.calculated - self.measured) / self.measured
-        } else {
-            self.calculated - self.measured
-        }
-    }
-
-    /// Unit of the difference: percent of the measured value for ratios, percentage points
-    /// for percentages, else the quantity's unit.
-    fn difference_unit(&self) -> &'static str {
-        match (self.relative, self.unit) {
-            (true, _) => "%",
-            (false, "%") => "pp",
-            (false, u) => u,
-        }
-    }
-}
+use beamproof_curve_tools::Compared as Row;
 
 fn references(electrons: bool) -> Vec<Reference> {
     let mut r = vec![Reference {
@@ -305,56 +276,12 @@ fn build_output(
     cp: &[f64],
     electrons: bool,
 ) -> AnalysisOutput {
-    let mut metrics = Vec::new();
-    let mut statuses = Vec::new();
-    for r in rows {
-        let diff = r.difference();
-        let levels = input.criteria.metrics.get(r.id);
-        let status = levels.map(|l| Status::from_deviation(diff, l.tolerance, l.action));
-        statuses.extend(status);
-        metrics.push(Metric {
-            id: format!("difference:{}", r.id),
-            label: format!("{} difference", r.label),
-            value: diff,
-            unit: r.difference_unit().into(),
-            limits: levels.map(|l| Limits {
-                rule: "|difference| <= limit".into(),
-                tolerance: l.tolerance,
-                action: l.action,
-            }),
-            status,
-        });
-    }
-    let digits = |u: &str| if u.is_empty() { 4 } else { 2 };
-    let table = Table {
-        title: "Depth-dose metrics".into(),
-        columns: ["Metric", "Measured", "Calculated", "Difference", "Status"]
-            .map(String::from)
-            .to_vec(),
-        rows: rows
-            .iter()
-            .zip(&metrics)
-            .map(|(r, m)| {
-                let d = digits(r.unit);
-                vec![
-                    format!(
-                        "{}{}",
-                        r.label,
-                        if r.unit.is_empty() {
-                            String::new()
-                        } else {
-                            format!(" ({})", r.unit)
-                        }
-                    ),
-                    fixed(r.measured, d),
-                    fixed(r.calculated, d),
-                    format!("{} {}", fixed(m.value, 2), m.unit),
-                    m.status
-                        .map_or("info".to_string(), |s| s.word().to_string()),
-                ]
-            })
-            .collect(),
-    };
+    let Comparison {
+        metrics,
+        statuses,
+        table,
+        note: unjudged_note,
+    } = compare_quantities("Depth-dose metrics", rows, &input.criteria);
     // Difference curve at the measured depths the calculated scan covers.
     let (dz, dd): (Vec<f64>, Vec<f64>) = m
         .positions_mm
@@ -420,18 +347,7 @@ fn build_output(
     } else {
         notes.push("R50 is read from the curve as given; for an ionisation curve convert I50 to R50 first (TG-51: R50 = 1.029 I50 - 0.06 cm).".into());
     }
-    let unjudged: Vec<&str> = rows
-        .iter()
-        .filter(|r| !input.criteria.metrics.contains_key(r.id))
-        .map(|r| r.id)
-        .collect();
-    if !unjudged.is_empty() {
-        notes.push(format!(
-            "Informational (no levels in criteria set `{}`): {}.",
-            input.criteria.name,
-            unjudged.join(", ")
-        ));
-    }
+    notes.extend(unjudged_note);
     AnalysisOutput {
         metrics,
         tables: vec![table],

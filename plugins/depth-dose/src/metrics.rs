@@ -85,14 +85,7 @@ pub fn normalise(depth_mm: &[f64], dose: &[f64]) -> Result<Vec<f64>, CurveError>
             "depths must increase strictly with no repeats".into(),
         ));
     }
-    let (imax, max) = dose
-        .iter()
-        .copied()
-        .enumerate()
-        .fold(
-            (0, f64::MIN),
-            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
-        );
+    let (imax, max) = beamproof_curve_tools::argmax(dose);
     if max.is_nan() || max <= 0.0 {
         return Err(CurveError("the curve holds no positive dose".into()));
     }
@@ -107,15 +100,7 @@ pub fn normalise(depth_mm: &[f64], dose: &[f64]) -> Result<Vec<f64>, CurveError>
 /// Depth of maximum: vertex of the parabola through the highest sample and its neighbours
 /// (the highest sample itself when it is the first point).
 pub fn dmax(depth: &[f64], pct: &[f64]) -> f64 {
-    let i = pct
-        .iter()
-        .copied()
-        .enumerate()
-        .fold(
-            (0, f64::MIN),
-            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
-        )
-        .0;
+    let i = beamproof_curve_tools::argmax(pct).0;
     if i == 0 || i + 1 >= pct.len() {
         return depth[i];
     }
@@ -192,15 +177,7 @@ pub fn regions(
 /// Depth beyond the maximum where the curve first falls to `level` percent (linear
 /// interpolation); error when it never does.
 pub fn depth_of_level(depth: &[f64], pct: &[f64], level: f64) -> Result<f64, CurveError> {
-    let imax = pct
-        .iter()
-        .copied()
-        .enumerate()
-        .fold(
-            (0, f64::MIN),
-            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
-        )
-        .0;
+    let imax = beamproof_curve_tools::argmax(pct).0;
     for j in imax + 1..pct.len() {
         if pct[j] <= level {
             let (d0, d1) = (pct[j - 1], pct[j]);
@@ -239,15 +216,7 @@ pub fn photon(depth: &[f64], pct: &[f64]) -> Result<PhotonMetrics, CurveError> {
 /// beyond R50 (at least one).
 pub fn electron(depth: &[f64], pct: &[f64]) -> Result<ElectronMetrics, CurveError> {
     let r50 = depth_of_level(depth, pct, 50.0)?;
-    let imax = pct
-        .iter()
-        .copied()
-        .enumerate()
-        .fold(
-            (0, f64::MIN),
-            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
-        )
-        .0;
+    let imax = beamproof_curve_tools::argmax(pct).0;
     // Steepest descent between consecutive samples beyond the maximum.
     let (mut best, mut slope) = (imax, 0.0);
     for j in imax..pct.len() - 1 {

@@ -13,11 +13,12 @@ pub mod regions;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, CurveAxis, DatasetData, Figure,
-    Limits, Metric, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
-    Status, Table, TestKind, fixed,
+    ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status, TestKind,
 };
 
-use beamproof_curve_tools::{Geometry, Region, at, regional_output};
+use beamproof_curve_tools::{
+    Comparison, Geometry, Region, at, compare_quantities, regional_output,
+};
 use metrics::{fff, profile};
 
 /// Plugin id used in campaign files.
@@ -27,34 +28,7 @@ pub const NAME: &str = "profile";
 #[derive(Debug, Default, Clone, Copy)]
 pub struct Profile;
 
-/// One compared quantity.
-struct Row {
-    id: &'static str,
-    label: &'static str,
-    unit: &'static str,
-    measured: f64,
-    calculated: f64,
-    /// Difference in percent of the measured value (else in the quantity's unit).
-    relative: bool,
-}
-
-impl Row {
-    fn difference(&self) -> f64 {
-        if self.relative {
-            100.0 * (self.calculated - self.measured) / self.measured
-        } else {
-            self.calculated - self.measured
-        }
-    }
-
-    fn difference_unit(&self) -> &'static str {
-        match (self.relative, self.unit) {
-            (true, _) => "%",
-            (false, "%") => "pp",
-            (false, u) => u,
-        }
-    }
-}
+use beamproof_curve_tools::Compared as Row;
 
 /// A profile normalised for analysis, with where its edge search starts and what was done.
 struct Prepared {
@@ -87,15 +61,7 @@ fn prepare(
             )));
         }
     };
-    let (imax, max) = c
-        .dose
-        .iter()
-        .copied()
-        .enumerate()
-        .fold(
-            (0, f64::MIN),
-            |(bi, bv), (i, v)| if v > bv { (i, v) } else { (bi, bv) },
-        );
+    let (imax, max) = beamproof_curve_tools::argmax(&c.dose);
     if max.is_nan() || max <= 0.0 {
         return Err(AnalysisError::new(format!(
             "`{}` holds no positive dose",
@@ -451,55 +417,12 @@ fn build_output(
     judge_regions: bool,
     spans: &[Span],
 ) -> AnalysisOutput {
-    let mut metrics = Vec::new();
-    let mut statuses = Vec::new();
-    for r in rows {
-        let diff = r.difference();
-        let levels = input.criteria.metrics.get(r.id);
-        let status = levels.map(|l| Status::from_deviation(diff, l.tolerance, l.action));
-        statuses.extend(status);
-        metrics.push(Metric {
-            id: format!("difference:{}", r.id),
-            label: format!("{} difference", r.label),
-            value: diff,
-            unit: r.difference_unit().into(),
-            limits: levels.map(|l| Limits {
-                rule: "|difference| <= limit".into(),
-                tolerance: l.tolerance,
-                action: l.action,
-            }),
-            status,
-        });
-    }
-    let table = Table {
-        title: "Profile metrics".into(),
-        columns: ["Metric", "Measured", "Calculated", "Difference", "Status"]
-            .map(String::from)
-            .to_vec(),
-        rows: rows
-            .iter()
-            .zip(&metrics)
-            .map(|(r, mt)| {
-                let d = if r.unit.is_empty() { 4 } else { 2 };
-                vec![
-                    format!(
-                        "{}{}",
-                        r.label,
-                        if r.unit.is_empty() {
-                            String::new()
-                        } else {
-                            format!(" ({})", r.unit)
-                        }
-                    ),
-                    fixed(r.measured, d),
-                    fixed(r.calculated, d),
-                    format!("{} {}", fixed(mt.value, 2), mt.unit),
-                    mt.status
-                        .map_or("info".to_string(), |s| s.word().to_string()),
-                ]
-            })
-            .collect(),
-    };
+    let Comparison {
+        mut metrics,
+        mut statuses,
+        table,
+        note: unjudged_note,
+    } = compare_quantities("Profile metrics", rows, &input.criteria);
     let (regional_metrics, regional_table) = regional_output(regional, judge_regions);
     // The in-field tolerance (delta3) of the regional comparison as a band on the difference.
     let bands: Vec<Band> = regional
@@ -555,18 +478,7 @@ fn build_output(
             spans: spans.to_vec(),
         },
     ];
-    let unjudged: Vec<&str> = rows
-        .iter()
-        .filter(|r| !input.criteria.metrics.contains_key(r.id))
-        .map(|r| r.id)
-        .collect();
-    if !unjudged.is_empty() {
-        notes.push(format!(
-            "Informational (no levels in criteria set `{}`): {}.",
-            input.criteria.name,
-            unjudged.join(", ")
-        ));
-    }
+    notes.extend(unjudged_note);
     let mut refs = references(fff_beam);
     refs.push(Reference {
         key: "Venselaar 2001".into(),
