@@ -13,7 +13,10 @@ fn check_axis(name: &str, axis: &[f64]) -> Result<(), TableError> {
             axis.len()
         )));
     }
-    if let Some(w) = axis.windows(2).find(|w| !(w[1] > w[0])) {
+    if let Some(w) = axis
+        .windows(2)
+        .find(|w| w[1].partial_cmp(&w[0]) != Some(std::cmp::Ordering::Greater))
+    {
         return Err(TableError(format!(
             "the {name} axis must increase strictly: {} is followed by {}",
             w[0], w[1]
