@@ -6,6 +6,7 @@ mod gamma_cmd;
 mod gamma_crosscheck;
 mod report_templates;
 mod rtdose_reader;
+mod rtplan_reader;
 mod runs;
 mod schema;
 mod support;

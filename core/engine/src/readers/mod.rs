@@ -3,6 +3,7 @@
 
 pub mod csv_data;
 pub mod rtdose;
+pub mod rtplan;
 
 use std::path::Path;
 
