@@ -2,7 +2,67 @@
 //! sampled curve, level crossings, and the regional tolerances of Venselaar, Welleweerd &
 //! Mijnheer (Radiother Oncol 2001;60:191-201) with their confidence-limit statistic.
 
-use beamproof_api::{CriteriaSet, Limits, Metric, Status, Table, fixed};
+use beamproof_api::{
+    AnalysisInput, BeamInfo, CriteriaSet, Curve, Dataset, DatasetData, DoseUnit, Levels, Limits,
+    Metric, PluginManifest, Status, Table, TestInfo, TestKind, fixed,
+};
+
+/// Test support for the curve plugins: an input comparing two relative curves for a 6 MV
+/// photon beam (flattening-filter-free when `fff`), with the plugin's default parameters and
+/// the given metric levels (id, tolerance, action).
+pub fn curve_test_input(
+    manifest: &PluginManifest,
+    kind: TestKind,
+    fff: bool,
+    levels: &[(&str, f64, f64)],
+    measured: Curve,
+    calculated: Curve,
+) -> AnalysisInput {
+    let dataset = |source: &str, curve: Curve| Dataset {
+        source: source.into(),
+        unit: DoseUnit::Percent,
+        data: DatasetData::Curve(curve),
+    };
+    AnalysisInput {
+        test: TestInfo {
+            site: "s".into(),
+            id: "t".into(),
+            name: "t".into(),
+            kind,
+            machine: "m".into(),
+            beam: Some(BeamInfo {
+                id: "6x".into(),
+                modality: "photon".into(),
+                energy: 6.0,
+                fff,
+            }),
+        },
+        params: manifest
+            .params
+            .iter()
+            .filter_map(|p| Some((p.name.clone(), p.default.clone()?)))
+            .collect(),
+        criteria: CriteriaSet {
+            name: "c".into(),
+            dose_difference_percent: None,
+            gamma: vec![],
+            metrics: levels
+                .iter()
+                .map(|(k, t, a)| {
+                    (
+                        k.to_string(),
+                        Levels {
+                            tolerance: *t,
+                            action: *a,
+                        },
+                    )
+                })
+                .collect(),
+        },
+        measured: Some(dataset("m.csv", measured)),
+        calculated: Some(dataset("c.csv", calculated)),
+    }
+}
 
 /// Index and value of the largest sample (the first one on ties; `(0, f64::MIN)` when empty).
 pub fn argmax(v: &[f64]) -> (usize, f64) {

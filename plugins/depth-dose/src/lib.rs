@@ -103,127 +103,79 @@ impl Analysis for DepthDose {
         };
         let mp = normalise(&m.positions_mm, &m.dose).map_err(|e| fail("measured", e))?;
         let cp = normalise(&c.positions_mm, &c.dose).map_err(|e| fail("calculated", e))?;
+        let row = |id, label, unit, measured, calculated, relative| Row {
+            id,
+            label,
+            unit,
+            measured,
+            calculated,
+            relative,
+        };
         let rows: Vec<Row> = if electrons {
             let a = electron(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
             let b = electron(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
             vec![
-                Row {
-                    id: "dmax-mm",
-                    label: "Depth of maximum",
-                    unit: "mm",
-                    measured: a.dmax_mm,
-                    calculated: b.dmax_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "r90-mm",
-                    label: "R90",
-                    unit: "mm",
-                    measured: a.r90_mm,
-                    calculated: b.r90_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "r80-mm",
-                    label: "R80",
-                    unit: "mm",
-                    measured: a.r80_mm,
-                    calculated: b.r80_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "r50-mm",
-                    label: "R50",
-                    unit: "mm",
-                    measured: a.r50_mm,
-                    calculated: b.r50_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "rp-mm",
-                    label: "Practical range Rp",
-                    unit: "mm",
-                    measured: a.rp_mm,
-                    calculated: b.rp_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "e0-mev",
-                    label: "Mean energy at the surface E0 = 2.33 R50",
-                    unit: "MeV",
-                    measured: a.e0_mev,
-                    calculated: b.e0_mev,
-                    relative: false,
-                },
+                row(
+                    "dmax-mm",
+                    "Depth of maximum",
+                    "mm",
+                    a.dmax_mm,
+                    b.dmax_mm,
+                    false,
+                ),
+                row("r90-mm", "R90", "mm", a.r90_mm, b.r90_mm, false),
+                row("r80-mm", "R80", "mm", a.r80_mm, b.r80_mm, false),
+                row("r50-mm", "R50", "mm", a.r50_mm, b.r50_mm, false),
+                row("rp-mm", "Practical range Rp", "mm", a.rp_mm, b.rp_mm, false),
+                row(
+                    "e0-mev",
+                    "Mean energy at the surface E0 = 2.33 R50",
+                    "MeV",
+                    a.e0_mev,
+                    b.e0_mev,
+                    false,
+                ),
             ]
         } else {
             let a = photon(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
             let b = photon(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
             vec![
-                Row {
-                    id: "dmax-mm",
-                    label: "Depth of maximum",
-                    unit: "mm",
-                    measured: a.dmax_mm,
-                    calculated: b.dmax_mm,
-                    relative: false,
-                },
-                Row {
-                    id: "surface",
-                    label: "Surface dose (first point)",
-                    unit: "%",
-                    measured: a.surface_percent,
-                    calculated: b.surface_percent,
-                    relative: false,
-                },
-                Row {
-                    id: "pdd5",
-                    label: "PDD at 5 cm",
-                    unit: "%",
-                    measured: a.pdd5,
-                    calculated: b.pdd5,
-                    relative: false,
-                },
-                Row {
-                    id: "pdd10",
-                    label: "PDD at 10 cm",
-                    unit: "%",
-                    measured: a.pdd10,
-                    calculated: b.pdd10,
-                    relative: false,
-                },
-                Row {
-                    id: "pdd20",
-                    label: "PDD at 20 cm",
-                    unit: "%",
-                    measured: a.pdd20,
-                    calculated: b.pdd20,
-                    relative: false,
-                },
-                Row {
-                    id: "pdd20-10",
-                    label: "PDD20,10",
-                    unit: "",
-                    measured: a.pdd20_10,
-                    calculated: b.pdd20_10,
-                    relative: true,
-                },
-                Row {
-                    id: "tpr20-10",
-                    label: "TPR20,10 = 1.2661 PDD20,10 - 0.0595",
-                    unit: "",
-                    measured: a.tpr20_10,
-                    calculated: b.tpr20_10,
-                    relative: true,
-                },
-                Row {
-                    id: "pdd10x",
-                    label: "%dd(10)x, TG-51 without lead foil",
-                    unit: "%",
-                    measured: a.pdd10x,
-                    calculated: b.pdd10x,
-                    relative: false,
-                },
+                row(
+                    "dmax-mm",
+                    "Depth of maximum",
+                    "mm",
+                    a.dmax_mm,
+                    b.dmax_mm,
+                    false,
+                ),
+                row(
+                    "surface",
+                    "Surface dose (first point)",
+                    "%",
+                    a.surface_percent,
+                    b.surface_percent,
+                    false,
+                ),
+                row("pdd5", "PDD at 5 cm", "%", a.pdd5, b.pdd5, false),
+                row("pdd10", "PDD at 10 cm", "%", a.pdd10, b.pdd10, false),
+                row("pdd20", "PDD at 20 cm", "%", a.pdd20, b.pdd20, false),
+                row("pdd20-10", "PDD20,10", "", a.pdd20_10, b.pdd20_10, true),
+                row(
+                    "tpr20-10",
+                    "TPR20,10 = 1.2661 PDD20,10 - 0.0595",
+                    "",
+                    a.tpr20_10,
+                    b.tpr20_10,
+                    true,
+                ),
+                row(
+                    "pdd10x",
+                    "%dd(10)x, TG-51 without lead foil",
+                    "%",
+                    a.pdd10x,
+                    b.pdd10x,
+                    false,
+                ),
             ]
         };
         let regional = input.text("regional-tolerances")?;
@@ -361,8 +313,6 @@ fn build_output(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use beamproof_api::{BeamInfo, CriteriaSet, Dataset, DoseUnit, Levels, TestInfo};
-    use std::collections::BTreeMap;
 
     fn pdd(shift_mm: f64) -> Curve {
         // Invented smooth photon-like curve (test data): build-up to 15 mm, then attenuation.
@@ -384,52 +334,14 @@ mod tests {
     }
 
     fn input(m: Curve, c: Curve, levels: &[(&str, f64, f64)]) -> AnalysisInput {
-        AnalysisInput {
-            test: TestInfo {
-                site: "s".into(),
-                id: "t".into(),
-                name: "t".into(),
-                kind: TestKind::DepthDose,
-                machine: "m".into(),
-                beam: Some(BeamInfo {
-                    id: "6x".into(),
-                    modality: "photon".into(),
-                    energy: 6.0,
-                    fff: false,
-                }),
-            },
-            params: BTreeMap::from([
-                ("modality".to_string(), serde_json::json!("beam")),
-                ("regional-tolerances".to_string(), serde_json::json!("off")),
-            ]),
-            criteria: CriteriaSet {
-                name: "c".into(),
-                dose_difference_percent: None,
-                gamma: vec![],
-                metrics: levels
-                    .iter()
-                    .map(|(k, t, a)| {
-                        (
-                            k.to_string(),
-                            Levels {
-                                tolerance: *t,
-                                action: *a,
-                            },
-                        )
-                    })
-                    .collect(),
-            },
-            measured: Some(Dataset {
-                source: "m.csv".into(),
-                unit: DoseUnit::Percent,
-                data: DatasetData::Curve(m),
-            }),
-            calculated: Some(Dataset {
-                source: "c.csv".into(),
-                unit: DoseUnit::Percent,
-                data: DatasetData::Curve(c),
-            }),
-        }
+        beamproof_curve_tools::curve_test_input(
+            &DepthDose.manifest(),
+            TestKind::DepthDose,
+            false,
+            levels,
+            m,
+            c,
+        )
     }
 
     #[test]

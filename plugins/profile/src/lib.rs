@@ -497,8 +497,7 @@ fn build_output(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use beamproof_api::{BeamInfo, CriteriaSet, Curve, Dataset, DoseUnit, Levels, TestInfo};
-    use std::collections::BTreeMap;
+    use beamproof_api::Curve;
 
     fn linear_edge_profile(half: f64, shift: f64) -> Curve {
         // Plateau 100 % with linear edges 4 mm wide centred on +-half (test data).
@@ -515,52 +514,14 @@ mod tests {
     }
 
     fn input(m: Curve, c: Curve, fff_beam: bool, levels: &[(&str, f64, f64)]) -> AnalysisInput {
-        AnalysisInput {
-            test: TestInfo {
-                site: "s".into(),
-                id: "t".into(),
-                name: "t".into(),
-                kind: TestKind::Profile,
-                machine: "m".into(),
-                beam: Some(BeamInfo {
-                    id: "b".into(),
-                    modality: "photon".into(),
-                    energy: 6.0,
-                    fff: fff_beam,
-                }),
-            },
-            params: BTreeMap::from([
-                ("normalise".to_string(), serde_json::json!("central-axis")),
-                ("regional-tolerances".to_string(), serde_json::json!("off")),
-            ]),
-            criteria: CriteriaSet {
-                name: "c".into(),
-                dose_difference_percent: None,
-                gamma: vec![],
-                metrics: levels
-                    .iter()
-                    .map(|(k, t, a)| {
-                        (
-                            k.to_string(),
-                            Levels {
-                                tolerance: *t,
-                                action: *a,
-                            },
-                        )
-                    })
-                    .collect(),
-            },
-            measured: Some(Dataset {
-                source: "m.csv".into(),
-                unit: DoseUnit::Percent,
-                data: DatasetData::Curve(m),
-            }),
-            calculated: Some(Dataset {
-                source: "c.csv".into(),
-                unit: DoseUnit::Percent,
-                data: DatasetData::Curve(c),
-            }),
-        }
+        beamproof_curve_tools::curve_test_input(
+            &Profile.manifest(),
+            TestKind::Profile,
+            fff_beam,
+            levels,
+            m,
+            c,
+        )
     }
 
     #[test]
