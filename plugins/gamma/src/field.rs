@@ -23,6 +23,9 @@ pub struct Field {
     /// Node doses, first active axis fastest.
     pub dose: Vec<f64>,
     strides: [usize; MAX_DIMS],
+    /// Reciprocal spacing of each active axis when its nodes are evenly spaced (to 1e-9
+    /// relative), so a cell is found by one division instead of a binary search.
+    even: [Option<f64>; MAX_DIMS],
 }
 
 impl Field {
@@ -71,6 +74,20 @@ impl Field {
             strides[a] = s;
             s *= axes[a].len();
         }
+        let mut even = [None; MAX_DIMS];
+        for a in 0..k {
+            let ax = &axes[a];
+            let n = ax.len();
+            let h = (ax[n - 1] - ax[0]) / (n - 1) as f64;
+            if h > 0.0
+                && ax
+                    .iter()
+                    .enumerate()
+                    .all(|(i, &x)| (x - (ax[0] + i as f64 * h)).abs() <= 1e-9 * h)
+            {
+                even[a] = Some(1.0 / h);
+            }
+        }
         Field {
             k,
             axes,
@@ -78,6 +95,7 @@ impl Field {
             fixed,
             dose,
             strides,
+            even,
         }
     }
 
@@ -116,6 +134,21 @@ impl Field {
     #[inline]
     pub fn cell_of(&self, a: usize, v: f64) -> usize {
         let ax = &self.axes[a];
+        let last = ax.len() - 2;
+        if let Some(inv) = self.even[a] {
+            // The estimate may be one off by rounding; step to the cell whose lower node is
+            // the last one at or below `v`, as the binary search below defines it.
+            let t = (v - ax[0]) * inv;
+            if t.is_finite() {
+                let mut i = (t.max(0.0) as usize).min(last);
+                if i > 0 && ax[i] > v {
+                    i -= 1;
+                } else if i < last && ax[i + 1] <= v {
+                    i += 1;
+                }
+                return i;
+            }
+        }
         ax.partition_point(|&c| c <= v).clamp(1, ax.len() - 1) - 1
     }
 
@@ -134,6 +167,27 @@ impl Field {
     }
 
     /// Dose at local coordinates `u` inside the grid by simplicial interpolation.
+    /// The simplicial interpolant at `u` and its gradient (dose per mm along each active axis)
+    /// in the simplex that contains `u`; `u` must lie inside the grid.
+    pub fn interpolate_with_gradient(&self, u: &[f64; MAX_DIMS]) -> (f64, [f64; MAX_DIMS]) {
+        let (cell, frac) = self.locate(u);
+        let mut order = [0, 1, 2];
+        order[..self.k].sort_by(|&p, &q| frac[q].total_cmp(&frac[p]));
+        let mut idx = cell;
+        let mut prev = self.node(&idx);
+        let mut d = prev;
+        let mut grad = [0.0; MAX_DIMS];
+        for &a in order.iter().take(self.k) {
+            idx[a] += 1;
+            let next = self.node(&idx);
+            let step = next - prev;
+            d += step * frac[a];
+            grad[a] = step / (self.axes[a][cell[a] + 1] - self.axes[a][cell[a]]);
+            prev = next;
+        }
+        (d, grad)
+    }
+
     pub fn interpolate(&self, u: &[f64; MAX_DIMS]) -> f64 {
         let (cell, frac) = self.locate(u);
         // The containing simplex orders the axes by decreasing fraction; its barycentric
@@ -231,6 +285,29 @@ mod tests {
             dose,
         })
         .expect("field")
+    }
+
+    #[test]
+    fn evenly_spaced_cell_lookup_agrees_with_the_binary_search() {
+        // Two independent definitions of the containing cell (division with correction, and
+        // the partition point of the sorted axis), on an axis with a non-representable step.
+        let xs: Vec<f64> = (0..50).map(|i| -12.3 + 0.1 * i as f64).collect();
+        let f = Field::from_grid(&Grid {
+            x_mm: xs.clone(),
+            y_mm: vec![0.0],
+            z_mm: vec![0.0],
+            dose: vec![1.0; xs.len()],
+        })
+        .expect("field");
+        assert!(f.even[0].is_some());
+        let binary = |v: f64| xs.partition_point(|&c| c <= v).clamp(1, xs.len() - 1) - 1;
+        let mut probes: Vec<f64> = xs.clone();
+        probes.extend(xs.iter().map(|x| x + 1e-13));
+        probes.extend(xs.iter().map(|x| x - 1e-13));
+        probes.extend((0..1000).map(|i| -13.0 + 0.0063 * i as f64));
+        for v in probes {
+            assert_eq!(f.cell_of(0, v), binary(v), "at {v}");
+        }
     }
 
     #[test]

@@ -149,10 +149,28 @@ pub fn gamma_at(
     scratch: &mut Scratch,
     out: &mut [f64],
 ) -> bool {
+    // One copy of the search per dimension, so that every loop over the axes has a constant
+    // length and unrolls.
+    match field.k {
+        1 => gamma_at_k::<1>(field, crits, method, pos, d_ref, scratch, out),
+        2 => gamma_at_k::<2>(field, crits, method, pos, d_ref, scratch, out),
+        _ => gamma_at_k::<3>(field, crits, method, pos, d_ref, scratch, out),
+    }
+}
+
+fn gamma_at_k<const K: usize>(
+    field: &Field,
+    crits: &[Criterion],
+    method: Method,
+    pos: [f64; 3],
+    d_ref: f64,
+    scratch: &mut Scratch,
+    out: &mut [f64],
+) -> bool {
     let Some(u) = field.local(pos) else {
         return false;
     };
-    let k = field.k;
+    let k = K;
     let nc = crits.len();
     let mut dd = [0.0; 16];
     let mut dt = [0.0; 16];
@@ -160,47 +178,58 @@ pub fn gamma_at(
         dd[c] = cr.delta_dose(d_ref);
         dt[c] = cr.dta_mm;
     }
-    // Upper bound from the evaluated dose at the point itself and at the nodes next to it
-    // (the 3^k nodes around the nearest one): a tight bound keeps the search radius small.
-    let d0 = field.interpolate(&u);
-    for c in 0..nc {
-        out[c] = match method {
-            Method::Nodes => f64::INFINITY,
-            Method::Exact | Method::Sampled { .. } => (d0 - d_ref).abs() / dd[c],
-        };
-    }
-    let mut first = [0usize; MAX_DIMS];
-    let mut count = [1usize; MAX_DIMS];
-    for a in 0..k {
-        let ax = &field.axes[a];
-        let cell = field.cell_of(a, u[a]);
-        let nearest = if u[a] - ax[cell] <= ax[cell + 1] - u[a] {
-            cell
-        } else {
-            cell + 1
-        };
-        first[a] = nearest.saturating_sub(1);
-        count[a] = (nearest + 2).min(ax.len()) - first[a];
-    }
-    for i0 in 0..count[0] {
-        for i1 in 0..count[1] {
-            for i2 in 0..count[2] {
-                let n = [first[0] + i0, first[1] + i1, first[2] + i2];
-                let mut s2 = 0.0;
-                for a in 0..k {
-                    let x = field.axes[a][n[a]] - u[a];
-                    s2 += x * x;
-                }
-                let dn = field.node(&n) - d_ref;
-                for c in 0..nc {
-                    if s2 <= crits[c].max_search_mm * crits[c].max_search_mm {
-                        let g2 = s2 / (dt[c] * dt[c]) + dn * dn / (dd[c] * dd[c]);
-                        if g2 < out[c] * out[c] {
-                            out[c] = g2.sqrt();
+    // A tight upper bound keeps the search radius small. Interpolating methods: the evaluated
+    // dose at the point itself, then a few Gauss-Newton steps on the interpolant. Nodes only:
+    // the 3^k nodes around the nearest one.
+    if method == Method::Nodes {
+        for o in out.iter_mut().take(nc) {
+            *o = f64::INFINITY;
+        }
+        let mut first = [0usize; MAX_DIMS];
+        let mut count = [1usize; MAX_DIMS];
+        for a in 0..k {
+            let ax = &field.axes[a];
+            let cell = field.cell_of(a, u[a]);
+            let nearest = if u[a] - ax[cell] <= ax[cell + 1] - u[a] {
+                cell
+            } else {
+                cell + 1
+            };
+            first[a] = nearest.saturating_sub(1);
+            count[a] = (nearest + 2).min(ax.len()) - first[a];
+        }
+        for i0 in 0..count[0] {
+            for i1 in 0..count[1] {
+                for i2 in 0..count[2] {
+                    let n = [first[0] + i0, first[1] + i1, first[2] + i2];
+                    let mut s2 = 0.0;
+                    for a in 0..k {
+                        let x = field.axes[a][n[a]] - u[a];
+                        s2 += x * x;
+                    }
+                    let dn = field.node(&n) - d_ref;
+                    for c in 0..nc {
+                        if s2 <= crits[c].max_search_mm * crits[c].max_search_mm {
+                            let g2 = s2 / (dt[c] * dt[c]) + dn * dn / (dd[c] * dd[c]);
+                            if g2 < out[c] * out[c] {
+                                out[c] = g2.sqrt();
+                            }
                         }
                     }
                 }
             }
+        }
+    } else {
+        let d0 = field.interpolate(&u);
+        for c in 0..nc {
+            out[c] = ((d0 - d_ref).abs() / dd[c]).min(descend(
+                field,
+                &u,
+                d_ref,
+                dd[c],
+                dt[c],
+                crits[c].max_search_mm,
+            ));
         }
     }
     let mut radius: f64 = 0.0;
@@ -258,32 +287,6 @@ pub fn gamma_at(
     scratch.cells.sort_unstable_by(|p, q| p.0.total_cmp(&q.0));
 
     let corners = 1usize << k;
-    if method != Method::Nodes {
-        // Nodes are vertices of the interpolant: their values are achievable, and evaluating
-        // them first gives a tight bound that lets most simplices be skipped below.
-        for &(d2, cell) in &scratch.cells {
-            if (0..nc).all(|c| d2 / (dt[c] * dt[c]) >= out[c] * out[c]) {
-                break;
-            }
-            for bits in 0..corners {
-                let mut n = cell;
-                let mut s2 = 0.0;
-                for a in 0..k {
-                    n[a] += (bits >> a) & 1;
-                    let x = field.axes[a][n[a]] - u[a];
-                    s2 += x * x;
-                }
-                let dn = field.node(&n) - d_ref;
-                for c in 0..nc {
-                    let g2 = s2 / (dt[c] * dt[c]) + dn * dn / (dd[c] * dd[c]);
-                    if g2 < out[c] * out[c] && s2 <= crits[c].max_search_mm * crits[c].max_search_mm
-                    {
-                        out[c] = g2.sqrt();
-                    }
-                }
-            }
-        }
-    }
     for &(d2, cell) in &scratch.cells {
         let d = d2.sqrt();
         if (0..nc).all(|c| d2 / (dt[c] * dt[c]) >= out[c] * out[c]) {
@@ -391,10 +394,39 @@ pub fn gamma_at(
                         let inside = f[order[0]] <= 1.0
                             && (1..k).all(|j| f[order[j - 1]] >= f[order[j]])
                             && f[order[k - 1]] >= 0.0;
+                        if !inside {
+                            // Pythagoras in the hyperplane: the distance to the simplex is the
+                            // plane distance plus the in-plane distance from the foot, which is
+                            // at least the spatial distance from the foot to the simplex (over
+                            // dt). That spatial distance is at least the distance to the cell
+                            // box and to each violated Kuhn ordering half-space.
+                            let mut box2 = 0.0;
+                            for a in 0..k {
+                                let e = if f[a] < 0.0 {
+                                    -f[a]
+                                } else if f[a] > 1.0 {
+                                    f[a] - 1.0
+                                } else {
+                                    0.0
+                                } * h[a];
+                                box2 += e * e;
+                            }
+                            let mut s2 = box2;
+                            for j in 1..k {
+                                let (p, q) = (order[j - 1], order[j]);
+                                let v = f[q] - f[p];
+                                if v > 0.0 {
+                                    let hs2 = v * v / (1.0 / (h[p] * h[p]) + 1.0 / (h[q] * h[q]));
+                                    s2 = s2.max(hs2);
+                                }
+                            }
+                            if plane2 + s2 / (dt[c] * dt[c]) >= best2 {
+                                continue;
+                            }
+                        }
                         let g2 = if inside {
                             plane2
                         } else {
-                            // The minimum lies on the simplex's boundary: exact search.
                             let mut w = [[0.0; 4]; 4];
                             let mut vb = 0usize;
                             for (j, wj) in w.iter_mut().enumerate().take(k + 1) {
@@ -447,6 +479,45 @@ pub fn gamma_at(
         }
     }
     true
+}
+
+/// An achievable gamma near the point, found by Gauss-Newton steps on the interpolant: from the
+/// surface point above `x`, move to the foot of the perpendicular on its tangent plane, keep the
+/// best value seen. It is an upper bound of gamma (every value is attained by the interpolant),
+/// usually close to it, so the exact search that follows has a small radius.
+fn descend(field: &Field, u: &[f64; MAX_DIMS], d_ref: f64, dd: f64, dt: f64, max_mm: f64) -> f64 {
+    const STEPS: usize = 3;
+    let k = field.k;
+    let mut x = *u;
+    let mut best2 = f64::INFINITY;
+    for _ in 0..STEPS {
+        let (dx, g) = field.interpolate_with_gradient(&x);
+        // Tangent plane at x, written around u: D(y) ~ delta + g.(y - u) + d_ref.
+        let mut delta = dx - d_ref;
+        let mut g_sq = 0.0;
+        for a in 0..k {
+            delta += g[a] * (u[a] - x[a]);
+            g_sq += g[a] * g[a];
+        }
+        let shift = dt * dt * delta / (dd * dd + dt * dt * g_sq);
+        let mut s2 = 0.0;
+        for a in 0..k {
+            let ax = &field.axes[a];
+            x[a] = (u[a] - shift * g[a]).clamp(ax[0], ax[ax.len() - 1]);
+            s2 += (x[a] - u[a]) * (x[a] - u[a]);
+        }
+        if s2 > max_mm * max_mm {
+            break;
+        }
+        let dv = field.interpolate(&x) - d_ref;
+        let g2 = s2 / (dt * dt) + dv * dv / (dd * dd);
+        if g2 < best2 {
+            best2 = g2;
+        } else {
+            break;
+        }
+    }
+    best2.sqrt()
 }
 
 #[inline]
