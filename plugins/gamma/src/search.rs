@@ -341,6 +341,44 @@ fn gamma_at_k<const K: usize>(
                     h[a] = field.axes[a][cell[a] + 1] - x0;
                     fu[a] = (u[a] - x0) / h[a];
                 }
+                // Cell bound: with p the cell's point nearest to u, every x of the cell has
+                // |x - u|^2 >= d^2 + |x - p|^2 (projection onto a convex set) and
+                // |D(x) - D(p)| <= lambda |x - p|, lambda the norm of the largest edge slope
+                // along each axis (each simplex's gradient component is one such slope). The
+                // minimum over r = |x - p| of r^2/dt^2 + (|D(p) - d_ref| - lambda r)^2/dd^2 is
+                // the plane formula below.
+                let mut pf = [0.0; MAX_DIMS];
+                let mut lambda2 = 0.0;
+                for a in 0..k {
+                    pf[a] = fu[a].clamp(0.0, 1.0);
+                    let mut slope: f64 = 0.0;
+                    for b in 0..corners {
+                        if b & (1 << a) == 0 {
+                            slope = slope.max((cd[b | (1 << a)] - cd[b]).abs());
+                        }
+                    }
+                    lambda2 += (slope / h[a]) * (slope / h[a]);
+                }
+                let mut po = [0, 1, 2];
+                po[..k].sort_unstable_by(|&p, &q| pf[q].total_cmp(&pf[p]));
+                let mut bits = 0usize;
+                let mut dp = cd[0] * (1.0 - pf[po[0]]);
+                for j in 0..k {
+                    bits |= 1 << po[j];
+                    let next = if j + 1 < k { pf[po[j + 1]] } else { 0.0 };
+                    dp += cd[bits] * (pf[po[j]] - next);
+                }
+                let delta_p = dp - d_ref;
+                let mut cell_lb2 = [0.0; 16];
+                let mut any = false;
+                for c in 0..nc {
+                    cell_lb2[c] = d2 / (dt[c] * dt[c])
+                        + delta_p * delta_p / (dd[c] * dd[c] + lambda2 * dt[c] * dt[c]);
+                    any |= cell_lb2[c] < out[c] * out[c];
+                }
+                if !any {
+                    continue;
+                }
                 for order in kuhn_orders(k) {
                     // The simplex's linear function: dose at the origin plus one step per axis
                     // in Kuhn order; its gradient (dose per mm) and its value at the point.
@@ -372,8 +410,9 @@ fn gamma_at_k<const K: usize>(
                         if d > crits[c].max_search_mm * (1.0 + 1e-12) {
                             continue;
                         }
-                        let lb2 =
-                            d2 / (dt[c] * dt[c]) + (simplex_gap.max(dose_gap) / dd[c]).powi(2);
+                        let lb2 = (d2 / (dt[c] * dt[c])
+                            + (simplex_gap.max(dose_gap) / dd[c]).powi(2))
+                        .max(cell_lb2[c]);
                         let best2 = out[c] * out[c];
                         if lb2 >= best2 {
                             continue;
