@@ -3,6 +3,7 @@
 //! with every value escaped for typst markup; typst compiles it in-process with bundled fonts.
 //! The output depends only on the results and the template: same input, same PDF bytes.
 
+mod plot;
 mod typeset;
 mod view;
 
@@ -77,11 +78,14 @@ fn template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
     }
 }
 
-/// Render the typst source for a run (exposed for tests and for template authors).
-pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
+/// The report's data and the SVG of each figure.
+fn prepare(results_json: &[u8]) -> Result<(view::View, Vec<String>), ReportError> {
     let results: view::Results =
         serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
-    let data = view::View::from_results(results);
+    Ok(view::View::from_results(results))
+}
+
+fn render_view(data: &view::View, templates: Option<&Path>) -> Result<String, ReportError> {
     let (text, name) = template(templates)?;
     let mut hb = handlebars::Handlebars::new();
     hb.set_strict_mode(true);
@@ -95,7 +99,7 @@ pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<St
             message: e.reason().to_string(),
         }
     })?;
-    hb.render("report", &data)
+    hb.render("report", data)
         .map_err(|e| ReportError::Template {
             path: name.clone(),
             line: e.line_no.unwrap_or(0),
@@ -104,9 +108,21 @@ pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<St
         })
 }
 
-/// Render the report PDF for a run.
+/// Render the typst source for a run (exposed for tests and for template authors).
+pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
+    render_view(&prepare(results_json)?.0, templates)
+}
+
+/// Render the report PDF for a run. Figures are drawn to SVG and offered to typst as the
+/// files `/fig/<n>.svg`.
 pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u8>, ReportError> {
-    let source = render_source(results_json, templates)?;
+    let (data, svgs) = prepare(results_json)?;
+    let source = render_view(&data, templates)?;
+    let files: Vec<(String, Vec<u8>)> = svgs
+        .into_iter()
+        .enumerate()
+        .map(|(n, svg)| (format!("fig/{n}.svg"), svg.into_bytes()))
+        .collect();
     let results: serde_json::Value =
         serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
     let date = results["run"]["date"]
@@ -120,7 +136,7 @@ pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u
         results["machine"]["id"].as_str().unwrap_or_default()
     );
     let template_name = template(templates)?.1;
-    typeset::compile_pdf(source, ymd, &ident).map_err(|problems| {
+    typeset::compile_pdf(source, ymd, &ident, files).map_err(|problems| {
         let p = problems
             .into_iter()
             .next()

@@ -2,6 +2,7 @@
 //! the fonts bundled with typst-assets (no system fonts, no network, no packages), with the
 //! run date as "today", so the same source gives the same PDF bytes.
 
+use std::collections::BTreeMap;
 use std::sync::OnceLock;
 
 use typst::diag::{FileError, FileResult, SourceDiagnostic};
@@ -27,6 +28,8 @@ struct ReportWorld {
     library: LazyHash<Library>,
     main: Source,
     today: Datetime,
+    /// Extra files by project path without the leading slash, e.g. `fig/0.svg`.
+    files: BTreeMap<String, Bytes>,
 }
 
 impl World for ReportWorld {
@@ -47,7 +50,11 @@ impl World for ReportWorld {
         }
     }
     fn file(&self, id: FileId) -> FileResult<Bytes> {
-        Err(FileError::NotFound(id.vpath().get_without_slash().into()))
+        let path = id.vpath().get_without_slash();
+        self.files
+            .get(path)
+            .cloned()
+            .ok_or_else(|| FileError::NotFound(path.into()))
     }
     fn font(&self, index: usize) -> Option<Font> {
         fonts().0.get(index).cloned()
@@ -88,11 +95,13 @@ fn problems(world: &ReportWorld, diags: &[SourceDiagnostic]) -> Vec<TypstProblem
         .collect()
 }
 
-/// Compile typst source to PDF. `date` is (year, month, day); `ident` seeds the PDF's document id.
+/// Compile typst source to PDF. `date` is (year, month, day); `ident` seeds the PDF's document id;
+/// `files` are (project path without leading slash, bytes) the source may read.
 pub fn compile_pdf(
     source: String,
     date: (i32, u8, u8),
     ident: &str,
+    files: Vec<(String, Vec<u8>)>,
 ) -> Result<Vec<u8>, Vec<TypstProblem>> {
     let id = FileId::new(RootedPath::new(
         VirtualRoot::Project,
@@ -115,6 +124,7 @@ pub fn compile_pdf(
         library: LazyHash::new(Library::builder().build()),
         main: Source::new(id, source),
         today,
+        files: files.into_iter().map(|(p, b)| (p, Bytes::new(b))).collect(),
     };
     let warned = typst::compile(&world);
     let doc = warned.output.map_err(|e| problems(&world, &e))?;

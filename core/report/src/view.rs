@@ -1,7 +1,10 @@
 //! The report's view of a run: built from `results.json` alone (the report never runs an
 //! analysis), with every number formatted here, because typst has no fixed-decimal formatting.
 
+use beamproof_api::Figure;
 use serde::{Deserialize, Serialize};
+
+use crate::plot;
 
 /// The subset of `results.json` the report reads.
 #[derive(Debug, Deserialize)]
@@ -97,6 +100,8 @@ pub struct AnalysisIn {
 pub struct OutputIn {
     pub metrics: Vec<MetricIn>,
     pub tables: Vec<TableIn>,
+    #[serde(default)]
+    pub figures: Vec<Figure>,
     pub notes: Vec<String>,
 }
 
@@ -217,7 +222,18 @@ pub struct AnalysisView {
     pub error: Option<String>,
     pub metrics: Vec<MetricView>,
     pub tables: Vec<TableIn>,
+    pub figures: Vec<FigureView>,
     pub notes: Vec<String>,
+}
+
+/// A figure as the template sees it: its number (the picture is `/fig/<n>.svg`), its kind
+/// (chart, histogram or map), its title, and why it could not be drawn, if so.
+#[derive(Debug, Serialize)]
+pub struct FigureView {
+    pub n: usize,
+    pub kind: String,
+    pub title: String,
+    pub error: Option<String>,
 }
 
 #[derive(Debug, Serialize)]
@@ -256,9 +272,12 @@ fn with_unit(v: String, unit: &str) -> String {
 }
 
 impl View {
-    pub fn from_results(r: Results) -> View {
+    /// The view of a run and the SVG of each figure, numbered from 0 in document order (a
+    /// figure that could not be drawn has an empty SVG and an error in its view).
+    pub fn from_results(r: Results) -> (View, Vec<String>) {
+        let mut svgs = Vec::new();
         let s = &r.summary;
-        View {
+        let view = View {
             title: r.campaign.title,
             institution: r.campaign.institution,
             campaign_id: r.campaign.id,
@@ -338,17 +357,36 @@ impl View {
                 .map(|site| SiteView {
                     name: site.name,
                     id: site.id,
-                    tests: site.tests.into_iter().map(test_view).collect(),
+                    tests: site
+                        .tests
+                        .into_iter()
+                        .map(|t| test_view(t, &mut svgs))
+                        .collect(),
                 })
                 .collect(),
             references: r.references,
             cautions: r.cautions,
             reproduce: r.run.reproduce,
-        }
+        };
+        (view, svgs)
     }
 }
 
-fn test_view(t: TestIn) -> TestView {
+fn figure_view(f: &Figure, svgs: &mut Vec<String>) -> FigureView {
+    let (svg, error) = match plot::draw(f) {
+        Ok(svg) => (svg, None),
+        Err(e) => (String::new(), Some(e)),
+    };
+    svgs.push(svg);
+    FigureView {
+        n: svgs.len() - 1,
+        kind: plot::kind(f).into(),
+        title: plot::title(f).into(),
+        error,
+    }
+}
+
+fn test_view(t: TestIn, svgs: &mut Vec<String>) -> TestView {
     TestView {
         id: t.id,
         name: t.name,
@@ -360,7 +398,7 @@ fn test_view(t: TestIn) -> TestView {
             .analyses
             .into_iter()
             .map(|a| {
-                let (metrics, tables, notes) = match a.output {
+                let (metrics, tables, figures, notes) = match a.output {
                     Some(o) => (
                         o.metrics
                             .into_iter()
@@ -392,9 +430,10 @@ fn test_view(t: TestIn) -> TestView {
                             })
                             .collect(),
                         o.tables,
+                        o.figures.iter().map(|f| figure_view(f, svgs)).collect(),
                         o.notes,
                     ),
-                    None => (Vec::new(), Vec::new(), Vec::new()),
+                    None => (Vec::new(), Vec::new(), Vec::new(), Vec::new()),
                 };
                 AnalysisView {
                     plugin: a.plugin,
@@ -403,6 +442,7 @@ fn test_view(t: TestIn) -> TestView {
                     error: a.error,
                     metrics,
                     tables,
+                    figures,
                     notes,
                 }
             })

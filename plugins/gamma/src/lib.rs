@@ -771,9 +771,9 @@ fn maps(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
             values: gamma,
         },
         Figure::Map {
-            title: "Dose difference, evaluated - reference".into(),
+            title: "Dose difference, evaluated - reference, in % of the normalisation dose".into(),
             quantity: "dose difference".into(),
-            unit: "% of normalisation dose".into(),
+            unit: "%".into(),
             x_label: format!("{xn} (mm)"),
             y_label: format!("{yn} (mm)"),
             x_mm: xs.clone(),
