@@ -24,13 +24,92 @@ fn with_template(name: &str, template: &str) -> (std::path::PathBuf, crate::supp
 }
 
 #[test]
-fn a_custom_template_is_used() {
+fn a_custom_template_is_used_and_kept_with_the_run() {
     let (dir, o) = with_template("tpl-ok", "= {{title}}\nVerdict: {{verdict}}\n");
     assert_eq!(o.code, 0, "{}", o.stderr);
     assert!(
         std::fs::read(dir.join("run/report.pdf"))
             .expect("pdf")
             .starts_with(b"%PDF-")
+    );
+    // The template folder is an input of the run: copied, checksummed, named in the results.
+    let kept = dir.join("run/inputs/my-templates/report.typ.hbs");
+    assert_eq!(
+        std::fs::read_to_string(kept).expect("template copied into the run folder"),
+        "= {{title}}\nVerdict: {{verdict}}\n"
+    );
+    let r = crate::support::results(&dir.join("run"));
+    assert_eq!(r["report"]["template"], "my-templates");
+    assert_eq!(
+        r["report"]["files"][0]["file"],
+        "inputs/my-templates/report.typ.hbs"
+    );
+    let manifest = std::fs::read_to_string(dir.join("run/manifest.sha256")).expect("manifest");
+    assert!(manifest.contains("  inputs/my-templates/report.typ.hbs\n"));
+}
+
+#[test]
+fn a_custom_template_can_use_its_own_images() {
+    let campaign = demo_copy("tpl-logo");
+    let dir = campaign.parent().expect("dir").to_path_buf();
+    std::fs::create_dir_all(dir.join("my-templates")).expect("mkdir");
+    std::fs::write(
+        dir.join("my-templates/logo.svg"),
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"20\" height=\"10\"><rect width=\"20\" height=\"10\" fill=\"#336699\"/></svg>",
+    )
+    .expect("logo");
+    std::fs::write(
+        dir.join("my-templates/report.typ.hbs"),
+        "#image(\"logo.svg\", width: 2cm)\n= {{title}}\n",
+    )
+    .expect("template");
+    let text = std::fs::read_to_string(&campaign).expect("read");
+    std::fs::write(
+        &campaign,
+        text.replacen(
+            "criteria:\n",
+            "report: {templates: my-templates}\ncriteria:\n",
+            1,
+        ),
+    )
+    .expect("write");
+    let (out, o) = run_into_folder(&campaign, "lin-b");
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert!(out.join("inputs/my-templates/logo.svg").is_file());
+}
+
+#[test]
+fn a_template_folder_without_the_report_template_is_refused() {
+    let campaign = demo_copy("tpl-missing");
+    let dir = campaign.parent().expect("dir").to_path_buf();
+    std::fs::create_dir_all(dir.join("empty-templates")).expect("mkdir");
+    let text = std::fs::read_to_string(&campaign).expect("read");
+    std::fs::write(
+        &campaign,
+        text.replacen(
+            "criteria:\n",
+            "report: {templates: empty-templates}\ncriteria:\n",
+            1,
+        ),
+    )
+    .expect("write");
+    let (out, o) = run_into_folder(&campaign, "lin-b");
+    assert_eq!(o.code, 2);
+    assert!(!out.exists());
+    assert!(
+        relative(&o.stderr, &dir).starts_with(
+            "error: template folder `empty-templates` has no report.typ.hbs\n  --> campaign.yaml:"
+        ),
+        "{}",
+        o.stderr
+    );
+}
+
+#[test]
+fn engine_and_report_agree_on_the_template_file_name() {
+    assert_eq!(
+        beamproof_engine::prepare::TEMPLATE_MAIN,
+        beamproof_report::TEMPLATE_FILE
     );
 }
 

@@ -72,7 +72,13 @@ fn demo_lin_b_is_go_with_a_warning() {
 fn two_runs_give_identical_bytes_and_the_run_folder_reruns_itself() {
     let (a, _) = run_demo("determinism-a", "lin-a");
     let (b, _) = run_demo("determinism-b", "lin-a");
-    for f in ["results.json", "report.pdf", "manifest.sha256"] {
+    for f in [
+        "results.json",
+        "report.pdf",
+        "report.pdf.sha256",
+        "report.html",
+        "manifest.sha256",
+    ] {
         assert_eq!(
             std::fs::read(a.join(f)).expect("a"),
             std::fs::read(b.join(f)).expect("b"),
@@ -107,7 +113,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
-        o.stdout.ends_with("all 14 files match the manifest\n"),
+        o.stdout.ends_with("all 16 files match the manifest\n"),
         "{}",
         o.stdout
     );
@@ -116,7 +122,8 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         .lines()
         .filter_map(|l| l.split_once("  ").map(|(_, p)| p))
         .collect();
-    // The manifest covers the campaign, every input of the machine, the results and the report.
+    // The manifest covers the campaign, every input of the machine, the results, the report,
+    // its checksum file and the HTML summary.
     let expected = [
         "inputs/campaign.yaml",
         "inputs/data/lin-a/cax-6x-10x10.csv",
@@ -130,7 +137,9 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/data/tps/pdd-6x-10x10.csv",
         "inputs/data/tps/profile-6x-10x10-x.csv",
         "inputs/data/tps/prostate-points.csv",
+        "report.html",
         "report.pdf",
+        "report.pdf.sha256",
         "results.json",
     ];
     assert_eq!(files, expected);

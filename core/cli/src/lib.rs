@@ -16,7 +16,7 @@ use beamproof_engine::checksum::verify_run;
 use beamproof_engine::diag::{Diagnostic, render_all};
 use beamproof_engine::prepare::{Prepared, choose_machine, prepare};
 use beamproof_engine::registry::{Origin, Registry};
-use beamproof_engine::run::{CAUTIONS, run};
+use beamproof_engine::run::{CAUTIONS, FileRecord, run};
 use clap::{Parser, Subcommand};
 
 mod gamma_cmd;
@@ -287,11 +287,36 @@ fn run_campaign(
         bar.set_message(id.to_string());
     });
     bar.finish_and_clear();
+    let mut record = record;
+    if prepared.templates.is_none() {
+        record.report.files.push(FileRecord {
+            file: format!(
+                "templates/{} (built into beamproof {})",
+                beamproof_report::TEMPLATE_FILE,
+                env!("CARGO_PKG_VERSION")
+            ),
+            sha256: beamproof_engine::checksum::sha256_hex(
+                beamproof_report::BUILT_IN_TEMPLATE.as_bytes(),
+            ),
+        });
+    }
     let json = record.to_json();
-    let templates = c.templates.as_ref().map(|(p, _)| c.dir.join(p));
+    let templates = prepared.templates.as_ref().map(|p| c.dir.join(p));
     let pdf = beamproof_report::render_pdf(&json, templates.as_deref())
         .map_err(|e| Failure { text: format!("error: the report could not be made: {e}\n  = help: fix the template, or remove `report: templates:` to use the built-in one"), code: EXIT_CANNOT_RUN })?;
-    beamproof_engine::output::write_run_folder(&out, &c, &prepared, &json, &pdf)
+    let html = beamproof_report::render_html(&json, templates.as_deref())
+        .map_err(|e| Failure { text: format!("error: the HTML summary could not be made: {e}\n  = help: fix the template, or remove `report: templates:` to use the built-in one"), code: EXIT_CANNOT_RUN })?;
+    let pdf_sum = format!(
+        "{}  report.pdf\n",
+        beamproof_engine::checksum::sha256_hex(&pdf)
+    );
+    let products: [(&str, &[u8]); 4] = [
+        ("results.json", &json),
+        ("report.pdf", &pdf),
+        ("report.pdf.sha256", pdf_sum.as_bytes()),
+        ("report.html", html.as_bytes()),
+    ];
+    beamproof_engine::output::write_run_folder(&out, &c, &prepared, &products)
         .map_err(|e| Failure { text: format!("error: {e}\n  = help: choose another folder with --out, or check free space and permissions"), code: EXIT_CANNOT_RUN })?;
     let s = &record.summary;
     outln!(io, "run folder: {}", out.display());

@@ -3,7 +3,8 @@
 //! partial folder, and an existing run folder is never overwritten.
 //!
 //! Layout: `inputs/` (the campaign file and every input at its campaign-relative path, so the
-//! folder re-runs on its own), `results.json`, `report.pdf`, `manifest.sha256`.
+//! folder re-runs on its own), the products the caller passes (`results.json`, `report.pdf`,
+//! `report.pdf.sha256`, `report.html`), and `manifest.sha256` over all of them.
 
 use std::io::Write as _;
 use std::path::{Path, PathBuf};
@@ -39,8 +40,7 @@ pub fn write_run_folder(
     out: &Path,
     campaign: &Campaign,
     prepared: &Prepared,
-    results_json: &[u8],
-    report_pdf: &[u8],
+    products: &[(&str, &[u8])],
 ) -> Result<(), OutputError> {
     if out.exists() {
         return Err(OutputError::Exists(out.to_path_buf()));
@@ -66,15 +66,7 @@ pub fn write_run_folder(
     if tmp.exists() {
         std::fs::remove_dir_all(&tmp).map_err(io(&tmp))?;
     }
-    let result = fill(
-        &tmp,
-        &campaign_name,
-        campaign,
-        prepared,
-        results_json,
-        report_pdf,
-    )
-    .and_then(|()| {
+    let result = fill(&tmp, &campaign_name, campaign, prepared, products).and_then(|()| {
         if out.exists() {
             return Err(OutputError::Exists(out.to_path_buf()));
         }
@@ -91,8 +83,7 @@ fn fill(
     campaign_name: &str,
     campaign: &Campaign,
     prepared: &Prepared,
-    results_json: &[u8],
-    report_pdf: &[u8],
+    products: &[(&str, &[u8])],
 ) -> Result<(), OutputError> {
     let mut files: Vec<(String, &[u8])> =
         vec![(format!("{INPUTS_DIR}/{campaign_name}"), &campaign.bytes)];
@@ -102,8 +93,11 @@ fn fill(
             .iter()
             .map(|i| (format!("{INPUTS_DIR}/{}", i.rel), i.bytes.as_slice())),
     );
-    files.push(("results.json".into(), results_json));
-    files.push(("report.pdf".into(), report_pdf));
+    files.extend(
+        products
+            .iter()
+            .map(|(name, bytes)| (name.to_string(), *bytes)),
+    );
     for (rel, bytes) in &files {
         write_synced(&tmp.join(rel), bytes)?;
     }

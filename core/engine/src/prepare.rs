@@ -57,8 +57,10 @@ pub struct PreparedTest {
 pub struct Prepared {
     pub machine: Machine,
     pub tests: Vec<PreparedTest>,
-    /// Every input file once, sorted by path.
+    /// Every input file once, sorted by path (the campaign's report template files too).
     pub inputs: Vec<InputFile>,
+    /// The campaign's report template folder, relative to the campaign folder, when it has one.
+    pub templates: Option<String>,
 }
 
 /// Which machine to run: the one named, or the only one.
@@ -179,11 +181,13 @@ pub fn prepare(
             .help("check the tests' `machines:` lists"),
         );
     }
+    let templates = template_folder(campaign, &mut files, &mut diags);
     if diags.is_empty() {
         Ok(Prepared {
             machine: machine.clone(),
             tests,
             inputs: files.into_values().collect(),
+            templates,
         })
     } else {
         Err(diags)
@@ -432,6 +436,65 @@ fn input(
             None
         }
     }
+}
+
+/// File name of the main template in a report template folder (the report crate reads it).
+pub const TEMPLATE_MAIN: &str = "report.typ.hbs";
+
+/// The campaign's report template folder: every file in it becomes an input (copied into the
+/// run folder and checksummed), so a run records exactly which templates made its report.
+fn template_folder(
+    campaign: &Campaign,
+    files: &mut BTreeMap<String, InputFile>,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<String> {
+    let (written, pos) = campaign.templates.as_ref()?;
+    let at = |msg: String| Diagnostic::at(&campaign.path, pos.line, pos.column, msg);
+    let text = written.to_string_lossy();
+    let Some(rel) = clean_relative(&text) else {
+        diags.push(
+            at(format!("template folder `{text}` leaves the campaign folder"))
+                .help("keep the template folder beside the campaign file, so the run folder can keep a copy"),
+        );
+        return None;
+    };
+    let dir = campaign.resolve(&rel);
+    if !dir.join(TEMPLATE_MAIN).is_file() {
+        diags.push(
+            at(format!("template folder `{rel}` has no {TEMPLATE_MAIN}")).help(format!(
+                "expected {}; copy templates/{TEMPLATE_MAIN} from beamproof as a starting point",
+                dir.join(TEMPLATE_MAIN).display()
+            )),
+        );
+        return None;
+    }
+    for entry in walkdir::WalkDir::new(&dir).sort_by_file_name() {
+        let entry = match entry {
+            Ok(e) => e,
+            Err(e) => {
+                diags.push(at(format!("template folder `{rel}` cannot be read: {e}")));
+                return None;
+            }
+        };
+        if !entry.file_type().is_file() {
+            continue;
+        }
+        let inner = crate::checksum::relative_slash(&dir, entry.path());
+        let file_rel = format!("{rel}/{inner}");
+        match std::fs::read(entry.path()) {
+            Ok(bytes) => {
+                files.entry(file_rel.clone()).or_insert_with(|| InputFile {
+                    rel: file_rel,
+                    sha256: sha256_hex(&bytes),
+                    bytes,
+                });
+            }
+            Err(e) => diags.push(at(format!(
+                "template file `{file_rel}` cannot be read: {e}"
+            ))),
+        }
+    }
+    Some(rel)
 }
 
 /// The data shapes each test kind takes, checked before any analysis runs.

@@ -34,6 +34,23 @@ pub struct RunRecord {
     pub summary: Summary,
     pub references: Vec<Reference>,
     pub cautions: Vec<&'static str>,
+    pub report: ReportRecord,
+}
+
+/// The templates that make the report: the campaign's own folder, or the built-in template
+/// (whose checksum the caller adds, as the engine does not hold the template text).
+#[derive(Debug, Clone, Serialize)]
+pub struct ReportRecord {
+    /// `built-in`, or the template folder relative to the campaign folder.
+    pub template: String,
+    pub files: Vec<FileRecord>,
+}
+
+/// A file and its SHA-256.
+#[derive(Debug, Clone, Serialize)]
+pub struct FileRecord {
+    pub file: String,
+    pub sha256: String,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -77,6 +94,8 @@ pub struct BeamRecord {
 
 #[derive(Debug, Clone, Serialize)]
 pub struct RunInfo {
+    /// Run identifier: campaign, machine and run date (the default run folder name).
+    pub id: String,
     /// The run date (an input: `--date` or the campaign), never the wall clock.
     pub date: String,
     /// Command that reproduces the run from inside the run folder.
@@ -87,6 +106,8 @@ pub struct RunInfo {
 pub struct PluginRecord {
     pub name: String,
     pub version: String,
+    /// What the plugin does, from its manifest (the report's method section).
+    pub description: String,
     /// `built-in` or `dynamic`.
     pub origin: &'static str,
     /// File name and checksum of a dynamic plugin.
@@ -245,6 +266,7 @@ pub fn run(
                 .collect(),
         },
         run: RunInfo {
+            id: format!("{}-{}-{date}", campaign.id, prepared.machine.id),
             date: date.to_string(),
             reproduce: format!(
                 "beamproof run {INPUTS_DIR}/{campaign_name} --machine {m} --date {date} --out ../rerun-{m}-{date}",
@@ -257,6 +279,7 @@ pub fn run(
             .map(|p| PluginRecord {
                 name: p.manifest.name.clone(),
                 version: p.manifest.version.clone(),
+                description: p.manifest.description.clone(),
                 origin: match p.origin {
                     Origin::BuiltIn => "built-in",
                     Origin::Dynamic { .. } => "dynamic",
@@ -278,6 +301,24 @@ pub fn run(
         summary,
         references,
         cautions: CAUTIONS.to_vec(),
+        report: ReportRecord {
+            template: prepared
+                .templates
+                .clone()
+                .unwrap_or_else(|| "built-in".into()),
+            files: match &prepared.templates {
+                Some(dir) => prepared
+                    .inputs
+                    .iter()
+                    .filter(|f| f.rel.starts_with(&format!("{dir}/")))
+                    .map(|f| FileRecord {
+                        file: format!("{INPUTS_DIR}/{}", f.rel),
+                        sha256: f.sha256.clone(),
+                    })
+                    .collect(),
+                None => Vec::new(),
+            },
+        },
     }
 }
 

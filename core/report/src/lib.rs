@@ -60,15 +60,27 @@ pub fn escape_markup(s: &str) -> String {
     out
 }
 
-/// The template text and the name errors refer to.
-fn template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
+/// File name of the HTML summary template inside a template folder (optional there).
+pub const SUMMARY_FILE: &str = "summary.html.hbs";
+/// The built-in HTML summary template.
+pub const BUILT_IN_SUMMARY: &str = include_str!("../../../templates/summary.html.hbs");
+
+/// The template text and the name errors refer to: the folder's own file, else the built-in
+/// one (the report template is required in a folder; the HTML summary template is optional).
+fn template(
+    dir: Option<&Path>,
+    file: &str,
+    built_in: &str,
+    required: bool,
+) -> Result<(String, String), ReportError> {
+    let built = || (built_in.to_string(), format!("templates/{file} (built in)"));
     match dir {
-        None => Ok((
-            BUILT_IN_TEMPLATE.to_string(),
-            format!("templates/{TEMPLATE_FILE} (built in)"),
-        )),
+        None => Ok(built()),
         Some(d) => {
-            let path = d.join(TEMPLATE_FILE);
+            let path = d.join(file);
+            if !required && !path.exists() {
+                return Ok(built());
+            }
             let text = std::fs::read_to_string(&path).map_err(|e| ReportError::TemplateRead {
                 path: path.clone(),
                 message: e.to_string(),
@@ -78,18 +90,25 @@ fn template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
     }
 }
 
+fn report_template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
+    template(dir, TEMPLATE_FILE, BUILT_IN_TEMPLATE, true)
+}
+
 /// The report's data and the SVG of each figure.
 fn prepare(results_json: &[u8]) -> Result<(view::View, Vec<String>), ReportError> {
     let results: view::Results =
         serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
-    Ok(view::View::from_results(results))
+    Ok(view::View::from_results(results, sha256_hex(results_json)))
 }
 
-fn render_view(data: &view::View, templates: Option<&Path>) -> Result<String, ReportError> {
-    let (text, name) = template(templates)?;
+fn render_view(
+    data: &view::View,
+    (text, name): (String, String),
+    escape: fn(&str) -> String,
+) -> Result<String, ReportError> {
     let mut hb = handlebars::Handlebars::new();
     hb.set_strict_mode(true);
-    hb.register_escape_fn(escape_markup);
+    hb.register_escape_fn(escape);
     hb.register_template_string("report", &text).map_err(|e| {
         let (line, column) = e.pos().unwrap_or((0, 0));
         ReportError::Template {
@@ -110,19 +129,37 @@ fn render_view(data: &view::View, templates: Option<&Path>) -> Result<String, Re
 
 /// Render the typst source for a run (exposed for tests and for template authors).
 pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
-    render_view(&prepare(results_json)?.0, templates)
+    render_view(
+        &prepare(results_json)?.0,
+        report_template(templates)?,
+        escape_markup,
+    )
+}
+
+/// Render the self-contained HTML summary of a run (same data as the PDF, HTML-escaped,
+/// figures as inline SVG).
+pub fn render_html(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
+    render_view(
+        &prepare(results_json)?.0,
+        template(templates, SUMMARY_FILE, BUILT_IN_SUMMARY, false)?,
+        handlebars::html_escape,
+    )
 }
 
 /// Render the report PDF for a run. Figures are drawn to SVG and offered to typst as the
 /// files `/fig/<n>.svg`.
 pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u8>, ReportError> {
     let (data, svgs) = prepare(results_json)?;
-    let source = render_view(&data, templates)?;
-    let files: Vec<(String, Vec<u8>)> = svgs
-        .into_iter()
-        .enumerate()
-        .map(|(n, svg)| (format!("fig/{n}.svg"), svg.into_bytes()))
-        .collect();
+    let source = render_view(&data, report_template(templates)?, escape_markup)?;
+    let mut files = match templates {
+        Some(dir) => template_assets(dir)?,
+        None => Vec::new(),
+    };
+    files.extend(
+        svgs.into_iter()
+            .enumerate()
+            .map(|(n, svg)| (format!("fig/{n}.svg"), svg.into_bytes())),
+    );
     let results: serde_json::Value =
         serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
     let date = results["run"]["date"]
@@ -135,7 +172,7 @@ pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u
         results["campaign"]["sha256"].as_str().unwrap_or_default(),
         results["machine"]["id"].as_str().unwrap_or_default()
     );
-    let template_name = template(templates)?.1;
+    let template_name = report_template(templates)?.1;
     typeset::compile_pdf(source, ymd, &ident, files).map_err(|problems| {
         let p = problems
             .into_iter()
@@ -152,6 +189,45 @@ pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u
             source_line: p.source_line.trim().to_string(),
         }
     })
+}
+
+/// Every file of a template folder, by its path inside the folder, so that a template can
+/// use its own images (`image("logo.svg")`). The names `fig/<n>.svg` are the report's figures
+/// and take precedence.
+fn template_assets(dir: &Path) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
+    let mut out = Vec::new();
+    for entry in walkdir::WalkDir::new(dir).sort_by_file_name() {
+        let entry = entry.map_err(|e| ReportError::TemplateRead {
+            path: dir.to_path_buf(),
+            message: e.to_string(),
+        })?;
+        if !entry.file_type().is_file() {
+            continue;
+        }
+        let rel = entry
+            .path()
+            .strip_prefix(dir)
+            .unwrap_or(entry.path())
+            .components()
+            .map(|c| c.as_os_str().to_string_lossy())
+            .collect::<Vec<_>>()
+            .join("/");
+        let bytes = std::fs::read(entry.path()).map_err(|e| ReportError::TemplateRead {
+            path: entry.path().to_path_buf(),
+            message: e.to_string(),
+        })?;
+        out.push((rel, bytes));
+    }
+    Ok(out)
+}
+
+/// Lower-case hex SHA-256.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::Digest;
+    sha2::Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 fn parse_date(s: &str) -> Option<(i32, u8, u8)> {

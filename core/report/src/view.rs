@@ -1,7 +1,7 @@
 //! The report's view of a run: built from `results.json` alone (the report never runs an
 //! analysis), with every number formatted here, because typst has no fixed-decimal formatting.
 
-use beamproof_api::Figure;
+use beamproof_api::{CriteriaSet, Figure, Normalisation};
 use serde::{Deserialize, Serialize};
 
 use crate::plot;
@@ -14,10 +14,24 @@ pub struct Results {
     pub machine: MachineIn,
     pub run: RunIn,
     pub plugins: Vec<PluginIn>,
+    pub criteria: Vec<CriteriaSet>,
     pub sites: Vec<SiteIn>,
     pub summary: SummaryIn,
     pub references: Vec<ReferenceIn>,
     pub cautions: Vec<String>,
+    pub report: ReportIn,
+}
+
+#[derive(Debug, Deserialize)]
+pub struct ReportIn {
+    pub template: String,
+    pub files: Vec<FileIn>,
+}
+
+#[derive(Debug, Deserialize, Serialize, Clone)]
+pub struct FileIn {
+    pub file: String,
+    pub sha256: String,
 }
 
 #[derive(Debug, Deserialize)]
@@ -30,6 +44,7 @@ pub struct CampaignIn {
     pub id: String,
     pub title: String,
     pub institution: String,
+    pub file: String,
     pub sha256: String,
     pub tps: TpsIn,
 }
@@ -58,6 +73,7 @@ pub struct BeamIn {
 
 #[derive(Debug, Deserialize)]
 pub struct RunIn {
+    pub id: String,
     pub date: String,
     pub reproduce: String,
 }
@@ -66,6 +82,7 @@ pub struct RunIn {
 pub struct PluginIn {
     pub name: String,
     pub version: String,
+    pub description: String,
     pub origin: String,
 }
 
@@ -84,13 +101,21 @@ pub struct TestIn {
     pub beam: Option<String>,
     pub criteria: String,
     pub status: String,
+    pub inputs: Vec<InputIn>,
     pub analyses: Vec<AnalysisIn>,
+}
+
+#[derive(Debug, Deserialize)]
+pub struct InputIn {
+    pub file: String,
+    pub sha256: String,
 }
 
 #[derive(Debug, Deserialize)]
 pub struct AnalysisIn {
     pub plugin: String,
     pub version: String,
+    pub params: serde_json::Map<String, serde_json::Value>,
     pub status: String,
     pub error: Option<String>,
     pub output: Option<OutputIn>,
@@ -155,12 +180,20 @@ pub struct View {
     pub campaign_sha256: String,
     pub machine_id: String,
     pub machine_description: String,
+    pub run_id: String,
     pub beams: Vec<String>,
     pub tps: String,
     pub beam_model: String,
     pub run_date: String,
     pub software_version: String,
     pub plugins: Vec<PluginView>,
+    /// The plugins that analysed at least one test, with the tests they analysed.
+    pub methods: Vec<MethodView>,
+    pub criteria: Vec<CriteriaView>,
+    /// SHA-256 of every input, the campaign file, the templates and the results file.
+    pub manifest: Vec<FileIn>,
+    pub results_sha256: String,
+    pub template: String,
     pub go: bool,
     pub verdict: String,
     pub counts: Vec<Count>,
@@ -185,6 +218,28 @@ pub struct PluginView {
     pub name: String,
     pub version: String,
     pub origin: String,
+}
+
+#[derive(Debug, Serialize)]
+pub struct MethodView {
+    pub plugin: String,
+    pub version: String,
+    pub description: String,
+    pub tests: Vec<String>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct CriteriaView {
+    pub name: String,
+    pub rows: Vec<CriterionRow>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct CriterionRow {
+    pub quantity: String,
+    pub detail: String,
+    pub tolerance: String,
+    pub action: String,
 }
 
 #[derive(Debug, Serialize)]
@@ -218,6 +273,8 @@ pub struct TestView {
 pub struct AnalysisView {
     pub plugin: String,
     pub version: String,
+    /// `name = value` pairs of the parameters the analysis ran with.
+    pub params: String,
     pub status: String,
     pub error: Option<String>,
     pub metrics: Vec<MetricView>,
@@ -234,6 +291,9 @@ pub struct FigureView {
     pub kind: String,
     pub title: String,
     pub error: Option<String>,
+    /// The drawing itself, for the HTML summary (inline SVG made by plotters, which escapes
+    /// the text it writes).
+    pub svg: String,
 }
 
 #[derive(Debug, Serialize)]
@@ -274,10 +334,18 @@ fn with_unit(v: String, unit: &str) -> String {
 impl View {
     /// The view of a run and the SVG of each figure, numbered from 0 in document order (a
     /// figure that could not be drawn has an empty SVG and an error in its view).
-    pub fn from_results(r: Results) -> (View, Vec<String>) {
+    pub fn from_results(r: Results, results_sha256: String) -> (View, Vec<String>) {
         let mut svgs = Vec::new();
+        let methods = methods(&r);
+        let manifest = manifest(&r);
         let s = &r.summary;
         let view = View {
+            run_id: r.run.id.clone(),
+            methods,
+            criteria: r.criteria.iter().map(criteria_view).collect(),
+            manifest,
+            results_sha256,
+            template: r.report.template.clone(),
             title: r.campaign.title,
             institution: r.campaign.institution,
             campaign_id: r.campaign.id,
@@ -372,17 +440,110 @@ impl View {
     }
 }
 
+fn methods(r: &Results) -> Vec<MethodView> {
+    r.plugins
+        .iter()
+        .filter_map(|p| {
+            let tests: Vec<String> = r
+                .sites
+                .iter()
+                .flat_map(|s| &s.tests)
+                .filter(|t| t.analyses.iter().any(|a| a.plugin == p.name))
+                .map(|t| t.id.clone())
+                .collect();
+            (!tests.is_empty()).then(|| MethodView {
+                plugin: p.name.clone(),
+                version: p.version.clone(),
+                description: p.description.clone(),
+                tests,
+            })
+        })
+        .collect()
+}
+
+/// Every file the run depends on, once, in path order: the campaign file, the test inputs and
+/// the templates (the results file's own checksum is shown beside this list).
+fn manifest(r: &Results) -> Vec<FileIn> {
+    let mut files = std::collections::BTreeMap::new();
+    files.insert(r.campaign.file.clone(), r.campaign.sha256.clone());
+    for t in r.sites.iter().flat_map(|s| &s.tests) {
+        for i in &t.inputs {
+            files.insert(i.file.clone(), i.sha256.clone());
+        }
+    }
+    for f in &r.report.files {
+        files.insert(f.file.clone(), f.sha256.clone());
+    }
+    files
+        .into_iter()
+        .map(|(file, sha256)| FileIn { file, sha256 })
+        .collect()
+}
+
+fn criteria_view(c: &CriteriaSet) -> CriteriaView {
+    let mut rows = Vec::new();
+    if let Some(l) = &c.dose_difference_percent {
+        rows.push(CriterionRow {
+            quantity: "Point dose difference".into(),
+            detail: "|calculated - measured| / measured".into(),
+            tolerance: format!("{} %", fixed(l.tolerance, 2)),
+            action: format!("{} %", fixed(l.action, 2)),
+        });
+    }
+    for g in &c.gamma {
+        let norm = match (g.normalisation, g.normalisation_dose_gy) {
+            (Normalisation::Local, _) => "local".to_string(),
+            (Normalisation::Global, Some(d)) => format!("global, to {} Gy", fixed(d, 3)),
+            (Normalisation::Global, None) => "global, to the reference maximum".to_string(),
+        };
+        rows.push(CriterionRow {
+            quantity: "Gamma pass rate".into(),
+            detail: format!(
+                "{} %/{} mm, {norm}, threshold {} %",
+                fixed(g.dose_percent, 1),
+                fixed(g.dta_mm, 1),
+                fixed(g.threshold_percent, 1)
+            ),
+            tolerance: format!("at least {} %", fixed(g.tolerance_pass_percent, 1)),
+            action: format!("at least {} %", fixed(g.action_pass_percent, 1)),
+        });
+    }
+    for (id, l) in &c.metrics {
+        rows.push(CriterionRow {
+            quantity: id.clone(),
+            detail: "metric deviation".into(),
+            tolerance: fixed(l.tolerance, 2),
+            action: fixed(l.action, 2),
+        });
+    }
+    CriteriaView {
+        name: c.name.clone(),
+        rows,
+    }
+}
+
+fn params_text(p: &serde_json::Map<String, serde_json::Value>) -> String {
+    p.iter()
+        .map(|(k, v)| match v {
+            serde_json::Value::String(s) => format!("{k} = {s}"),
+            other => format!("{k} = {other}"),
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
 fn figure_view(f: &Figure, svgs: &mut Vec<String>) -> FigureView {
     let (svg, error) = match plot::draw(f) {
         Ok(svg) => (svg, None),
         Err(e) => (String::new(), Some(e)),
     };
-    svgs.push(svg);
+    svgs.push(svg.clone());
     FigureView {
         n: svgs.len() - 1,
         kind: plot::kind(f).into(),
         title: plot::title(f).into(),
         error,
+        svg,
     }
 }
 
@@ -436,6 +597,7 @@ fn test_view(t: TestIn, svgs: &mut Vec<String>) -> TestView {
                     None => (Vec::new(), Vec::new(), Vec::new(), Vec::new()),
                 };
                 AnalysisView {
+                    params: params_text(&a.params),
                     plugin: a.plugin,
                     version: a.version,
                     status: word(&a.status),
