@@ -25,8 +25,9 @@ use crate::outcome::AnalysisOutput;
 
 /// Major ABI version: a plugin with another major version is refused.
 pub const ABI_MAJOR: u32 = 1;
-/// Minor ABI version: fields appended to [`PluginDescriptor`] raise it; older minors still load.
-pub const ABI_MINOR: u32 = 0;
+/// Minor ABI version: fields appended to [`PluginDescriptor`] or optional fields added to the
+/// wire JSON raise it; older minors still load. 1.1 added `AnalysisInput::mu`.
+pub const ABI_MINOR: u32 = 1;
 /// Name of the exported entry function. The major version is part of the name, so a plugin
 /// built for another major version fails at symbol lookup even before the handshake.
 pub const ENTRY_SYMBOL: &str = "beamproof_plugin_entry_v1";
@@ -465,6 +466,7 @@ mod tests {
                     dose: vec![1.0, 2.0],
                 }),
             }),
+            mu: None,
         }
     }
 

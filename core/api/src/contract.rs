@@ -160,6 +160,10 @@ pub struct AnalysisInput {
     pub criteria: CriteriaSet,
     pub measured: Option<Dataset>,
     pub calculated: Option<Dataset>,
+    /// Beam data and beams of a monitor-unit check test (`mu-check` kind only). Added in ABI
+    /// 1.1; absent in older inputs.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mu: Option<crate::mu::MuInput>,
 }
 
 impl AnalysisInput {

@@ -37,7 +37,11 @@ fn main() {
         },
     );
     let whole = t.elapsed();
-    assert!(code <= 1, "demo run failed: {}", String::from_utf8_lossy(&e));
+    assert!(
+        code <= 1,
+        "demo run failed: {}",
+        String::from_utf8_lossy(&e)
+    );
     let json = std::fs::read(out.join("results.json")).expect("results.json");
     let _ = std::fs::remove_dir_all(&out);
     println!(

@@ -266,20 +266,21 @@ impl Campaign {
 }
 
 /// Walks the YAML tree; every helper records problems and returns `None` instead of stopping.
-struct Decoder<'f> {
-    file: &'f Path,
-    diags: Vec<Diagnostic>,
+/// Also used by the other YAML formats of the engine (beam data).
+pub(crate) struct Decoder<'f> {
+    pub(crate) file: &'f Path,
+    pub(crate) diags: Vec<Diagnostic>,
 }
 
 /// The entries of one mapping, after its keys were checked.
-struct Fields<'a> {
-    node: &'a Node,
+pub(crate) struct Fields<'a> {
+    pub(crate) node: &'a Node,
     entries: &'a [(Node, Node)],
     what: &'static str,
 }
 
 impl<'a> Fields<'a> {
-    fn get(&self, key: &str) -> Option<&'a Node> {
+    pub(crate) fn get(&self, key: &str) -> Option<&'a Node> {
         self.entries
             .iter()
             .find(|(k, _)| k.scalar() == Some(key))
@@ -289,13 +290,20 @@ impl<'a> Fields<'a> {
 }
 
 impl<'f> Decoder<'f> {
-    fn report(&mut self, n: &Node, message: impl Into<String>, help: impl Into<String>) {
+    pub(crate) fn new(file: &'f Path) -> Decoder<'f> {
+        Decoder {
+            file,
+            diags: Vec::new(),
+        }
+    }
+
+    pub(crate) fn report(&mut self, n: &Node, message: impl Into<String>, help: impl Into<String>) {
         self.diags
             .push(Diagnostic::at(self.file, n.line, n.column, message).help(help));
     }
 
     /// Check that `n` is a mapping with only `allowed` keys; unknown keys get a suggestion.
-    fn fields<'a>(
+    pub(crate) fn fields<'a>(
         &mut self,
         n: &'a Node,
         what: &'static str,
@@ -328,7 +336,12 @@ impl<'f> Decoder<'f> {
         })
     }
 
-    fn required<'a>(&mut self, f: &Fields<'a>, key: &str, help: &str) -> Option<&'a Node> {
+    pub(crate) fn required<'a>(
+        &mut self,
+        f: &Fields<'a>,
+        key: &str,
+        help: &str,
+    ) -> Option<&'a Node> {
         let v = f.get(key);
         if v.is_none() {
             self.report(
@@ -340,7 +353,7 @@ impl<'f> Decoder<'f> {
         v
     }
 
-    fn string(&mut self, n: &Node, what: &str) -> Option<String> {
+    pub(crate) fn string(&mut self, n: &Node, what: &str) -> Option<String> {
         match &n.value {
             Value::Scalar { text, .. } if !n.is_null() => Some(text.clone()),
             _ => {
@@ -354,12 +367,12 @@ impl<'f> Decoder<'f> {
         }
     }
 
-    fn req_string(&mut self, f: &Fields, key: &str, help: &str) -> Option<String> {
+    pub(crate) fn req_string(&mut self, f: &Fields, key: &str, help: &str) -> Option<String> {
         let n = self.required(f, key, help)?;
         self.string(n, &format!("`{key}`"))
     }
 
-    fn opt_string(&mut self, f: &Fields, key: &str) -> Option<String> {
+    pub(crate) fn opt_string(&mut self, f: &Fields, key: &str) -> Option<String> {
         let n = f.get(key)?;
         self.string(n, &format!("`{key}`"))
     }
@@ -385,7 +398,14 @@ impl<'f> Decoder<'f> {
         Some(s)
     }
 
-    fn number(&mut self, n: &Node, what: &str, min: f64, max: f64, unit: &str) -> Option<f64> {
+    pub(crate) fn number(
+        &mut self,
+        n: &Node,
+        what: &str,
+        min: f64,
+        max: f64,
+        unit: &str,
+    ) -> Option<f64> {
         let v = match &n.value {
             Value::Scalar { text, plain: true } => parse_yaml_float(text),
             _ => None,
@@ -409,12 +429,26 @@ impl<'f> Decoder<'f> {
         Some(v)
     }
 
-    fn opt_number(&mut self, f: &Fields, key: &str, min: f64, max: f64, unit: &str) -> Option<f64> {
+    pub(crate) fn opt_number(
+        &mut self,
+        f: &Fields,
+        key: &str,
+        min: f64,
+        max: f64,
+        unit: &str,
+    ) -> Option<f64> {
         let n = f.get(key)?;
         self.number(n, &format!("`{key}`"), min, max, unit)
     }
 
-    fn req_number(&mut self, f: &Fields, key: &str, min: f64, max: f64, unit: &str) -> Option<f64> {
+    pub(crate) fn req_number(
+        &mut self,
+        f: &Fields,
+        key: &str,
+        min: f64,
+        max: f64,
+        unit: &str,
+    ) -> Option<f64> {
         let n = self.required(
             f,
             key,
@@ -423,7 +457,7 @@ impl<'f> Decoder<'f> {
         self.number(n, &format!("`{key}`"), min, max, unit)
     }
 
-    fn opt_bool(&mut self, f: &Fields, key: &str) -> Option<bool> {
+    pub(crate) fn opt_bool(&mut self, f: &Fields, key: &str) -> Option<bool> {
         let n = f.get(key)?;
         match n.scalar() {
             Some("true") if matches!(n.value, Value::Scalar { plain: true, .. }) => Some(true),
@@ -439,7 +473,7 @@ impl<'f> Decoder<'f> {
         }
     }
 
-    fn list<'a>(&mut self, n: &'a Node, what: &str) -> Option<&'a [Node]> {
+    pub(crate) fn list<'a>(&mut self, n: &'a Node, what: &str) -> Option<&'a [Node]> {
         match &n.value {
             Value::Seq(items) => Some(items),
             _ => {
@@ -1062,7 +1096,7 @@ impl<'f> Decoder<'f> {
     }
 }
 
-fn show(n: &Node) -> String {
+pub(crate) fn show(n: &Node) -> String {
     match n.scalar() {
         Some(s) if !n.is_null() => format!("`{s}`"),
         _ => n.describe().to_string(),

@@ -336,6 +336,7 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         criteria: t.criteria.clone(),
         measured: t.measured.as_ref().map(|m| m.dataset.clone()),
         calculated: t.calculated.as_ref().map(|c| c.dataset.clone()),
+        mu: None,
     };
     let analyses: Vec<AnalysisRecord> = t
         .analyses

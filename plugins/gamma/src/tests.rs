@@ -579,6 +579,7 @@ mod plugin {
             },
             measured: Some(measured),
             calculated: Some(calculated),
+            mu: None,
         }
     }
 
@@ -897,6 +898,7 @@ fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
             unit: DoseUnit::Gy,
             data: DatasetData::Grid(e),
         }),
+        mu: None,
     };
     let out = Gamma.analyse(&input).expect("runs");
     assert_eq!(out.status, Some(Status::Error));

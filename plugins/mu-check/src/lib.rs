@@ -4,5 +4,6 @@
 //! file format, Clarkson integration and DICOM RT Plan input build on it.
 
 pub mod beam;
+pub mod clarkson;
 pub mod formalism;
 pub mod tables;

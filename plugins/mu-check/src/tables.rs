@@ -92,6 +92,10 @@ pub struct Table2D {
     pub field_cm: Vec<f64>,
     /// Row-major: `values[row * field_cm.len() + column]`.
     pub values: Vec<f64>,
+    /// Interpolate the logarithm linearly along depth (PDD and TPR fall nearly exponentially
+    /// with depth beyond the build-up, so log-linear interpolation between measured depths
+    /// follows the curve more closely); field sizes are always linear.
+    pub log_depth: bool,
 }
 
 impl Table2D {
@@ -117,7 +121,14 @@ impl Table2D {
             depth_cm,
             field_cm,
             values,
+            log_depth: false,
         })
+    }
+
+    /// The same table interpolated log-linearly along depth.
+    pub fn log_linear_in_depth(mut self) -> Table2D {
+        self.log_depth = true;
+        self
     }
 
     /// Bilinear interpolation at (depth, field side), both in cm.
@@ -138,7 +149,12 @@ impl Table2D {
         let v = |r: usize, c: usize| self.values[r * n + c];
         let top = v(i, j) + t * (v(i, j + 1) - v(i, j));
         let bottom = v(i + 1, j) + t * (v(i + 1, j + 1) - v(i + 1, j));
-        Ok(top + u * (bottom - top))
+        if self.log_depth {
+            // Values are validated positive, so the logarithms exist.
+            Ok((top.ln() + u * (bottom.ln() - top.ln())).exp())
+        } else {
+            Ok(top + u * (bottom - top))
+        }
     }
 }
 
@@ -161,6 +177,21 @@ mod tests {
         for (d, s) in [(3.0, 7.0), (10.0, 20.0), (1.0, 4.0), (7.5, 12.0)] {
             assert!((t.at(d, s).expect("inside") - f(d, s)).abs() < 1e-12);
         }
+    }
+
+    #[test]
+    fn log_linear_depth_interpolation_is_exact_for_exponential_attenuation() {
+        // TPR = exp(-mu (d - d0)) is reproduced exactly by log-linear interpolation in depth
+        // (analytic), while linear interpolation overestimates between nodes (convexity).
+        let depth = vec![5.0, 15.0, 25.0];
+        let field = vec![5.0, 20.0];
+        let f = |d: f64| (-0.05 * (d - 10.0)).exp();
+        let values = depth.iter().flat_map(|&d| [f(d), f(d)]).collect();
+        let lin = Table2D::new("TPR", depth, field, values).expect("valid");
+        let log = lin.clone().log_linear_in_depth();
+        let at = |t: &Table2D| t.at(10.0, 10.0).expect("inside");
+        assert!((at(&log) - 1.0).abs() < 1e-12);
+        assert!(at(&lin) > 1.0 + 1e-3);
     }
 
     #[test]

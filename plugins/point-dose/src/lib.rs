@@ -374,6 +374,7 @@ mod tests {
                 unit: DoseUnit::Gy,
                 data: calculated,
             }),
+            mu: None,
         }
     }
 

@@ -1,6 +1,7 @@
 //! Input readers: the file's extension picks the reader, every reader returns a dataset in
 //! IEC 61217 coordinates (mm) with dose in Gy or percent, or a diagnostic naming the place.
 
+pub mod beam_data;
 pub mod csv_data;
 pub mod rtdose;
 pub mod rtplan;
