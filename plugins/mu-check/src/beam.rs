@@ -54,18 +54,85 @@ pub struct BeamGeometry {
     pub tray: f64,
 }
 
+/// MU for a beam whose scatter comes from Clarkson integration of its aperture (isocentric
+/// formalism with the TPR table, whatever the setup: TG-71's SAD form with the inverse square
+/// to the point applies to any geometry when TPR data are used).
+pub fn calculate_clarkson(
+    data: &BeamData,
+    beam: &BeamGeometry,
+    spd_cm: f64,
+    aperture: &crate::clarkson::Aperture,
+    point_cm: (f64, f64),
+    sectors: usize,
+) -> Result<(MuResult, crate::clarkson::Clarkson), TableError> {
+    let tpr = data.tpr.as_ref().ok_or_else(|| {
+        TableError("Clarkson integration needs a TPR table in the beam data".into())
+    })?;
+    let rc = equivalent_square(beam.field_cm.0, beam.field_cm.1);
+    let oar = off_axis_ratio(data, beam)?;
+    let c = crate::clarkson::integrate(
+        tpr,
+        &data.sp,
+        aperture,
+        point_cm,
+        beam.depth_cm,
+        spd_cm / data.sad_cm,
+        sectors,
+    )?;
+    let sc = data.sc.at(rc)?;
+    let isf = ((data.ssd0_cm + data.d0_cm) / spd_cm).powi(2);
+    let dose_per_mu = data.d0_prime_cgy_per_mu * sc * c.sp_tpr * beam.wedge * beam.tray * oar * isf;
+    let f = |symbol: &'static str, description: &str, value: f64| crate::formalism::Factor {
+        symbol,
+        description: description.into(),
+        value,
+    };
+    let result = MuResult {
+        dose_per_mu_cgy: dose_per_mu,
+        mu: beam.dose_cgy / dose_per_mu,
+        factors: vec![
+            f("D", "prescribed dose at the point (cGy)", beam.dose_cgy),
+            f(
+                "D0'",
+                "dose per MU at the normalisation point (cGy/MU)",
+                data.d0_prime_cgy_per_mu,
+            ),
+            f("Sc", "collimator scatter at the jaw field", sc),
+            f("TPR(d,0)", "zero-field TPR, extrapolated", c.tpr_zero),
+            f(
+                "Sp(0)",
+                "zero-field phantom scatter, extrapolated",
+                c.sp_zero,
+            ),
+            f(
+                "SPR",
+                "mean scatter-phantom ratio over the sectors",
+                c.mean_spr,
+            ),
+            f("[Sp TPR]", "Sp(0) (TPR(d,0) + SPR), Clarkson", c.sp_tpr),
+            f("WF", "wedge factor", beam.wedge),
+            f("TF", "tray factor", beam.tray),
+            f("OAR", "off-axis ratio", oar),
+            f("ISF", "((SSD0 + d0)/SPD)^2", isf),
+        ],
+    };
+    Ok((result, c))
+}
+
+fn off_axis_ratio(data: &BeamData, beam: &BeamGeometry) -> Result<f64, TableError> {
+    match (&data.oar, beam.off_axis_cm) {
+        (_, x) if x.abs() < 1e-9 => Ok(1.0),
+        (Some(t), x) => t.at(beam.depth_cm, x.abs()),
+        (None, x) => Err(TableError(format!(
+            "the point is {x} cm off axis but the beam data hold no off-axis ratios"
+        ))),
+    }
+}
+
 /// MU for a beam from the beam data; any value outside a table is an error naming it.
 pub fn calculate(data: &BeamData, beam: &BeamGeometry) -> Result<MuResult, TableError> {
     let rc = equivalent_square(beam.field_cm.0, beam.field_cm.1);
-    let oar = match (&data.oar, beam.off_axis_cm) {
-        (_, x) if x.abs() < 1e-9 => 1.0,
-        (Some(t), x) => t.at(beam.depth_cm, x.abs())?,
-        (None, x) => {
-            return Err(TableError(format!(
-                "the point is {x} cm off axis but the beam data hold no off-axis ratios"
-            )));
-        }
-    };
+    let oar = off_axis_ratio(data, beam)?;
     match beam.setup {
         Setup::Ssd { ssd_cm } => {
             let pdd = data.pdd.as_ref().ok_or_else(|| {

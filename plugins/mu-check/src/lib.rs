@@ -1,9 +1,12 @@
-//! The independent monitor-unit check (AAPM TG-71). This crate holds the calculation core:
-//! validated beam-data tables with bilinear interpolation (`tables`), and the TG-71 SSD and
-//! SAD formalism with its field-size helpers (`formalism`). The campaign plugin, the beam-data
-//! file format, Clarkson integration and DICOM RT Plan input build on it.
+//! The independent monitor-unit check (AAPM TG-71): validated beam-data tables (`tables`), the
+//! TG-71 SSD and SAD formalism with its field-size helpers (`formalism`), factors looked up for
+//! a beam (`beam`), Clarkson sector integration for irregular apertures (`clarkson`), and the
+//! `mu-check` analysis that compares the planning system's dose with the independent one.
 
 pub mod beam;
 pub mod clarkson;
 pub mod formalism;
+mod plugin;
 pub mod tables;
+
+pub use plugin::{BeamCheck, MuCheck, NAME, Scatter, beam_data, check_beam, default_levels};
