@@ -25,7 +25,7 @@ fn schema_keys_match_the_checker() {
     let text =
         std::fs::read_to_string(root().join("docs/campaign.schema.json")).expect("schema file");
     let schema: serde_json::Value = serde_json::from_str(&text).expect("schema is JSON");
-    let pairs: [(&str, &[&str]); 11] = [
+    let pairs: [(&str, &[&str]); 13] = [
         ("/properties", c::CAMPAIGN_KEYS),
         ("/$defs/tps/properties", c::TPS_KEYS),
         ("/$defs/machine/properties", c::MACHINE_KEYS),
@@ -37,6 +37,8 @@ fn schema_keys_match_the_checker() {
         ("/$defs/test/properties", c::TEST_KEYS),
         ("/$defs/input/oneOf/1/properties", c::INPUT_KEYS),
         ("/$defs/analysis/oneOf/1/properties", c::ANALYSIS_KEYS),
+        ("/$defs/mu/properties", c::MU_KEYS),
+        ("/$defs/mu-beam/properties", c::MU_BEAM_KEYS),
     ];
     for (pointer, list) in pairs {
         assert_eq!(

@@ -54,6 +54,23 @@ pub const TEST_KEYS: &[&str] = &[
     "calculated",
     "criteria",
     "analyses",
+    "mu",
+];
+/// Keys of a monitor-unit check test's `mu:` block.
+pub const MU_KEYS: &[&str] = &["beam-data", "beams", "plan", "point-mm", "beam-doses"];
+/// Keys of a beam written in a `mu:` block.
+pub const MU_BEAM_KEYS: &[&str] = &[
+    "id",
+    "field-cm",
+    "jaws-cm",
+    "ssd-cm",
+    "depth-cm",
+    "setup",
+    "off-axis-cm",
+    "mu",
+    "tps-dose-gy",
+    "wedge",
+    "tray",
 ];
 pub const INPUT_KEYS: &[&str] = &["file", "patient-position", "isocentre-mm"];
 pub const ANALYSIS_KEYS: &[&str] = &["plugin", "params"];
@@ -178,6 +195,42 @@ impl InputSpec {
     }
 }
 
+/// The `mu:` block of a monitor-unit check test.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MuSpec {
+    /// Beam-data file, possibly holding `{machine}`.
+    pub beam_data: InputSpec,
+    /// Beams written in the campaign (empty when a plan is given).
+    pub beams: Vec<MuBeamSpec>,
+    /// DICOM RT Plan, possibly holding `{machine}`.
+    pub plan: Option<InputSpec>,
+    /// Calculation point for plan beams: IEC 61217 fixed coordinates relative to the
+    /// isocentre, mm (default the isocentre).
+    pub point_mm: [f64; 3],
+    /// Per-beam DICOM RT Dose files of the plan, holding `{beam}` (the beam number) and
+    /// possibly `{machine}`, sampled at the point for the TPS dose.
+    pub beam_doses: Option<InputSpec>,
+    pub pos: Pos,
+}
+
+/// A beam written in a campaign's `mu:` block.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MuBeamSpec {
+    pub id: String,
+    /// Jaws X1, X2, Y1, Y2 at the isocentre plane, cm.
+    pub jaws_cm: [f64; 4],
+    pub ssd_cm: f64,
+    pub depth_cm: f64,
+    /// `None`: isocentric when SSD + depth is the SAD, else SSD.
+    pub setup: Option<beamproof_api::mu::MuSetup>,
+    pub off_axis_cm: [f64; 2],
+    pub mu: f64,
+    pub tps_dose_gy: f64,
+    pub wedge: Option<String>,
+    pub tray: bool,
+    pub pos: Pos,
+}
+
 /// One analysis of a test with its raw parameters (validated against the plugin later).
 #[derive(Debug, Clone, PartialEq)]
 pub struct AnalysisSpec {
@@ -198,6 +251,8 @@ pub struct TestSpec {
     pub calculated: Option<InputSpec>,
     pub criteria: (String, Pos),
     pub analyses: Vec<AnalysisSpec>,
+    /// Beam data and beams of a `mu-check` test.
+    pub mu: Option<MuSpec>,
     pub pos: Pos,
 }
 
@@ -975,6 +1030,27 @@ impl<'f> Decoder<'f> {
                     .into_iter()
                     .collect::<Option<Vec<_>>>()
             });
+        let mu = match f.get("mu") {
+            Some(m) => Some(self.mu(m)?),
+            None => None,
+        };
+        match (kind, &mu) {
+            (Some(TestKind::MuCheck), None) => self.report(
+                n,
+                "a mu-check test needs a `mu:` block",
+                "add `mu:` with `beam-data:` and either `beams:` or `plan:` (docs/campaign.md)",
+            ),
+            (Some(k), Some(_)) if k != TestKind::MuCheck => {
+                if let Some(m) = f.get("mu") {
+                    self.report(
+                        m,
+                        format!("`mu` belongs to mu-check tests, not to kind {}", k.name()),
+                        "remove the `mu:` block or set `kind: mu-check`",
+                    );
+                }
+            }
+            _ => {}
+        }
         Some(TestSpec {
             id: id?,
             name: name?,
@@ -985,6 +1061,198 @@ impl<'f> Decoder<'f> {
             calculated,
             criteria: criteria_ref?,
             analyses: analyses?,
+            mu,
+            pos: Pos::of(n),
+        })
+    }
+
+    /// A list of exactly `n` numbers in `min..max`.
+    fn numbers<const N: usize>(
+        &mut self,
+        node: &Node,
+        what: &str,
+        min: f64,
+        max: f64,
+        unit: &str,
+        help: &str,
+    ) -> Option<[f64; N]> {
+        let items = self.list(node, what)?;
+        if items.len() != N {
+            self.report(
+                node,
+                format!("{what} needs {N} numbers, found {}", items.len()),
+                help.to_string(),
+            );
+            return None;
+        }
+        let v: Vec<f64> = items
+            .iter()
+            .filter_map(|x| self.number(x, what, min, max, unit))
+            .collect();
+        v.try_into().ok()
+    }
+
+    fn mu(&mut self, n: &Node) -> Option<MuSpec> {
+        let f = self.fields(n, "`mu`", MU_KEYS)?;
+        let beam_data = self
+            .required(
+                &f,
+                "beam-data",
+                "add `beam-data:` with the machine's beam-data file (docs/beam-data.md)",
+            )
+            .and_then(|b| self.input(b, "`beam-data`"));
+        let plan = match f.get("plan") {
+            Some(p) => Some(self.input(p, "`plan`")?),
+            None => None,
+        };
+        let beam_doses = match f.get("beam-doses") {
+            Some(p) => Some(self.input(p, "`beam-doses`")?),
+            None => None,
+        };
+        let point_mm = match f.get("point-mm") {
+            Some(p) => self.numbers::<3>(
+                p,
+                "`point-mm`",
+                -1000.0,
+                1000.0,
+                "mm",
+                "write `[x, y, z]`: IEC 61217 fixed coordinates relative to the isocentre, mm",
+            )?,
+            None => [0.0; 3],
+        };
+        let mut beams = Vec::new();
+        if let Some(b) = f.get("beams")
+            && let Some(items) = self.list(b, "`beams`")
+        {
+            for item in items {
+                if let Some(beam) = self.mu_beam(item) {
+                    beams.push(beam);
+                }
+            }
+        }
+        if f.get("beams").is_some() == plan.is_some() {
+            self.report(
+                n,
+                "`mu` needs exactly one of `beams` and `plan`",
+                "write the beams in the campaign, or name a DICOM RT Plan",
+            );
+            return None;
+        }
+        if let (Some(d), None) = (&beam_doses, &plan) {
+            self.diags.push(
+                Diagnostic::at(
+                    self.file,
+                    d.pos.line,
+                    d.pos.column,
+                    "`beam-doses` only applies to plan beams",
+                )
+                .help("give `tps-dose-gy` for each written beam"),
+            );
+        }
+        Some(MuSpec {
+            beam_data: beam_data?,
+            beams,
+            plan,
+            point_mm,
+            beam_doses,
+            pos: Pos::of(n),
+        })
+    }
+
+    fn mu_beam(&mut self, n: &Node) -> Option<MuBeamSpec> {
+        let f = self.fields(n, "a beam of `mu`", MU_BEAM_KEYS)?;
+        let id = self.req_string(&f, "id", "add `id:` naming the beam");
+        let field = f.get("field-cm").and_then(|x| {
+            self.numbers::<2>(
+                x,
+                "`field-cm`",
+                0.1,
+                60.0,
+                "cm",
+                "write `[X, Y]`: the symmetric jaw field at the isocentre, cm",
+            )
+        });
+        let jaws = f.get("jaws-cm").and_then(|x| {
+            self.numbers::<4>(
+                x,
+                "`jaws-cm`",
+                -40.0,
+                40.0,
+                "cm",
+                "write `[X1, X2, Y1, Y2]` at the isocentre, cm (X1 and Y1 negative on the negative side)",
+            )
+        });
+        let jaws_cm = match (field, jaws, f.get("field-cm"), f.get("jaws-cm")) {
+            (Some([w, h]), None, _, None) => Some([-w / 2.0, w / 2.0, -h / 2.0, h / 2.0]),
+            (None, Some(j), None, _) => {
+                if j[1] <= j[0] || j[3] <= j[2] {
+                    self.report(
+                        n,
+                        "`jaws-cm` must open: X1 < X2 and Y1 < Y2",
+                        "write `[X1, X2, Y1, Y2]` in increasing order per axis",
+                    );
+                    None
+                } else {
+                    Some(j)
+                }
+            }
+            (_, _, Some(_), Some(_)) => {
+                self.report(
+                    n,
+                    "a beam gives both `field-cm` and `jaws-cm`",
+                    "keep one: `field-cm` for a symmetric field, `jaws-cm` for an asymmetric one",
+                );
+                None
+            }
+            (None, None, None, None) => {
+                self.report(
+                    n,
+                    "a beam of `mu` needs `field-cm` or `jaws-cm`",
+                    "add `field-cm: [X, Y]` (cm at the isocentre)",
+                );
+                None
+            }
+            _ => None,
+        };
+        let ssd_cm = self.req_number(&f, "ssd-cm", 50.0, 200.0, "cm");
+        let depth_cm = self.req_number(&f, "depth-cm", 0.0, 50.0, "cm");
+        let setup = f.get("setup").and_then(|x| {
+            let s = self.string(x, "`setup`")?;
+            match s.as_str() {
+                "ssd" => Some(beamproof_api::mu::MuSetup::Ssd),
+                "sad" => Some(beamproof_api::mu::MuSetup::Sad),
+                _ => {
+                    self.report(x, format!("unknown setup `{s}`"), "one of: ssd, sad");
+                    None
+                }
+            }
+        });
+        let off_axis_cm = match f.get("off-axis-cm") {
+            Some(x) => self.numbers::<2>(
+                x,
+                "`off-axis-cm`",
+                -40.0,
+                40.0,
+                "cm",
+                "write `[x, y]`: the point in the beam's eye view at the isocentre plane, cm",
+            )?,
+            None => [0.0, 0.0],
+        };
+        let mu = self.req_number(&f, "mu", 0.1, 1e5, "MU");
+        let tps = self.req_number(&f, "tps-dose-gy", 1e-4, 100.0, "Gy");
+        let wedge = self.opt_string(&f, "wedge");
+        let tray = self.opt_bool(&f, "tray").unwrap_or(false);
+        Some(MuBeamSpec {
+            id: id?,
+            jaws_cm: jaws_cm?,
+            ssd_cm: ssd_cm?,
+            depth_cm: depth_cm?,
+            setup,
+            off_axis_cm,
+            mu: mu?,
+            tps_dose_gy: tps?,
+            wedge,
+            tray,
             pos: Pos::of(n),
         })
     }

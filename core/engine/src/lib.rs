@@ -4,6 +4,7 @@
 pub mod campaign;
 pub mod checksum;
 pub mod diag;
+pub mod mu_input;
 pub mod output;
 pub mod prepare;
 pub mod readers;

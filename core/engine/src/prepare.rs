@@ -50,6 +50,8 @@ pub struct PreparedTest {
     pub measured: Option<PreparedInput>,
     pub calculated: Option<PreparedInput>,
     pub analyses: Vec<PreparedAnalysis>,
+    /// Beam data and beams of a monitor-unit check.
+    pub mu: Option<crate::mu_input::PreparedMu>,
 }
 
 /// Everything a run of one machine needs.
@@ -149,6 +151,16 @@ pub fn prepare(
                 &mut files,
                 &mut diags,
             );
+            let mu = spec.mu.as_ref().and_then(|m| {
+                crate::mu_input::prepare_mu(
+                    campaign,
+                    machine,
+                    m,
+                    beam.as_ref(),
+                    &mut files,
+                    &mut diags,
+                )
+            });
             if diags.len() == before {
                 if let Err(d) = check_shapes(campaign, spec, measured.as_ref(), calculated.as_ref())
                 {
@@ -168,6 +180,7 @@ pub fn prepare(
                     measured,
                     calculated,
                     analyses,
+                    mu,
                 });
             }
         }
@@ -364,7 +377,7 @@ fn kind_word(kind: &ParamType) -> &'static str {
 
 /// Input paths must be relative and stay inside the campaign folder, so that a run folder can
 /// hold a copy of every input at the same relative place.
-fn clean_relative(p: &str) -> Option<String> {
+pub(crate) fn clean_relative(p: &str) -> Option<String> {
     let path = Path::new(p);
     if path.is_absolute() || p.contains('\\') {
         return None;

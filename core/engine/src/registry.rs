@@ -17,6 +17,7 @@ fn built_ins() -> Vec<Box<dyn Analysis>> {
         Box::new(beamproof_plugin_gamma::Gamma),
         Box::new(beamproof_plugin_depth_dose::DepthDose),
         Box::new(beamproof_plugin_profile::Profile),
+        Box::new(beamproof_plugin_mu_check::MuCheck),
     ]
 }
 

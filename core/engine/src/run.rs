@@ -336,7 +336,7 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         criteria: t.criteria.clone(),
         measured: t.measured.as_ref().map(|m| m.dataset.clone()),
         calculated: t.calculated.as_ref().map(|c| c.dataset.clone()),
-        mu: None,
+        mu: t.mu.as_ref().map(|m| m.input.clone()),
     };
     let analyses: Vec<AnalysisRecord> = t
         .analyses
@@ -373,7 +373,7 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
             }
         })
         .collect();
-    let inputs = [("measured", &t.measured), ("calculated", &t.calculated)]
+    let mut inputs: Vec<InputRecord> = [("measured", &t.measured), ("calculated", &t.calculated)]
         .into_iter()
         .filter_map(|(role, i)| {
             let i = i.as_ref()?;
@@ -386,6 +386,15 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
             })
         })
         .collect();
+    if let Some(m) = &t.mu {
+        inputs.extend(m.files.iter().map(|(role, rel, sha)| InputRecord {
+            role,
+            file: format!("{INPUTS_DIR}/{rel}"),
+            sha256: sha.clone(),
+            unit: String::new(),
+            shape: String::new(),
+        }));
+    }
     TestRecord {
         id: t.spec.id.clone(),
         name: t.spec.name.clone(),

@@ -40,6 +40,10 @@ pub struct PlanBeam {
     pub mlc_positions_mm: Vec<f64>,
     pub meterset_mu: f64,
     pub beam_dose_gy: Option<f64>,
+    /// Number of control points (2 for a static beam).
+    pub control_points: usize,
+    /// Wedge IDs of the Wedge Sequence (physical or motorised wedges).
+    pub wedge_ids: Vec<String>,
 }
 
 /// A plan's label and beams.
@@ -186,6 +190,11 @@ pub fn read_plan(path: &Path) -> Result<Plan, Diagnostic> {
             mlc_positions_mm: mlc,
             meterset_mu: meterset,
             beam_dose_gy: r.and_then(|r| float(r, tags::BEAM_DOSE)),
+            control_points: items(b, tags::CONTROL_POINT_SEQUENCE).len(),
+            wedge_ids: items(b, tags::WEDGE_SEQUENCE)
+                .iter()
+                .map(|w| text(w, tags::WEDGE_ID).unwrap_or_default())
+                .collect(),
         });
     }
     if beams.is_empty() {

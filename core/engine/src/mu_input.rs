@@ -1,0 +1,419 @@
+//! Preparing a monitor-unit check: the beam-data file, and the beams, either written in the
+//! campaign or read from a DICOM RT Plan, with their geometry resolved at the calculation point
+//! (depth, source-to-point distance, position in the beam's eye view) and the planning
+//! system's dose there (from the campaign, per-beam RT Dose files, or the plan's beam dose).
+//!
+//! Plan geometry (IEC 61217, couch at 0): with gantry angle g the source sits at
+//! SAD (sin g, 0, cos g) from the isocentre in fixed coordinates, so a point p (relative to the
+//! isocentre) lies at SPD = SAD - p.u along the central axis, u = (sin g, 0, cos g), and at
+//! depth SPD - SSD in a flat phantom. Its beam's-eye-view coordinates are the gantry
+//! rotation, x_g = p_x cos g - p_z sin g, y_g = p_y, followed by the collimator rotation c,
+//! x_b = x_g cos c + y_g sin c, y_b = -x_g sin c + y_g cos c, projected to the isocentre plane
+//! by SAD / SPD.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use beamproof_api::mu::{BeamData, Leaves, MuBeam, MuInput, MuSetup};
+use beamproof_api::{BeamInfo, DatasetData};
+
+use crate::campaign::{Campaign, InputSpec, Machine, MuSpec};
+use crate::checksum::sha256_hex;
+use crate::diag::Diagnostic;
+use crate::prepare::{InputFile, clean_relative};
+use crate::readers::rtplan::{Plan, PlanBeam, read_plan};
+use crate::readers::{beam_data, read_dataset};
+
+/// Tolerance for "the point is at the isocentre distance": SSD + depth within this of the SAD
+/// makes a written beam isocentric when its setup is not stated (common practice, no source).
+pub const ISOCENTRIC_WITHIN_CM: f64 = 0.5;
+
+/// The inputs of a prepared MU check, with the files read (for the run folder).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PreparedMu {
+    pub input: MuInput,
+    /// (role, relative path, sha256) of every file this test read.
+    pub files: Vec<(&'static str, String, String)>,
+}
+
+/// Resolve and read one file of the `mu:` block: relative path inside the campaign folder.
+fn file(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: &InputSpec,
+    extra: &[(&str, String)],
+    what: &str,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<(String, std::path::PathBuf)> {
+    let mut written = spec.path_for(&machine.id);
+    for (k, v) in extra {
+        written = written.replace(k, v);
+    }
+    let at = |m: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, m);
+    let Some(rel) = clean_relative(&written) else {
+        diags.push(at(format!("{what} path `{written}` leaves the campaign folder")).help(
+            "give paths relative to the campaign file, without `..`, so the run folder can keep a copy",
+        ));
+        return None;
+    };
+    let path = campaign.resolve(&rel);
+    if !path.is_file() {
+        diags.push(
+            at(format!("{what} `{rel}` cannot be read: it does not exist"))
+                .help(format!("expected at {}", path.display())),
+        );
+        return None;
+    }
+    Some((rel, path))
+}
+
+fn keep(files: &mut BTreeMap<String, InputFile>, rel: &str, bytes: Vec<u8>) -> String {
+    let sha = sha256_hex(&bytes);
+    files.entry(rel.to_string()).or_insert_with(|| InputFile {
+        rel: rel.to_string(),
+        sha256: sha.clone(),
+        bytes,
+    });
+    sha
+}
+
+/// Prepare the `mu:` block of a test for one machine; problems go to `diags`.
+pub fn prepare_mu(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: &MuSpec,
+    beam: Option<&BeamInfo>,
+    files: &mut BTreeMap<String, InputFile>,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<PreparedMu> {
+    let mut read_files = Vec::new();
+    let (rel, path) = file(
+        campaign,
+        machine,
+        &spec.beam_data,
+        &[],
+        "beam-data file",
+        diags,
+    )?;
+    let loaded = match beam_data::read(&path, &rel) {
+        Ok(b) => b,
+        Err(mut e) => {
+            diags.append(&mut e);
+            return None;
+        }
+    };
+    let at = |m: String| {
+        Diagnostic::at(
+            &campaign.path,
+            spec.beam_data.pos.line,
+            spec.beam_data.pos.column,
+            m,
+        )
+    };
+    if loaded.data.machine != machine.id {
+        diags.push(
+            at(format!(
+                "beam data `{rel}` were measured on machine `{}`, the test runs on `{}`",
+                loaded.data.machine, machine.id
+            ))
+            .help("use `{machine}` in the beam-data path so each machine gets its own data"),
+        );
+        return None;
+    }
+    if let Some(b) = beam
+        && loaded.data.beam != b.id
+    {
+        diags.push(
+            at(format!(
+                "beam data `{rel}` are for beam `{}`, the test's beam is `{}`",
+                loaded.data.beam, b.id
+            ))
+            .help("point `beam-data` at the data of the test's beam"),
+        );
+        return None;
+    }
+    let bytes = std::fs::read(&path).unwrap_or_default();
+    read_files.push(("beam-data", rel.clone(), keep(files, &rel, bytes)));
+    for (t_rel, t_bytes) in loaded.tables {
+        let sha = keep(files, &t_rel, t_bytes);
+        read_files.push(("beam-data table", t_rel, sha));
+    }
+    let data = loaded.data;
+    let (beams, plan_label) = match &spec.plan {
+        None => (written_beams(spec, &data), None),
+        Some(plan_spec) => {
+            let (prel, ppath) = file(campaign, machine, plan_spec, &[], "plan", diags)?;
+            let plan = match read_plan(&ppath) {
+                Ok(p) => p,
+                Err(d) => {
+                    diags.push(d);
+                    return None;
+                }
+            };
+            let bytes = std::fs::read(&ppath).unwrap_or_default();
+            read_files.push(("plan", prel.clone(), keep(files, &prel, bytes)));
+            let mut beams = match plan_beams(&plan, &prel, spec.point_mm, data.sad_cm, beam) {
+                Ok(b) => b,
+                Err(m) => {
+                    diags.push(
+                        Diagnostic::at(
+                            &campaign.path,
+                            plan_spec.pos.line,
+                            plan_spec.pos.column,
+                            format!("plan `{prel}`: {m}"),
+                        )
+                        .help("check only static photon beams of the test's energy; dynamic and electron beams are outside this check"),
+                    );
+                    return None;
+                }
+            };
+            if let Some(ds) = &spec.beam_doses {
+                for (b, pb) in beams.iter_mut().zip(&plan.beams) {
+                    let number = pb.number.to_string();
+                    let (drel, dpath) = file(
+                        campaign,
+                        machine,
+                        ds,
+                        &[("{beam}", number.clone())],
+                        "beam dose",
+                        diags,
+                    )?;
+                    let dataset = match read_dataset(&dpath, &drel, ds.placement.as_ref()) {
+                        Ok(d) => d,
+                        Err(d) => {
+                            diags.push(d);
+                            return None;
+                        }
+                    };
+                    let DatasetData::Grid(g) = &dataset.data else {
+                        diags.push(
+                            Diagnostic::file(&dpath, "a beam dose must be a dose grid")
+                                .help("give the planning system's RT Dose of this beam"),
+                        );
+                        return None;
+                    };
+                    let p = spec.point_mm;
+                    match g.sample(p[0], p[1], p[2]) {
+                        Some(v) => {
+                            b.tps_dose_gy = Some(v);
+                            b.tps_dose_source = drel.clone();
+                        }
+                        None => {
+                            diags.push(
+                                Diagnostic::file(
+                                    &dpath,
+                                    format!(
+                                        "the calculation point ({}, {}, {}) mm lies outside the dose grid of beam {number}",
+                                        p[0], p[1], p[2]
+                                    ),
+                                )
+                                .help("move `point-mm` inside the calculated dose, or check the placement"),
+                            );
+                            return None;
+                        }
+                    }
+                    let bytes = std::fs::read(&dpath).unwrap_or_default();
+                    read_files.push(("beam dose", drel.clone(), keep(files, &drel, bytes)));
+                }
+            }
+            (beams, Some(plan.label.clone()))
+        }
+    };
+    Some(PreparedMu {
+        input: MuInput {
+            beam_data: data,
+            beams,
+            plan: plan_label,
+        },
+        files: read_files,
+    })
+}
+
+fn written_beams(spec: &MuSpec, data: &BeamData) -> Vec<MuBeam> {
+    spec.beams
+        .iter()
+        .map(|b| {
+            let spd = b.ssd_cm + b.depth_cm;
+            MuBeam {
+                id: b.id.clone(),
+                source: "campaign".into(),
+                setup: b
+                    .setup
+                    .unwrap_or(if (spd - data.sad_cm).abs() <= ISOCENTRIC_WITHIN_CM {
+                        MuSetup::Sad
+                    } else {
+                        MuSetup::Ssd
+                    }),
+                ssd_cm: b.ssd_cm,
+                depth_cm: b.depth_cm,
+                spd_cm: spd,
+                off_axis_cm: b.off_axis_cm,
+                jaws_cm: b.jaws_cm,
+                leaves: None,
+                wedge: b.wedge.clone(),
+                tray: b.tray,
+                mu: b.mu,
+                tps_dose_gy: Some(b.tps_dose_gy),
+                tps_dose_source: "campaign".into(),
+            }
+        })
+        .collect()
+}
+
+/// The beams of a plan as MU-check beams at `point_mm` (IEC fixed, relative to the
+/// isocentre). Refuses beams this check cannot calculate, naming them.
+pub fn plan_beams(
+    plan: &Plan,
+    source: &str,
+    point_mm: [f64; 3],
+    sad_cm: f64,
+    beam: Option<&BeamInfo>,
+) -> Result<Vec<MuBeam>, String> {
+    plan.beams
+        .iter()
+        .map(|b| plan_beam(b, source, point_mm, sad_cm, beam))
+        .collect()
+}
+
+fn plan_beam(
+    b: &PlanBeam,
+    source: &str,
+    p_mm: [f64; 3],
+    sad_cm: f64,
+    beam: Option<&BeamInfo>,
+) -> Result<MuBeam, String> {
+    let label = format!("{} {}", b.number, b.name);
+    let refuse = |why: String| Err(format!("beam {label}: {why}"));
+    if !b.radiation.eq_ignore_ascii_case("PHOTON") {
+        return refuse(format!(
+            "radiation {} is not supported (photon beams only)",
+            b.radiation
+        ));
+    }
+    if b.control_points > 2 {
+        return refuse(format!(
+            "{} control points: dynamic beams (IMRT, VMAT, dynamic wedges) are outside the TG-71 hand calculation",
+            b.control_points
+        ));
+    }
+    if let Some(info) = beam {
+        if (b.energy - info.energy).abs() > 1e-6 {
+            return refuse(format!(
+                "nominal energy {} MV differs from the test's beam {} ({} MV)",
+                b.energy, info.id, info.energy
+            ));
+        }
+        if info.fff != b.fluence_mode_id.is_some() {
+            return refuse(format!(
+                "fluence mode {} does not match the test's beam {} ({})",
+                b.fluence_mode_id.as_deref().unwrap_or("standard"),
+                info.id,
+                if info.fff {
+                    "flattening-filter-free"
+                } else {
+                    "flattened"
+                }
+            ));
+        }
+    }
+    let Some(ssd_mm) = b.ssd_mm else {
+        return refuse("no Source to Surface Distance in the first control point".into());
+    };
+    if b.couch_deg.abs() > 1e-6 && p_mm.iter().any(|v| v.abs() > 1e-6) {
+        return refuse(format!(
+            "couch angle {} degrees with a point away from the isocentre is not supported",
+            b.couch_deg
+        ));
+    }
+    let leaves = if b.mlc_positions_mm.is_empty() {
+        None
+    } else {
+        let n = b.mlc_boundaries_mm.len() - 1;
+        Some(Leaves {
+            boundaries: b.mlc_boundaries_mm.iter().map(|v| v / 10.0).collect(),
+            bank_a: b.mlc_positions_mm[..n].iter().map(|v| v / 10.0).collect(),
+            bank_b: b.mlc_positions_mm[n..].iter().map(|v| v / 10.0).collect(),
+        })
+    };
+    // Jaws, or the leaves' extent where a jaw pair is absent (jawless designs).
+    let jx = match (b.jaw_x_mm, &leaves) {
+        (Some(j), _) => [j[0] / 10.0, j[1] / 10.0],
+        (None, Some(l)) => [
+            l.bank_a.iter().copied().fold(f64::INFINITY, f64::min),
+            l.bank_b.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+        ],
+        (None, None) => return refuse("no X jaws and no leaves in the first control point".into()),
+    };
+    let jy = match (b.jaw_y_mm, &leaves) {
+        (Some(j), _) => [j[0] / 10.0, j[1] / 10.0],
+        (None, Some(l)) => [l.boundaries[0], l.boundaries[l.boundaries.len() - 1]],
+        (None, None) => return refuse("no Y jaws and no leaves in the first control point".into()),
+    };
+    if jx[1] <= jx[0] || jy[1] <= jy[0] {
+        return refuse("the jaws are closed".into());
+    }
+    let (g, c) = (b.gantry_deg.to_radians(), b.collimator_deg.to_radians());
+    let p = [p_mm[0] / 10.0, p_mm[1] / 10.0, p_mm[2] / 10.0];
+    let along = p[0] * g.sin() + p[2] * g.cos();
+    let spd = sad_cm - along;
+    let ssd = ssd_mm / 10.0;
+    let depth = spd - ssd;
+    if depth <= 0.0 {
+        return refuse(format!(
+            "the point lies outside the phantom (depth {depth:.2} cm from SSD {ssd:.1} cm)"
+        ));
+    }
+    let xg = p[0] * g.cos() - p[2] * g.sin();
+    let yg = p[1];
+    let (xb, yb) = (xg * c.cos() + yg * c.sin(), -xg * c.sin() + yg * c.cos());
+    let scale = sad_cm / spd;
+    Ok(MuBeam {
+        id: label,
+        source: source.to_string(),
+        setup: if (spd - sad_cm).abs() <= ISOCENTRIC_WITHIN_CM {
+            MuSetup::Sad
+        } else {
+            MuSetup::Ssd
+        },
+        ssd_cm: ssd,
+        depth_cm: depth,
+        spd_cm: spd,
+        off_axis_cm: [xb * scale, yb * scale],
+        jaws_cm: [jx[0], jx[1], jy[0], jy[1]],
+        leaves,
+        wedge: b.wedge_ids.first().cloned(),
+        tray: false,
+        mu: b.meterset_mu,
+        tps_dose_gy: b.beam_dose_gy,
+        tps_dose_source: if b.beam_dose_gy.is_some() {
+            format!("{source} (beam dose)")
+        } else {
+            String::new()
+        },
+    })
+}
+
+/// Read an RT Plan and a beam-data file outside a campaign (the `mu` command).
+pub fn standalone(
+    beam_data_path: &Path,
+    plan_path: &Path,
+    point_mm: [f64; 3],
+) -> Result<MuInput, Vec<Diagnostic>> {
+    let name = |p: &Path| {
+        p.file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default()
+    };
+    let data = beam_data::read(beam_data_path, &name(beam_data_path))?.data;
+    let plan = read_plan(plan_path).map_err(|d| vec![d])?;
+    let beams = plan_beams(&plan, &name(plan_path), point_mm, data.sad_cm, None).map_err(|m| {
+        vec![Diagnostic::file(plan_path, m).help(
+            "check only static photon beams; dynamic and electron beams are outside this check",
+        )]
+    })?;
+    Ok(MuInput {
+        beam_data: data,
+        beams,
+        plan: Some(plan.label),
+    })
+}
