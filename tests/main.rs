@@ -4,6 +4,7 @@ mod campaign_errors;
 mod dynamic_plugins;
 mod gamma_cmd;
 mod gamma_crosscheck;
+mod mu_check;
 mod report_content;
 mod report_templates;
 mod rtdose_reader;

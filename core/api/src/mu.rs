@@ -36,6 +36,10 @@ pub struct BeamData {
     pub source: String,
     pub machine: String,
     pub beam: String,
+    /// Nominal energy, MV, and whether the beam is flattening-filter free (checked against the
+    /// plan's beams).
+    pub energy_mv: f64,
+    pub fff: bool,
     /// Source-axis distance, cm.
     pub sad_cm: f64,
     /// Normalisation conditions: SSD0 and depth d0 (cm), field side (cm), and the dose per MU

@@ -132,6 +132,22 @@ pub fn prepare_mu(
         );
         return None;
     }
+    if let Some(b) = beam
+        && ((b.energy - loaded.data.energy_mv).abs() > 1e-6 || b.fff != loaded.data.fff)
+    {
+        diags.push(
+            at(format!(
+                "beam data `{rel}` describe {} MV{}, the test's beam `{}` is {} MV{}",
+                loaded.data.energy_mv,
+                if loaded.data.fff { " FFF" } else { "" },
+                b.id,
+                b.energy,
+                if b.fff { " FFF" } else { "" }
+            ))
+            .help("point `beam-data` at the data of the test's beam"),
+        );
+        return None;
+    }
     let bytes = std::fs::read(&path).unwrap_or_default();
     read_files.push(("beam-data", rel.clone(), keep(files, &rel, bytes)));
     for (t_rel, t_bytes) in loaded.tables {
@@ -152,7 +168,7 @@ pub fn prepare_mu(
             };
             let bytes = std::fs::read(&ppath).unwrap_or_default();
             read_files.push(("plan", prel.clone(), keep(files, &prel, bytes)));
-            let mut beams = match plan_beams(&plan, &prel, spec.point_mm, data.sad_cm, beam) {
+            let mut beams = match plan_beams(&plan, &prel, spec.point_mm, &data) {
                 Ok(b) => b,
                 Err(m) => {
                     diags.push(
@@ -266,12 +282,11 @@ pub fn plan_beams(
     plan: &Plan,
     source: &str,
     point_mm: [f64; 3],
-    sad_cm: f64,
-    beam: Option<&BeamInfo>,
+    data: &BeamData,
 ) -> Result<Vec<MuBeam>, String> {
     plan.beams
         .iter()
-        .map(|b| plan_beam(b, source, point_mm, sad_cm, beam))
+        .map(|b| plan_beam(b, source, point_mm, data))
         .collect()
 }
 
@@ -279,9 +294,9 @@ fn plan_beam(
     b: &PlanBeam,
     source: &str,
     p_mm: [f64; 3],
-    sad_cm: f64,
-    beam: Option<&BeamInfo>,
+    data: &BeamData,
 ) -> Result<MuBeam, String> {
+    let sad_cm = data.sad_cm;
     let label = format!("{} {}", b.number, b.name);
     let refuse = |why: String| Err(format!("beam {label}: {why}"));
     if !b.radiation.eq_ignore_ascii_case("PHOTON") {
@@ -296,25 +311,23 @@ fn plan_beam(
             b.control_points
         ));
     }
-    if let Some(info) = beam {
-        if (b.energy - info.energy).abs() > 1e-6 {
-            return refuse(format!(
-                "nominal energy {} MV differs from the test's beam {} ({} MV)",
-                b.energy, info.id, info.energy
-            ));
-        }
-        if info.fff != b.fluence_mode_id.is_some() {
-            return refuse(format!(
-                "fluence mode {} does not match the test's beam {} ({})",
-                b.fluence_mode_id.as_deref().unwrap_or("standard"),
-                info.id,
-                if info.fff {
-                    "flattening-filter-free"
-                } else {
-                    "flattened"
-                }
-            ));
-        }
+    if (b.energy - data.energy_mv).abs() > 1e-6 {
+        return refuse(format!(
+            "nominal energy {} MV differs from the beam data {} ({} MV)",
+            b.energy, data.source, data.energy_mv
+        ));
+    }
+    if data.fff != b.fluence_mode_id.is_some() {
+        return refuse(format!(
+            "fluence mode {} does not match the beam data {} ({})",
+            b.fluence_mode_id.as_deref().unwrap_or("standard"),
+            data.source,
+            if data.fff {
+                "flattening-filter-free"
+            } else {
+                "flattened"
+            }
+        ));
     }
     let Some(ssd_mm) = b.ssd_mm else {
         return refuse("no Source to Surface Distance in the first control point".into());
@@ -406,7 +419,7 @@ pub fn standalone(
     };
     let data = beam_data::read(beam_data_path, &name(beam_data_path))?.data;
     let plan = read_plan(plan_path).map_err(|d| vec![d])?;
-    let beams = plan_beams(&plan, &name(plan_path), point_mm, data.sad_cm, None).map_err(|m| {
+    let beams = plan_beams(&plan, &name(plan_path), point_mm, &data).map_err(|m| {
         vec![Diagnostic::file(plan_path, m).help(
             "check only static photon beams; dynamic and electron beams are outside this check",
         )]

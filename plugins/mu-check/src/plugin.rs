@@ -446,6 +446,8 @@ mod tests {
             source: "beam-data/test.yaml".into(),
             machine: "m".into(),
             beam: "6x".into(),
+            energy_mv: 6.0,
+            fff: false,
             sad_cm: 100.0,
             ssd0_cm: 100.0,
             d0_cm: 1.5,

@@ -18,6 +18,8 @@ pub const BEAM_DATA_KEYS: &[&str] = &[
     "beamproof-beam-data",
     "machine",
     "beam",
+    "energy-mv",
+    "fff",
     "description",
     "sad-cm",
     "normalisation",
@@ -169,6 +171,8 @@ pub fn read(path: &Path, rel: &str) -> Result<BeamDataFiles, Vec<Diagnostic>> {
                 source: rel.to_string(),
                 machine: h.machine,
                 beam: h.beam,
+                energy_mv: h.energy_mv,
+                fff: h.fff,
                 sad_cm: h.sad_cm,
                 ssd0_cm: h.ssd0_cm,
                 d0_cm: h.d0_cm,
@@ -195,6 +199,8 @@ pub fn read(path: &Path, rel: &str) -> Result<BeamDataFiles, Vec<Diagnostic>> {
 struct Header {
     machine: String,
     beam: String,
+    energy_mv: f64,
+    fff: bool,
     sad_cm: f64,
     ssd0_cm: f64,
     d0_cm: f64,
@@ -231,6 +237,8 @@ fn decode(d: &mut Decoder, root: &Node) -> Option<Header> {
         "name the machine these data were measured on",
     );
     let beam = d.req_string(&f, "beam", "name the beam (the campaign's beam id)");
+    let energy_mv = d.req_number(&f, "energy-mv", 1.0, 50.0, "MV");
+    let fff = d.opt_bool(&f, "fff").unwrap_or(false);
     let _ = d.opt_string(&f, "description");
     let sad_cm = d.req_number(&f, "sad-cm", 50.0, 200.0, "cm");
     let norm = d
@@ -307,6 +315,8 @@ fn decode(d: &mut Decoder, root: &Node) -> Option<Header> {
     Some(Header {
         machine: machine?,
         beam: beam?,
+        energy_mv: energy_mv?,
+        fff,
         sad_cm: sad_cm?,
         ssd0_cm: ssd0?,
         d0_cm: d0?,
