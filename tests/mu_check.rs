@@ -162,9 +162,9 @@ fn plan_beams_are_placed_at_the_point_and_shaped_by_their_leaves() {
         factors.iter().any(|f| f[0] == "WF" && f[2] == "0.6200"),
         "{factors:?}"
     );
-    // The TPS dose comes from the plan's Beam Dose (1.0, 0.9, 1.2 Gy).
+    // The TPS dose comes from the plan's Beam Dose (1.22, 1.48, 1.265 Gy).
     let tps: Vec<&str> = rows.iter().map(|r| r[9].as_str()).collect();
-    assert_eq!(tps, ["1.0000", "0.9000", "1.2000"]);
+    assert_eq!(tps, ["1.2200", "1.4800", "1.2650"]);
 }
 
 #[test]
@@ -322,5 +322,35 @@ fn a_field_outside_the_tables_is_an_error_of_its_test_naming_the_beam() {
     assert_eq!(
         a["error"],
         "beam huge: Sc field size 50 cm is outside the table (4 to 40 cm); extend the measured data rather than extrapolate"
+    );
+}
+
+#[test]
+fn the_mu_command_prints_the_calculation_line_by_line() {
+    let fx = root().join("tests/fixtures");
+    let (data, plan) = (fx.join("mu/beam-data.yaml"), fx.join("rtplan/mu_plan.dcm"));
+    let args = [
+        "mu",
+        "--beam-data",
+        data.to_str().expect("utf8"),
+        "--plan",
+        plan.to_str().expect("utf8"),
+    ];
+    let o = cli(&args);
+    assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
+    // Geometry as in the campaign test; the wedge and the factors of beam 3 appear by name.
+    assert!(o.stdout.contains("beam 1 AP: isocentric, SSD 90.00 cm, depth 10.00 cm, SPD 100.00 cm, off axis (0.00, 0.00) cm, jaws 10.00 x 10.00 cm, leaves, Clarkson scatter\n"), "{}", o.stdout);
+    assert!(o.stdout.contains("  WF        wedge factor"));
+    assert!(o.stdout.contains("(beam dose of mu_plan.dcm)"));
+    assert!(o.stdout.ends_with("caution: Local regulations, institutional policy and licensed professional practice prevail over anything this report states.\n"));
+    let mut bad = args.to_vec();
+    bad.extend(["--point", "0,0"]);
+    let o = cli(&bad);
+    assert_eq!(
+        (o.code, o.stderr.as_str()),
+        (
+            2,
+            "error: `--point 0,0` is not three numbers\n  = help: write --point x,y,z in mm relative to the isocentre, e.g. --point 0,0,-20\n"
+        )
     );
 }

@@ -20,6 +20,7 @@ use beamproof_engine::run::{CAUTIONS, FileRecord, run};
 use clap::{Parser, Subcommand};
 
 mod gamma_cmd;
+mod mu_cmd;
 
 /// Success; for `run`, the verdict is GO.
 pub const EXIT_GO: u8 = 0;
@@ -75,6 +76,8 @@ enum Command {
     Verify { run_dir: PathBuf },
     /// Gamma comparison of two files outside a campaign (DICOM RT Dose or data CSV)
     Gamma(gamma_cmd::GammaArgs),
+    /// Independent MU check of a DICOM RT Plan from beam data, printed line by line
+    Mu(mu_cmd::MuArgs),
     /// List the built-in plugins and those found in plugin folders
     Plugins {
         /// Also load the plugin folders named by this campaign
@@ -147,6 +150,7 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
         } => run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs),
         Command::Verify { run_dir } => verify(io, &run_dir),
         Command::Gamma(args) => gamma_cmd::run(io, args),
+        Command::Mu(args) => mu_cmd::run(io, args),
         Command::Plugins {
             campaign,
             plugin_dirs,

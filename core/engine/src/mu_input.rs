@@ -399,7 +399,7 @@ fn plan_beam(
         mu: b.meterset_mu,
         tps_dose_gy: b.beam_dose_gy,
         tps_dose_source: if b.beam_dose_gy.is_some() {
-            format!("{source} (beam dose)")
+            format!("beam dose of {source}")
         } else {
             String::new()
         },

@@ -9,4 +9,6 @@ pub mod formalism;
 mod plugin;
 pub mod tables;
 
-pub use plugin::{BeamCheck, MuCheck, NAME, Scatter, beam_data, check_beam, default_levels};
+pub use plugin::{
+    BeamCheck, MuCheck, NAME, Scatter, beam_data, calculate_beam, check_beam, default_levels,
+};

@@ -138,6 +138,28 @@ pub fn check_beam(
             b.id
         ));
     }
+    let (result, method) = calculate_beam(data, raw, b, scatter, sectors, tps_gy * 100.0)?;
+    let independent_gy = b.mu * result.dose_per_mu_cgy / 100.0;
+    Ok(BeamCheck {
+        id: b.id.clone(),
+        scatter: method,
+        independent_mu: result.mu,
+        difference_percent: 100.0 * (independent_gy - tps_gy) / tps_gy,
+        independent_gy,
+        result,
+    })
+}
+
+/// The TG-71 calculation of one beam for a dose `dose_cgy` at the point: the factors, the
+/// dose per MU and the MU, and how the scatter was found.
+pub fn calculate_beam(
+    data: &BeamData,
+    raw: &mu::BeamData,
+    b: &MuBeam,
+    scatter: &str,
+    sectors: usize,
+    dose_cgy: f64,
+) -> Result<(MuResult, Scatter), String> {
     let wedge = match &b.wedge {
         None => 1.0,
         Some(w) => raw
@@ -171,7 +193,7 @@ pub fn check_beam(
             MuSetup::Sad => Setup::Sad { spd_cm: b.spd_cm },
         },
         off_axis_cm: b.off_axis_cm[0].hypot(b.off_axis_cm[1]),
-        dose_cgy: tps_gy * 100.0,
+        dose_cgy,
         wedge,
         tray,
     };
@@ -180,7 +202,7 @@ pub fn check_beam(
         "equivalent-square" => false,
         _ => b.leaves.is_some(),
     };
-    let (result, method) = if use_clarkson {
+    Ok(if use_clarkson {
         let aperture = Aperture::new(b.jaws_cm, b.leaves.as_ref());
         if aperture.rects.is_empty() {
             return Err(format!("beam {}: the aperture is closed", b.id));
@@ -200,15 +222,6 @@ pub fn check_beam(
             calculate(data, &geometry).map_err(table_error(&b.id))?,
             Scatter::EquivalentSquare,
         )
-    };
-    let independent_gy = b.mu * result.dose_per_mu_cgy / 100.0;
-    Ok(BeamCheck {
-        id: b.id.clone(),
-        scatter: method,
-        independent_mu: result.mu,
-        difference_percent: 100.0 * (independent_gy - tps_gy) / tps_gy,
-        independent_gy,
-        result,
     })
 }
 
