@@ -354,3 +354,52 @@ fn the_mu_command_prints_the_calculation_line_by_line() {
         )
     );
 }
+
+#[test]
+fn per_beam_rt_doses_are_sampled_at_the_point() {
+    // Each beam's TPS dose is the pydicom RT Dose fixture sampled at the isocentre, placed on
+    // the node at DICOM (0, -7.5, 7.5) mm: frame 2, row 1, column 5, where pydicom reads
+    // 2.14463 Gy (tests/fixtures/rtdose/grid3d_explicit.expected.json).
+    let c = campaign(
+        "mu-doses",
+        "      - id: mu-plan
+        name: the pydicom plan with per-beam doses
+        kind: mu-check
+        beam: 6x
+        criteria: mu-default
+        mu:
+          beam-data: beam-data/beam-data.yaml
+          plan: plan/mu_plan.dcm
+          beam-doses: {file: 'dose/beam-{beam}.dcm', patient-position: HFS, isocentre-mm: [0, -7.5, 7.5]}
+        analyses: [mu-check]
+",
+    );
+    let dir = c.parent().expect("dir").to_path_buf();
+    std::fs::create_dir_all(dir.join("dose")).expect("mkdir");
+    let fixture = root().join("tests/fixtures/rtdose/grid3d_explicit.dcm");
+    for n in 1..=2 {
+        std::fs::copy(&fixture, dir.join(format!("dose/beam-{n}.dcm"))).expect("copy");
+    }
+    // Beam 3's dose is missing: the check names the file the placeholder made.
+    let e = check(&c);
+    assert!(
+        e.starts_with("error: beam dose `dose/beam-3.dcm` cannot be read: it does not exist\n"),
+        "{e}"
+    );
+    std::fs::copy(&fixture, dir.join("dose/beam-3.dcm")).expect("copy");
+    let (out, o) = run_into_folder(&c, "lin-a");
+    assert!(o.code <= 1, "{}{}", o.stdout, o.stderr);
+    let r = results(&out);
+    let tps: Vec<String> = table(&r, 0).iter().map(|r| r[9].clone()).collect();
+    assert_eq!(tps, ["2.1446", "2.1446", "2.1446"]);
+    let inputs = r["sites"][0]["tests"][0]["inputs"].as_array().expect("inputs");
+    let doses: Vec<&str> = inputs
+        .iter()
+        .filter(|i| i["role"] == "beam dose")
+        .map(|i| i["file"].as_str().expect("file"))
+        .collect();
+    assert_eq!(
+        doses,
+        ["inputs/dose/beam-1.dcm", "inputs/dose/beam-2.dcm", "inputs/dose/beam-3.dcm"]
+    );
+}
