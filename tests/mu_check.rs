@@ -392,7 +392,9 @@ fn per_beam_rt_doses_are_sampled_at_the_point() {
     let r = results(&out);
     let tps: Vec<String> = table(&r, 0).iter().map(|r| r[9].clone()).collect();
     assert_eq!(tps, ["2.1446", "2.1446", "2.1446"]);
-    let inputs = r["sites"][0]["tests"][0]["inputs"].as_array().expect("inputs");
+    let inputs = r["sites"][0]["tests"][0]["inputs"]
+        .as_array()
+        .expect("inputs");
     let doses: Vec<&str> = inputs
         .iter()
         .filter(|i| i["role"] == "beam dose")
@@ -400,6 +402,10 @@ fn per_beam_rt_doses_are_sampled_at_the_point() {
         .collect();
     assert_eq!(
         doses,
-        ["inputs/dose/beam-1.dcm", "inputs/dose/beam-2.dcm", "inputs/dose/beam-3.dcm"]
+        [
+            "inputs/dose/beam-1.dcm",
+            "inputs/dose/beam-2.dcm",
+            "inputs/dose/beam-3.dcm"
+        ]
     );
 }

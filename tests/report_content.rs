@@ -60,7 +60,10 @@ fn the_report_states_verdict_tests_cautions_and_checksums() {
         );
         checked += 1;
     }
-    assert_eq!(checked, 13, "campaign, 11 inputs and results.json");
+    assert_eq!(
+        checked, 19,
+        "campaign, 11 data inputs, 6 beam-data files and results.json"
+    );
     assert!(text.contains("templates/report.typ.hbs (built into beamproof"));
     // The sidecar holds the PDF's SHA-256 in sha256sum format.
     let pdf = std::fs::read(out.join("report.pdf")).expect("pdf");

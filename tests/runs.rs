@@ -113,7 +113,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
-        o.stdout.ends_with("all 16 files match the manifest\n"),
+        o.stdout.ends_with("all 22 files match the manifest\n"),
         "{}",
         o.stdout
     );
@@ -125,6 +125,12 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     // The manifest covers the campaign, every input of the machine, the results, the report,
     // its checksum file and the HTML summary.
     let expected = [
+        "inputs/beam-data/6x/oar.csv",
+        "inputs/beam-data/6x/pdd.csv",
+        "inputs/beam-data/6x/sc.csv",
+        "inputs/beam-data/6x/sp.csv",
+        "inputs/beam-data/6x/tpr.csv",
+        "inputs/beam-data/lin-a-6x.yaml",
         "inputs/campaign.yaml",
         "inputs/data/lin-a/cax-6x-10x10.csv",
         "inputs/data/lin-a/film-6x-10x10.csv",

@@ -91,7 +91,7 @@ pub fn calculate_clarkson(
         dose_per_mu_cgy: dose_per_mu,
         mu: beam.dose_cgy / dose_per_mu,
         factors: vec![
-            f("D", "prescribed dose at the point (cGy)", beam.dose_cgy),
+            f("D", "dose at the point (cGy)", beam.dose_cgy),
             f(
                 "D0'",
                 "dose per MU at the normalisation point (cGy/MU)",

@@ -81,7 +81,7 @@ pub fn mu_ssd(f: &SsdFactors) -> MuResult {
         dose_per_mu_cgy: dose_per_mu,
         mu: f.dose_cgy / dose_per_mu,
         factors: vec![
-            factor("D", "prescribed dose at the point (cGy)", f.dose_cgy),
+            factor("D", "dose at the point (cGy)", f.dose_cgy),
             factor(
                 "D0'",
                 "dose per MU at the normalisation point (cGy/MU)",
@@ -106,7 +106,7 @@ pub fn mu_sad(f: &SadFactors) -> MuResult {
         dose_per_mu_cgy: dose_per_mu,
         mu: f.dose_cgy / dose_per_mu,
         factors: vec![
-            factor("D", "prescribed dose at the point (cGy)", f.dose_cgy),
+            factor("D", "dose at the point (cGy)", f.dose_cgy),
             factor(
                 "D0'",
                 "dose per MU at the normalisation point (cGy/MU)",
