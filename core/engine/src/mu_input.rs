@@ -430,3 +430,121 @@ pub fn standalone(
         plan: Some(plan.label),
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use beamproof_api::mu::{Table1, Table2};
+
+    fn data() -> BeamData {
+        let t1 = Table1 {
+            axis: vec![4.0, 40.0],
+            values: vec![1.0, 1.0],
+        };
+        let t2 = Table2 {
+            depth_cm: vec![1.5, 30.0],
+            columns: vec![4.0, 40.0],
+            values: vec![1.0; 4],
+        };
+        BeamData {
+            source: "bd.yaml".into(),
+            machine: "m".into(),
+            beam: "6x".into(),
+            energy_mv: 6.0,
+            fff: false,
+            sad_cm: 100.0,
+            ssd0_cm: 100.0,
+            d0_cm: 1.5,
+            field0_cm: 10.0,
+            dose_per_mu_cgy: 1.0,
+            pdd: None,
+            tpr: Some(t2),
+            sc: t1.clone(),
+            sp: t1,
+            oar: None,
+            tray_factor: None,
+            wedges: Vec::new(),
+        }
+    }
+
+    fn beam() -> PlanBeam {
+        PlanBeam {
+            number: 7,
+            name: "RPO".into(),
+            machine: "LINAC".into(),
+            radiation: "PHOTON".into(),
+            energy: 6.0,
+            fluence_mode_id: None,
+            gantry_deg: 210.0,
+            collimator_deg: 90.0,
+            couch_deg: 0.0,
+            isocentre_mm: [0.0; 3],
+            ssd_mm: Some(880.0),
+            jaw_x_mm: Some([-50.0, 30.0]),
+            jaw_y_mm: Some([-40.0, 60.0]),
+            mlc_boundaries_mm: Vec::new(),
+            mlc_positions_mm: Vec::new(),
+            meterset_mu: 99.0,
+            beam_dose_gy: None,
+            control_points: 2,
+            wedge_ids: Vec::new(),
+        }
+    }
+
+    fn refusal(b: PlanBeam) -> String {
+        plan_beam(&b, "p.dcm", [0.0; 3], &data()).expect_err("refused")
+    }
+
+    #[test]
+    fn beams_outside_the_hand_calculation_are_refused_by_name() {
+        let mut b = beam();
+        b.radiation = "ELECTRON".into();
+        assert_eq!(
+            refusal(b),
+            "beam 7 RPO: radiation ELECTRON is not supported (photon beams only)"
+        );
+        let mut b = beam();
+        b.control_points = 178;
+        assert!(refusal(b).starts_with("beam 7 RPO: 178 control points: dynamic beams"));
+        let mut b = beam();
+        b.fluence_mode_id = Some("FFF".into());
+        assert_eq!(
+            refusal(b),
+            "beam 7 RPO: fluence mode FFF does not match the beam data bd.yaml (flattened)"
+        );
+        let mut b = beam();
+        b.ssd_mm = None;
+        assert_eq!(
+            refusal(b),
+            "beam 7 RPO: no Source to Surface Distance in the first control point"
+        );
+    }
+
+    #[test]
+    fn a_static_beam_at_the_isocentre_is_isocentric_at_sad_minus_ssd() {
+        // Point at the isocentre: SPD = SAD = 100 cm whatever the angles, depth 100 - 88 = 12 cm,
+        // on the axis; jaws converted from mm to cm as written (geometry by hand).
+        let m = plan_beam(&beam(), "p.dcm", [0.0; 3], &data()).expect("accepted");
+        assert_eq!(m.setup, MuSetup::Sad);
+        assert!((m.depth_cm - 12.0).abs() < 1e-12 && (m.spd_cm - 100.0).abs() < 1e-12);
+        assert_eq!(m.jaws_cm, [-5.0, 3.0, -4.0, 6.0]);
+        assert_eq!(m.off_axis_cm, [0.0, 0.0]);
+        assert_eq!(m.mu, 99.0);
+    }
+
+    #[test]
+    fn the_collimator_rotates_the_beams_eye_view() {
+        // Gantry 0, collimator 90: the fixed-Y point (0, 30, 0) mm lies at x_b = y sin 90 =
+        // +3 cm, y_b = y cos 90 = 0 in the beam's eye view (rotation by hand).
+        let mut b = beam();
+        b.gantry_deg = 0.0;
+        b.collimator_deg = 90.0;
+        let m = plan_beam(&b, "p.dcm", [0.0, 30.0, 0.0], &data()).expect("accepted");
+        assert!(
+            (m.off_axis_cm[0] - 3.0).abs() < 1e-12,
+            "{:?}",
+            m.off_axis_cm
+        );
+        assert!(m.off_axis_cm[1].abs() < 1e-12);
+    }
+}
