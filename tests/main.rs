@@ -11,4 +11,5 @@ mod rtdose_reader;
 mod rtplan_reader;
 mod runs;
 mod schema;
+mod signing;
 mod support;

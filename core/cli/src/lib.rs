@@ -17,6 +17,7 @@ use beamproof_engine::diag::{Diagnostic, render_all};
 use beamproof_engine::prepare::{Prepared, choose_machine, prepare};
 use beamproof_engine::registry::{Origin, Registry};
 use beamproof_engine::run::{CAUTIONS, FileRecord, run};
+use beamproof_engine::signing;
 use clap::{Parser, Subcommand};
 
 mod gamma_cmd;
@@ -72,8 +73,41 @@ enum Command {
         #[arg(long = "plugin-dir")]
         plugin_dirs: Vec<PathBuf>,
     },
-    /// Re-compute every checksum of a run folder's manifest
-    Verify { run_dir: PathBuf },
+    /// Re-compute every checksum of a run folder's manifest and check its signatures
+    Verify {
+        run_dir: PathBuf,
+        /// Folder of trusted public keys (`*.pub`); signatures by other keys are reported as such
+        #[arg(long = "trusted-keys")]
+        trusted_keys: Option<PathBuf>,
+    },
+    /// Make an Ed25519 key pair for signing runs (the secret file is owner-only)
+    Keygen {
+        /// The signer's name, as it will appear on signatures
+        #[arg(long)]
+        name: String,
+        /// The signer's role, e.g. "medical physicist" or "chief physicist"
+        #[arg(long)]
+        role: String,
+        /// Key file to create (the public key goes to KEYFILE.pub); never overwritten
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Sign a run folder: a detached signature of its manifest, added under signatures/
+    Sign {
+        run_dir: PathBuf,
+        /// Key file made by `beamproof keygen`
+        #[arg(long)]
+        key: PathBuf,
+        /// What the signer states
+        #[arg(
+            long,
+            default_value = "I have reviewed this commissioning run and its report."
+        )]
+        statement: String,
+        /// Signing date YYYY-MM-DD (default: today, UTC)
+        #[arg(long)]
+        date: Option<String>,
+    },
     /// Gamma comparison of two files outside a campaign (DICOM RT Dose or data CSV)
     Gamma(gamma_cmd::GammaArgs),
     /// Independent MU check of a DICOM RT Plan from beam data, printed line by line
@@ -148,7 +182,17 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
             date,
             plugin_dirs,
         } => run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs),
-        Command::Verify { run_dir } => verify(io, &run_dir),
+        Command::Verify {
+            run_dir,
+            trusted_keys,
+        } => verify(io, &run_dir, trusted_keys.as_deref()),
+        Command::Keygen { name, role, out } => keygen(io, &name, &role, &out),
+        Command::Sign {
+            run_dir,
+            key,
+            statement,
+            date,
+        } => sign(io, &run_dir, &key, &statement, date),
         Command::Gamma(args) => gamma_cmd::run(io, args),
         Command::Mu(args) => mu_cmd::run(io, args),
         Command::Plugins {
@@ -345,25 +389,35 @@ fn run_campaign(
     Ok(if record.is_go() { EXIT_GO } else { EXIT_NO_GO })
 }
 
-fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
+fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8, Failure> {
     let v = verify_run(run_dir).map_err(|e| Failure {
         text: format!("error: {e}\n  = help: give a run folder made by `beamproof run`"),
         code: EXIT_CANNOT_RUN,
     })?;
+    let trusted = match trusted_dir {
+        Some(d) => Some(signing::trusted_keys(d).map_err(|e| Failure {
+            text: format!(
+                "error: {e}\n  = help: give a folder of `*.pub` files made by `beamproof keygen`"
+            ),
+            code: EXIT_CANNOT_RUN,
+        })?),
+        None => None,
+    };
     for f in &v.findings {
         outln!(io, "{f}");
     }
-    for u in &v.uncovered {
+    let sig_prefix = format!("{}/", signing::SIGNATURES_DIR);
+    for u in v.uncovered.iter().filter(|u| !u.starts_with(&sig_prefix)) {
         outln!(io, "not covered by the manifest: {u}");
     }
-    if v.findings.is_empty() {
+    let files_ok = v.findings.is_empty();
+    if files_ok {
         outln!(
             io,
             "{}: all {} files match the manifest",
             run_dir.display(),
             v.ok.len()
         );
-        Ok(EXIT_GO)
     } else {
         outln!(
             io,
@@ -372,8 +426,117 @@ fn verify(io: &mut Io, run_dir: &Path) -> Result<u8, Failure> {
             v.findings.len(),
             v.ok.len()
         );
-        Ok(EXIT_VERIFY_FAILED)
     }
+    let checks = signing::verify_signatures(run_dir, trusted.as_deref());
+    let mut sig_ok = true;
+    for (file, c) in &checks {
+        match c {
+            signing::SignatureCheck::Valid {
+                statement: s,
+                trusted,
+            } => {
+                if *trusted == Some(false) {
+                    sig_ok = false;
+                }
+                let key = match trusted {
+                    Some(true) => "trusted key",
+                    Some(false) => "UNKNOWN key (not in the trusted keys)",
+                    None => "key not checked (no --trusted-keys)",
+                };
+                outln!(
+                    io,
+                    "signed: {} ({}) on {}: \"{}\" [{file}; valid; {key}]",
+                    s.name,
+                    s.role,
+                    s.date,
+                    s.statement
+                );
+            }
+            signing::SignatureCheck::Invalid { reason } => {
+                sig_ok = false;
+                outln!(io, "INVALID signature {file}: {reason}");
+            }
+        }
+    }
+    if checks.is_empty() {
+        outln!(io, "no signatures");
+    }
+    Ok(if files_ok && sig_ok {
+        EXIT_GO
+    } else {
+        EXIT_VERIFY_FAILED
+    })
+}
+
+fn keygen(io: &mut Io, name: &str, role: &str, out: &Path) -> Result<u8, Failure> {
+    let fail = |e: String, help: &str| Failure {
+        text: format!("error: {e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    };
+    let k =
+        signing::generate(name, role).map_err(|e| fail(e, "give a one-line --name and --role"))?;
+    let public = signing::write_keys(out, &k)
+        .map_err(|e| fail(e, "choose another --out; keep the existing key safe"))?;
+    outln!(
+        io,
+        "key pair for {} ({}) written: secret {} (owner-only; never share it), public {}",
+        k.name,
+        k.role,
+        out.display(),
+        public.display()
+    );
+    outln!(io, "public key: {}", k.public_hex());
+    Ok(EXIT_GO)
+}
+
+fn sign(
+    io: &mut Io,
+    run_dir: &Path,
+    key: &Path,
+    statement: &str,
+    date: Option<String>,
+) -> Result<u8, Failure> {
+    let fail = |e: String, help: &str| Failure {
+        text: format!("error: {e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    };
+    let k = signing::read_key(key)
+        .map_err(|e| fail(e, "give the key file made by `beamproof keygen`"))?;
+    let date = date.unwrap_or_else(signing::today_utc);
+    if !beamproof_engine::campaign::valid_iso_date(&date) {
+        return Err(fail(
+            format!("signing date `{date}` is not a valid date"),
+            "write --date YYYY-MM-DD",
+        ));
+    }
+    // Only a run whose files all match its manifest can be signed.
+    let v =
+        verify_run(run_dir).map_err(|e| fail(e, "give a run folder made by `beamproof run`"))?;
+    if !v.findings.is_empty() {
+        return Err(fail(
+            format!(
+                "{} fails verification ({}); it cannot be signed",
+                run_dir.display(),
+                v.findings
+                    .iter()
+                    .map(ToString::to_string)
+                    .collect::<Vec<_>>()
+                    .join("; ")
+            ),
+            "run `beamproof verify` and restore the run folder from its archive",
+        ));
+    }
+    let path = signing::sign_run(run_dir, &k, &date, statement)
+        .map_err(|e| fail(e, "check the run folder and the statement"))?;
+    outln!(
+        io,
+        "signed by {} ({}) on {}: {}",
+        k.name,
+        k.role,
+        date,
+        path.display()
+    );
+    Ok(EXIT_GO)
 }
 
 fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {

@@ -10,4 +10,5 @@ pub mod prepare;
 pub mod readers;
 pub mod registry;
 pub mod run;
+pub mod signing;
 pub mod yaml;
