@@ -1,5 +1,6 @@
 //! beamproof's integration tests, one binary with modules by theme.
 
+mod archive;
 mod campaign_errors;
 mod dynamic_plugins;
 mod gamma_cmd;

@@ -92,6 +92,9 @@ enum Command {
         #[arg(long)]
         out: PathBuf,
     },
+    /// The tamper-evident archive of run folders
+    #[command(subcommand)]
+    Archive(ArchiveCommand),
     /// Sign a run folder: a detached signature of its manifest, added under signatures/
     Sign {
         run_dir: PathBuf,
@@ -120,6 +123,39 @@ enum Command {
         /// Folder of dynamic plugins (repeatable)
         #[arg(long = "plugin-dir")]
         plugin_dirs: Vec<PathBuf>,
+    },
+}
+
+#[derive(Subcommand)]
+enum ArchiveCommand {
+    /// Copy a verified run folder into the archive (created when missing or empty)
+    Add {
+        run_dir: PathBuf,
+        #[arg(long)]
+        archive: PathBuf,
+        /// Date recorded for the entry YYYY-MM-DD (default: today, UTC)
+        #[arg(long)]
+        date: Option<String>,
+    },
+    /// Re-hash every stored file and the whole ledger chain, naming what is wrong
+    Verify { archive: PathBuf },
+    /// List the archived runs
+    List {
+        #[arg(long)]
+        archive: PathBuf,
+    },
+    /// Show one entry: its files, checksums and signatures
+    Show {
+        id: String,
+        #[arg(long)]
+        archive: PathBuf,
+    },
+    /// Restore an entry's run folder byte for byte into DEST (which must not exist)
+    Export {
+        id: String,
+        dest: PathBuf,
+        #[arg(long)]
+        archive: PathBuf,
     },
 }
 
@@ -187,6 +223,7 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
             trusted_keys,
         } => verify(io, &run_dir, trusted_keys.as_deref()),
         Command::Keygen { name, role, out } => keygen(io, &name, &role, &out),
+        Command::Archive(a) => archive_cmd(io, a),
         Command::Sign {
             run_dir,
             key,
@@ -466,6 +503,136 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
     } else {
         EXIT_VERIFY_FAILED
     })
+}
+
+fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
+    use beamproof_engine::archive;
+    let fail = |e: String, help: &str| Failure {
+        text: format!("error: {e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    };
+    match a {
+        ArchiveCommand::Add {
+            run_dir,
+            archive: dir,
+            date,
+        } => {
+            let date = date.unwrap_or_else(signing::today_utc);
+            if !beamproof_engine::campaign::valid_iso_date(&date) {
+                return Err(fail(
+                    format!("date `{date}` is not a valid date"),
+                    "write --date YYYY-MM-DD",
+                ));
+            }
+            let e = archive::add(&dir, &run_dir, &date).map_err(|e| {
+                fail(
+                    e,
+                    "archive only intact run folders into a beamproof archive folder (or an empty one)",
+                )
+            })?;
+            outln!(
+                io,
+                "archived {} as entry {} ({} files) in {}",
+                run_dir.display(),
+                e.id(),
+                e.files.len(),
+                dir.display()
+            );
+            Ok(EXIT_GO)
+        }
+        ArchiveCommand::Verify { archive: dir } => {
+            let r = archive::verify(&dir)
+                .map_err(|e| fail(e, "give the folder `beamproof archive add` created"))?;
+            for p in &r.problems {
+                outln!(io, "{p}");
+            }
+            for n in &r.notes {
+                outln!(io, "note: {n}");
+            }
+            if r.problems.is_empty() {
+                outln!(
+                    io,
+                    "{}: {} entries and {} stored files verified; ledger head {}",
+                    dir.display(),
+                    r.entries,
+                    r.objects_checked,
+                    r.head
+                );
+                Ok(EXIT_GO)
+            } else {
+                outln!(
+                    io,
+                    "{}: {} problem(s) found",
+                    dir.display(),
+                    r.problems.len()
+                );
+                Ok(EXIT_VERIFY_FAILED)
+            }
+        }
+        ArchiveCommand::List { archive: dir } => {
+            let entries = archive::list(&dir)
+                .map_err(|e| fail(e, "give the folder `beamproof archive add` created"))?;
+            for e in &entries {
+                let sigs = e
+                    .files
+                    .iter()
+                    .filter(|f| f.path.starts_with(signing::SIGNATURES_DIR))
+                    .count();
+                outln!(
+                    io,
+                    "{:>4}  {}  added {}  {} files, {} signature(s)  manifest {}",
+                    e.seq,
+                    e.run,
+                    e.added,
+                    e.files.len(),
+                    sigs,
+                    &e.manifest_sha256[..16]
+                );
+            }
+            if entries.is_empty() {
+                outln!(io, "the archive is empty");
+            }
+            Ok(EXIT_GO)
+        }
+        ArchiveCommand::Show { id, archive: dir } => {
+            let e = archive::find(&dir, &id)
+                .map_err(|e| fail(e, "give an entry number or RUN#NUMBER from `archive list`"))?;
+            outln!(io, "entry {} (run {}), added {}", e.seq, e.run, e.added);
+            outln!(io, "manifest sha256 {}", e.manifest_sha256);
+            outln!(io, "previous ledger line sha256 {}", e.prev);
+            for f in &e.files {
+                outln!(io, "{}  {:>10}  {}", f.sha256, f.size, f.path);
+            }
+            Ok(EXIT_GO)
+        }
+        ArchiveCommand::Export {
+            id,
+            dest,
+            archive: dir,
+        } => {
+            let e = archive::export(&dir, &id, &dest)
+                .map_err(|e| fail(e, "choose a new destination folder"))?;
+            let v =
+                verify_run(&dest).map_err(|e| fail(e, "the exported folder has no manifest"))?;
+            outln!(
+                io,
+                "exported entry {} to {}: {} files, manifest {}",
+                e.id(),
+                dest.display(),
+                e.files.len(),
+                if v.findings.is_empty() {
+                    "verified"
+                } else {
+                    "FAILS verification"
+                }
+            );
+            Ok(if v.findings.is_empty() {
+                EXIT_GO
+            } else {
+                EXIT_VERIFY_FAILED
+            })
+        }
+    }
 }
 
 fn keygen(io: &mut Io, name: &str, role: &str, out: &Path) -> Result<u8, Failure> {

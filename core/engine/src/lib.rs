@@ -1,6 +1,7 @@
 //! beamproof-engine: reads and checks campaigns, reads dose files, runs analyses and writes
 //! checksummed run folders.
 
+pub mod archive;
 pub mod campaign;
 pub mod checksum;
 pub mod diag;

@@ -1,0 +1,446 @@
+//! The tamper-evident archive of run folders.
+//!
+//! Layout of an archive folder:
+//! - `beamproof-archive`: the marker (`beamproof-archive: 1`);
+//! - `objects/ab/abcdef...`: every archived file once, named by its SHA-256 (content-addressed);
+//! - `ledger.jsonl`: one JSON line per archived run (sequence number, the SHA-256 of the
+//!   previous line, run id, date added, the run's manifest digest and every file with its
+//!   SHA-256 and size). The chain of previous-line digests makes any edit, deletion or
+//!   reordering of lines detectable;
+//! - `ledger.head`: the number of entries and the digest of the last line, so that a truncated
+//!   ledger is detected too (an auditor may also record the head elsewhere).
+//!
+//! Adding writes every object and then the new ledger and head, each to a temporary file that
+//! is flushed and renamed into place: a crash leaves the previous archive intact (at worst the
+//! head lags one complete entry, which `verify` reports as an unconfirmed last add). Nothing in
+//! the archive is ever overwritten: an object already present is checked, never rewritten.
+
+use std::io::Write as _;
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::checksum::{MANIFEST, relative_slash, sha256_hex, verify_run};
+use crate::signing::{SignatureCheck, verify_signatures};
+
+const MARKER: &str = "beamproof-archive";
+const MARKER_TEXT: &str = "beamproof-archive: 1\n";
+const LEDGER: &str = "ledger.jsonl";
+const HEAD: &str = "ledger.head";
+const GENESIS: &str = "0000000000000000000000000000000000000000000000000000000000000000";
+
+/// One archived file.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ArchivedFile {
+    pub path: String,
+    pub sha256: String,
+    pub size: u64,
+}
+
+/// One ledger line.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Entry {
+    pub seq: u64,
+    /// SHA-256 of the previous ledger line (without its line break); zeros for the first.
+    pub prev: String,
+    /// Run id from the run's results (campaign, machine, run date).
+    pub run: String,
+    pub added: String,
+    pub manifest_sha256: String,
+    pub files: Vec<ArchivedFile>,
+}
+
+impl Entry {
+    /// The id `archive show` and `export` take: `SEQ` or `RUN#SEQ`.
+    pub fn id(&self) -> String {
+        format!("{}#{}", self.run, self.seq)
+    }
+}
+
+fn io_err(p: &Path) -> impl Fn(std::io::Error) -> String + '_ {
+    move |e| format!("{}: {e}", p.display())
+}
+
+fn write_synced(path: &Path, bytes: &[u8]) -> Result<(), String> {
+    let mut f = std::fs::File::create_new(path).map_err(io_err(path))?;
+    f.write_all(bytes).map_err(io_err(path))?;
+    f.sync_all().map_err(io_err(path))
+}
+
+/// Write `bytes` to `path` through a flushed temporary file and a rename.
+fn replace_atomically(path: &Path, bytes: &[u8]) -> Result<(), String> {
+    let tmp = path.with_extension(format!("tmp-{}", std::process::id()));
+    let _ = std::fs::remove_file(&tmp);
+    write_synced(&tmp, bytes)?;
+    std::fs::rename(&tmp, path).map_err(io_err(path))?;
+    if let Some(dir) = path.parent()
+        && let Ok(d) = std::fs::File::open(dir)
+    {
+        let _ = d.sync_all();
+    }
+    Ok(())
+}
+
+fn object_path(archive: &Path, sha: &str) -> PathBuf {
+    archive.join("objects").join(&sha[..2]).join(sha)
+}
+
+/// Open an archive folder, creating it when `create` and it is missing or empty.
+fn open(archive: &Path, create: bool) -> Result<(), String> {
+    let marker = archive.join(MARKER);
+    if marker.is_file() {
+        let text = std::fs::read_to_string(&marker).map_err(io_err(&marker))?;
+        if text != MARKER_TEXT {
+            return Err(format!(
+                "{} is not a beamproof archive of a format this build reads",
+                archive.display()
+            ));
+        }
+        return Ok(());
+    }
+    let empty = match std::fs::read_dir(archive) {
+        Ok(mut d) => d.next().is_none(),
+        Err(_) => !archive.exists(),
+    };
+    if create && empty {
+        std::fs::create_dir_all(archive.join("objects")).map_err(io_err(archive))?;
+        write_synced(&marker, MARKER_TEXT.as_bytes())?;
+        return Ok(());
+    }
+    Err(format!(
+        "{} is not a beamproof archive (no `{MARKER}` file){}",
+        archive.display(),
+        if create { " and is not empty" } else { "" }
+    ))
+}
+
+/// The ledger's lines, each with its entry when it parses.
+fn ledger_lines(archive: &Path) -> Result<Vec<(String, Option<Entry>)>, String> {
+    let p = archive.join(LEDGER);
+    let text = match std::fs::read_to_string(&p) {
+        Ok(t) => t,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => String::new(),
+        Err(e) => return Err(io_err(&p)(e)),
+    };
+    Ok(text
+        .lines()
+        .map(|l| (l.to_string(), serde_json::from_str::<Entry>(l).ok()))
+        .collect())
+}
+
+/// One problem found by [`verify`], named for the auditor.
+pub type Problem = String;
+
+/// What `verify` found: the entries that are intact and the problems, plus notes.
+#[derive(Debug, Clone, Default)]
+pub struct Report {
+    pub entries: usize,
+    pub objects_checked: usize,
+    pub problems: Vec<Problem>,
+    pub notes: Vec<String>,
+    /// Digest of the last ledger line (for an auditor to record elsewhere).
+    pub head: String,
+}
+
+/// Re-hash every stored file and the whole chain; name everything that is wrong.
+pub fn verify(archive: &Path) -> Result<Report, String> {
+    open(archive, false)?;
+    let lines = ledger_lines(archive)?;
+    let mut r = Report::default();
+    let mut prev = GENESIS.to_string();
+    for (i, (line, entry)) in lines.iter().enumerate() {
+        let n = i + 1;
+        let Some(e) = entry else {
+            r.problems.push(format!(
+                "ledger line {n} is not a valid entry (edited or damaged)"
+            ));
+            prev = sha256_hex(line.as_bytes());
+            continue;
+        };
+        if e.seq != n as u64 {
+            r.problems.push(format!(
+                "ledger line {n} holds entry {}: lines were deleted or reordered",
+                e.seq
+            ));
+        }
+        if e.prev != prev {
+            r.problems.push(format!(
+                "ledger line {n} (entry {}): the chain is broken; the line before it was edited, deleted or reordered",
+                e.id()
+            ));
+        }
+        prev = sha256_hex(line.as_bytes());
+        for f in &e.files {
+            let p = object_path(archive, &f.sha256);
+            match std::fs::read(&p) {
+                Ok(b) if sha256_hex(&b) == f.sha256 && b.len() as u64 == f.size => {
+                    r.objects_checked += 1
+                }
+                Ok(_) => r.problems.push(format!(
+                    "stored file {} of entry {} changed (object {})",
+                    f.path,
+                    e.id(),
+                    f.sha256
+                )),
+                Err(_) => r.problems.push(format!(
+                    "stored file {} of entry {} is missing (object {})",
+                    f.path,
+                    e.id(),
+                    f.sha256
+                )),
+            }
+        }
+        if !e
+            .files
+            .iter()
+            .any(|f| f.path == MANIFEST && f.sha256 == e.manifest_sha256)
+        {
+            r.problems.push(format!(
+                "entry {} does not hold the manifest it names",
+                e.id()
+            ));
+        }
+        r.entries += 1;
+    }
+    r.head = prev.clone();
+    let head_path = archive.join(HEAD);
+    let head = std::fs::read_to_string(&head_path).unwrap_or_default();
+    let (count, last) = parse_head(&head);
+    match count {
+        None if lines.is_empty() => {}
+        None => r.problems.push(format!("{HEAD} is missing or unreadable")),
+        Some(c) if c == lines.len() && last == prev => {}
+        Some(c) if c + 1 == lines.len() && lines.len() >= 2 && last == sha256_hex(lines[lines.len() - 2].0.as_bytes()) => {
+            r.notes.push(format!(
+                "the last entry ({}) was added but its confirmation in {HEAD} was not written (an interrupted add); the entry itself is complete and checked",
+                lines.len()
+            ));
+        }
+        Some(c) if c > lines.len() => r.problems.push(format!(
+            "the ledger was truncated: {HEAD} records {c} entries, the ledger holds {}",
+            lines.len()
+        )),
+        Some(c) => r.problems.push(format!(
+            "{HEAD} records {c} entries ending in {last}, which does not match the ledger ({} entries ending in {prev})",
+            lines.len()
+        )),
+    }
+    Ok(r)
+}
+
+fn parse_head(text: &str) -> (Option<usize>, String) {
+    let mut count = None;
+    let mut last = String::new();
+    for l in text.lines() {
+        if let Some(v) = l.strip_prefix("entries: ") {
+            count = v.parse().ok();
+        } else if let Some(v) = l.strip_prefix("last: ") {
+            last = v.to_string();
+        }
+    }
+    (count, last)
+}
+
+/// Copy a verified run folder into the archive. Returns the new entry.
+pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
+    let v = verify_run(run).map_err(|e| format!("{e} (is {} a run folder?)", run.display()))?;
+    if !v.findings.is_empty() {
+        return Err(format!(
+            "{} fails verification ({}); it is not archived",
+            run.display(),
+            v.findings
+                .iter()
+                .map(ToString::to_string)
+                .collect::<Vec<_>>()
+                .join("; ")
+        ));
+    }
+    for (file, c) in verify_signatures(run, None) {
+        if let SignatureCheck::Invalid { reason } = c {
+            return Err(format!(
+                "{}: signature {file} is invalid ({reason}); it is not archived",
+                run.display()
+            ));
+        }
+    }
+    let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
+    if let Some(u) = v.uncovered.iter().find(|u| !u.starts_with(&sig_prefix)) {
+        return Err(format!(
+            "{}: {u} is not covered by the manifest; only the run's own files and signatures are archived",
+            run.display()
+        ));
+    }
+    open(archive, true)?;
+    let before = verify(archive)?;
+    if !before.problems.is_empty() {
+        return Err(format!(
+            "the archive {} fails verification ({}); nothing is added to a damaged archive",
+            archive.display(),
+            before.problems.join("; ")
+        ));
+    }
+    let results: serde_json::Value = std::fs::read(run.join("results.json"))
+        .ok()
+        .and_then(|b| serde_json::from_slice(&b).ok())
+        .unwrap_or_default();
+    let run_id = results["run"]["id"]
+        .as_str()
+        .map(str::to_string)
+        .unwrap_or_else(|| {
+            run.file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default()
+        });
+    let mut files = Vec::new();
+    for entry in walkdir::WalkDir::new(run).sort_by_file_name() {
+        let entry = entry.map_err(|e| e.to_string())?;
+        if !entry.file_type().is_file() {
+            continue;
+        }
+        let bytes = std::fs::read(entry.path()).map_err(io_err(entry.path()))?;
+        let sha = sha256_hex(&bytes);
+        let obj = object_path(archive, &sha);
+        if obj.exists() {
+            let have = std::fs::read(&obj).map_err(io_err(&obj))?;
+            if sha256_hex(&have) != sha {
+                return Err(format!(
+                    "archive object {} is damaged; run `beamproof archive verify`",
+                    obj.display()
+                ));
+            }
+        } else {
+            let dir = obj.parent().unwrap_or(archive);
+            std::fs::create_dir_all(dir).map_err(io_err(dir))?;
+            let tmp = dir.join(format!(".{sha}.tmp-{}", std::process::id()));
+            let _ = std::fs::remove_file(&tmp);
+            write_synced(&tmp, &bytes)?;
+            std::fs::rename(&tmp, &obj).map_err(io_err(&obj))?;
+        }
+        files.push(ArchivedFile {
+            path: relative_slash(run, entry.path()),
+            sha256: sha,
+            size: bytes.len() as u64,
+        });
+    }
+    files.sort_by(|a, b| a.path.cmp(&b.path));
+    let lines = ledger_lines(archive)?;
+    if let Some(same) = lines
+        .iter()
+        .filter_map(|(_, e)| e.as_ref())
+        .find(|e| e.files == files)
+    {
+        return Err(format!(
+            "this run is already archived as entry {} (identical files); nothing was added",
+            same.id()
+        ));
+    }
+    let prev = lines
+        .last()
+        .map_or_else(|| GENESIS.to_string(), |(l, _)| sha256_hex(l.as_bytes()));
+    let entry = Entry {
+        seq: lines.len() as u64 + 1,
+        prev,
+        run: run_id,
+        added: date.to_string(),
+        manifest_sha256: std::fs::read(run.join(MANIFEST))
+            .map(|b| sha256_hex(&b))
+            .map_err(io_err(&run.join(MANIFEST)))?,
+        files,
+    };
+    let line = serde_json::to_string(&entry).map_err(|e| e.to_string())?;
+    let mut ledger: String = lines.iter().map(|(l, _)| format!("{l}\n")).collect();
+    ledger.push_str(&line);
+    ledger.push('\n');
+    replace_atomically(&archive.join(LEDGER), ledger.as_bytes())?;
+    replace_atomically(
+        &archive.join(HEAD),
+        format!(
+            "entries: {}\nlast: {}\n",
+            entry.seq,
+            sha256_hex(line.as_bytes())
+        )
+        .as_bytes(),
+    )?;
+    Ok(entry)
+}
+
+/// Every entry of an archive (after checking it is one).
+pub fn list(archive: &Path) -> Result<Vec<Entry>, String> {
+    open(archive, false)?;
+    Ok(ledger_lines(archive)?
+        .into_iter()
+        .filter_map(|(_, e)| e)
+        .collect())
+}
+
+/// The entry named by `SEQ` or `RUN#SEQ` (or a run id archived once).
+pub fn find(archive: &Path, id: &str) -> Result<Entry, String> {
+    let entries = list(archive)?;
+    let by_seq = |s: &str| {
+        s.parse::<u64>()
+            .ok()
+            .and_then(|n| entries.iter().find(|e| e.seq == n))
+    };
+    let hit = by_seq(id)
+        .or_else(|| {
+            id.rsplit_once('#')
+                .and_then(|(_, s)| by_seq(s))
+                .filter(|e| e.id() == id)
+        })
+        .or_else(|| {
+            let same: Vec<&Entry> = entries.iter().filter(|e| e.run == id).collect();
+            (same.len() == 1).then(|| same[0])
+        });
+    hit.cloned().ok_or_else(|| {
+        format!(
+            "no archive entry `{id}`; entries: {}",
+            entries.iter().map(Entry::id).collect::<Vec<_>>().join(", ")
+        )
+    })
+}
+
+/// Restore an entry's run folder at `dest` (which must not exist), byte for byte.
+pub fn export(archive: &Path, id: &str, dest: &Path) -> Result<Entry, String> {
+    let e = find(archive, id)?;
+    if dest.exists() {
+        return Err(format!(
+            "{} already exists; exports never overwrite",
+            dest.display()
+        ));
+    }
+    let parent = dest
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    std::fs::create_dir_all(parent).map_err(io_err(parent))?;
+    let tmp = parent.join(format!(
+        ".{}.partial-{}",
+        dest.file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default(),
+        std::process::id()
+    ));
+    let _ = std::fs::remove_dir_all(&tmp);
+    let result = (|| {
+        for f in &e.files {
+            let bytes = std::fs::read(object_path(archive, &f.sha256))
+                .map_err(|err| format!("object of {} unreadable: {err}", f.path))?;
+            if sha256_hex(&bytes) != f.sha256 {
+                return Err(format!(
+                    "stored file {} is damaged; run `beamproof archive verify`",
+                    f.path
+                ));
+            }
+            let target = tmp.join(&f.path);
+            if let Some(d) = target.parent() {
+                std::fs::create_dir_all(d).map_err(io_err(d))?;
+            }
+            write_synced(&target, &bytes)?;
+        }
+        std::fs::rename(&tmp, dest).map_err(io_err(dest))
+    })();
+    if result.is_err() {
+        let _ = std::fs::remove_dir_all(&tmp);
+    }
+    result.map(|()| e)
+}

@@ -1,0 +1,296 @@
+//! The tamper-evident archive: add, list, show, export byte for byte, and detection of every
+//! kind of tampering the auditor must see named (a flipped byte in a stored file, a deleted,
+//! swapped or truncated ledger line, a replaced signature), plus bad input.
+
+use std::path::{Path, PathBuf};
+
+use crate::support::{Outcome, cli, demo_copy, run_into_folder, scratch};
+
+fn s(p: &Path) -> &str {
+    p.to_str().expect("utf8")
+}
+
+/// Three runs archived in order: lin-a, lin-b, then lin-b again with a signature.
+fn archive_of_three(name: &str) -> (PathBuf, Vec<PathBuf>) {
+    let (a, _) = run_into_folder(&demo_copy(&format!("{name}-a")), "lin-a");
+    let (b, _) = run_into_folder(&demo_copy(&format!("{name}-b")), "lin-b");
+    let dir = scratch(name).join("archive");
+    for run in [&a, &b] {
+        let o = cli(&[
+            "archive",
+            "add",
+            s(run),
+            "--archive",
+            s(&dir),
+            "--date",
+            "2026-11-23",
+        ]);
+        assert_eq!(o.code, 0, "{}", o.stderr);
+    }
+    let keys = scratch(&format!("{name}-keys"));
+    let key = keys.join("k.key");
+    let o = cli(&[
+        "keygen",
+        "--name",
+        "Ada Example",
+        "--role",
+        "medical physicist",
+        "--out",
+        s(&key),
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert_eq!(
+        cli(&["sign", s(&b), "--key", s(&key), "--date", "2026-11-24"]).code,
+        0
+    );
+    let o = cli(&[
+        "archive",
+        "add",
+        s(&b),
+        "--archive",
+        s(&dir),
+        "--date",
+        "2026-11-24",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    (dir, vec![a, b])
+}
+
+fn verify(dir: &Path) -> Outcome {
+    cli(&["archive", "verify", s(dir)])
+}
+
+fn ledger(dir: &Path) -> Vec<String> {
+    std::fs::read_to_string(dir.join("ledger.jsonl"))
+        .expect("ledger")
+        .lines()
+        .map(str::to_string)
+        .collect()
+}
+
+fn write_ledger(dir: &Path, lines: &[String]) {
+    let text: String = lines.iter().map(|l| format!("{l}\n")).collect();
+    std::fs::write(dir.join("ledger.jsonl"), text).expect("write");
+}
+
+fn object(dir: &Path, line: &str, path: &str) -> PathBuf {
+    let e: serde_json::Value = serde_json::from_str(line).expect("entry");
+    let sha = e["files"]
+        .as_array()
+        .expect("files")
+        .iter()
+        .find(|f| f["path"] == path)
+        .and_then(|f| f["sha256"].as_str())
+        .expect("file in entry")
+        .to_string();
+    dir.join("objects").join(&sha[..2]).join(sha)
+}
+
+#[test]
+fn runs_are_archived_listed_and_exported_byte_for_byte() {
+    let (dir, runs) = archive_of_three("arch-ok");
+    let o = verify(&dir);
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(o.stdout.contains(": 3 entries and "), "{}", o.stdout);
+    let o = cli(&["archive", "list", "--archive", s(&dir)]);
+    let lines: Vec<&str> = o.stdout.lines().collect();
+    assert_eq!(lines.len(), 3);
+    assert!(
+        lines[2].contains("demo-6x-lin-b-2026-11-20  added 2026-11-24  24 files, 1 signature(s)"),
+        "{}",
+        lines[2]
+    );
+    // Adding the same run again is refused; the ledger is unchanged.
+    let before = ledger(&dir);
+    let o = cli(&["archive", "add", s(&runs[1]), "--archive", s(&dir)]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr
+            .contains("this run is already archived as entry demo-6x-lin-b-2026-11-20#3"),
+        "{}",
+        o.stderr
+    );
+    assert_eq!(ledger(&dir), before);
+    // Export restores the signed run folder byte for byte.
+    let dest = scratch("arch-ok-export").join("restored");
+    let o = cli(&["archive", "export", "3", s(&dest), "--archive", s(&dir)]);
+    assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
+    let mut n = 0;
+    for entry in walkdir::WalkDir::new(&runs[1])
+        .into_iter()
+        .filter_map(Result::ok)
+    {
+        if entry.file_type().is_file() {
+            let rel = entry.path().strip_prefix(&runs[1]).expect("prefix");
+            assert_eq!(
+                std::fs::read(entry.path()).expect("a"),
+                std::fs::read(dest.join(rel)).expect("exported"),
+                "{}",
+                rel.display()
+            );
+            n += 1;
+        }
+    }
+    assert_eq!(
+        n, 24,
+        "22 manifest-listed files, the manifest and one signature"
+    );
+    // Export never overwrites.
+    let o = cli(&["archive", "export", "3", s(&dest), "--archive", s(&dir)]);
+    assert_eq!(o.code, 2);
+}
+
+#[test]
+fn a_flipped_byte_in_a_stored_file_is_named() {
+    let (dir, _) = archive_of_three("arch-flip");
+    let obj = object(&dir, &ledger(&dir)[0], "report.pdf");
+    let mut b = std::fs::read(&obj).expect("object");
+    let i = b.len() / 2;
+    b[i] ^= 1;
+    std::fs::write(&obj, b).expect("write");
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(
+        o.stdout.starts_with(
+            "stored file report.pdf of entry demo-6x-lin-a-2026-11-20#1 changed (object "
+        ),
+        "{}",
+        o.stdout
+    );
+}
+
+#[test]
+fn deleted_swapped_and_truncated_ledger_lines_are_named() {
+    let (dir, _) = archive_of_three("arch-ledger");
+    let original = ledger(&dir);
+    // Deleting the first line.
+    write_ledger(&dir, &original[1..]);
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(
+        o.stdout
+            .contains("ledger line 1 holds entry 2: lines were deleted or reordered\n"),
+        "{}",
+        o.stdout
+    );
+    assert!(
+        o.stdout
+            .contains("ledger line 1 (entry demo-6x-lin-b-2026-11-20#2): the chain is broken"),
+        "{}",
+        o.stdout
+    );
+    // Swapping lines 2 and 3.
+    write_ledger(
+        &dir,
+        &[
+            original[0].clone(),
+            original[2].clone(),
+            original[1].clone(),
+        ],
+    );
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(
+        o.stdout
+            .contains("ledger line 2 holds entry 3: lines were deleted or reordered\n"),
+        "{}",
+        o.stdout
+    );
+    // Truncating the last line.
+    write_ledger(&dir, &original[..2]);
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(
+        o.stdout.contains(
+            "the ledger was truncated: ledger.head records 3 entries, the ledger holds 2\n"
+        ),
+        "{}",
+        o.stdout
+    );
+    // Editing a line (the date of entry 1): the next line's chain breaks.
+    let mut edited = original.clone();
+    edited[0] = edited[0].replace("2026-11-23", "2026-11-01");
+    write_ledger(&dir, &edited);
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(o.stdout.starts_with("ledger line 2 (entry demo-6x-lin-b-2026-11-20#2): the chain is broken; the line before it was edited, deleted or reordered\n"), "{}", o.stdout);
+    write_ledger(&dir, &original);
+    assert_eq!(verify(&dir).code, 0);
+}
+
+#[test]
+fn a_replaced_signature_is_named() {
+    let (dir, _) = archive_of_three("arch-sig");
+    let lines = ledger(&dir);
+    let sig = object(&dir, &lines[2], "signatures/01-ada-example.sig");
+    let text = std::fs::read_to_string(&sig).expect("sig");
+    std::fs::write(&sig, text.replace("Ada Example", "Eve Forger")).expect("write");
+    let o = verify(&dir);
+    assert_eq!(o.code, 3);
+    assert!(
+        o.stdout.starts_with(
+            "stored file signatures/01-ada-example.sig of entry demo-6x-lin-b-2026-11-20#3 changed"
+        ),
+        "{}",
+        o.stdout
+    );
+}
+
+#[test]
+fn an_interrupted_add_leaves_a_valid_archive() {
+    // A crash after the new ledger was renamed into place but before the head was: the head
+    // still names the previous line. The archive stays valid and the lag is reported.
+    let (dir, _) = archive_of_three("arch-crash");
+    let lines = ledger(&dir);
+    let prev = beamproof_engine::checksum::sha256_hex(lines[1].as_bytes());
+    std::fs::write(
+        dir.join("ledger.head"),
+        format!("entries: 2\nlast: {prev}\n"),
+    )
+    .expect("w");
+    let o = verify(&dir);
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(
+        o.stdout.starts_with(
+            "note: the last entry (3) was added but its confirmation in ledger.head was not written"
+        ),
+        "{}",
+        o.stdout
+    );
+}
+
+#[test]
+fn folders_that_are_not_archives_and_damaged_runs_are_refused() {
+    let dir = scratch("arch-not");
+    std::fs::write(dir.join("notes.txt"), "hello").expect("w");
+    let o = verify(&dir);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr.starts_with(&format!(
+            "error: {} is not a beamproof archive (no `beamproof-archive` file)\n",
+            dir.display()
+        )),
+        "{}",
+        o.stderr
+    );
+    let (run, _) = run_into_folder(&demo_copy("arch-damaged"), "lin-b");
+    let o = cli(&["archive", "add", s(&run), "--archive", s(&dir)]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr
+            .contains("is not a beamproof archive (no `beamproof-archive` file) and is not empty"),
+        "{}",
+        o.stderr
+    );
+    std::fs::write(run.join("report.html"), "changed").expect("w");
+    let fresh = scratch("arch-damaged-archive").join("a");
+    let o = cli(&["archive", "add", s(&run), "--archive", s(&fresh)]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr
+            .contains("fails verification (changed: report.html); it is not archived"),
+        "{}",
+        o.stderr
+    );
+    assert!(!fresh.exists(), "nothing is created for a refused run");
+}
