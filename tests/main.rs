@@ -2,6 +2,7 @@
 
 mod archive;
 mod campaign_errors;
+mod compare;
 mod dynamic_plugins;
 mod gamma_cmd;
 mod gamma_crosscheck;

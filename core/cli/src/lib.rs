@@ -92,6 +92,20 @@ enum Command {
         #[arg(long)]
         out: PathBuf,
     },
+    /// Match a second machine: compare run B's measurements against run A's, test by test
+    Compare {
+        run_a: PathBuf,
+        run_b: PathBuf,
+        /// Matching criteria set of the campaign (default: the built-in 1 %/1 mm set)
+        #[arg(long)]
+        criteria: Option<String>,
+        /// Matching-run folder to create (default: runs/CAMPAIGN-match-B-A-DATE); never overwritten
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Date recorded YYYY-MM-DD (default: today, UTC)
+        #[arg(long)]
+        date: Option<String>,
+    },
     /// The tamper-evident archive of run folders
     #[command(subcommand)]
     Archive(ArchiveCommand),
@@ -224,6 +238,13 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
         } => verify(io, &run_dir, trusted_keys.as_deref()),
         Command::Keygen { name, role, out } => keygen(io, &name, &role, &out),
         Command::Archive(a) => archive_cmd(io, a),
+        Command::Compare {
+            run_a,
+            run_b,
+            criteria,
+            out,
+            date,
+        } => compare(io, &run_a, &run_b, criteria.as_deref(), out, date),
         Command::Sign {
             run_dir,
             key,
@@ -502,6 +523,97 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
         EXIT_GO
     } else {
         EXIT_VERIFY_FAILED
+    })
+}
+
+fn compare(
+    io: &mut Io,
+    run_a: &Path,
+    run_b: &Path,
+    criteria: Option<&str>,
+    out: Option<PathBuf>,
+    date: Option<String>,
+) -> Result<u8, Failure> {
+    let fail = |e: String, help: &str| Failure {
+        text: format!("error: {e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    };
+    let date = date.unwrap_or_else(signing::today_utc);
+    if !beamproof_engine::campaign::valid_iso_date(&date) {
+        return Err(fail(
+            format!("date `{date}` is not a valid date"),
+            "write --date YYYY-MM-DD",
+        ));
+    }
+    let registry = Registry::with_dirs(&[])?;
+    let c = beamproof_engine::compare::compare(run_a, run_b, criteria, &registry, &date)?;
+    let out = out.unwrap_or_else(|| PathBuf::from("runs").join(&c.record.run.id));
+    if out.exists() {
+        return Err(fail(
+            format!(
+                "{} already exists; runs are never overwritten",
+                out.display()
+            ),
+            "choose another folder with --out",
+        ));
+    }
+    let json = c.record.to_json();
+    let templates = c
+        .prepared
+        .templates
+        .as_ref()
+        .map(|p| c.campaign.dir.join(p));
+    let pdf = beamproof_report::render_pdf(&json, templates.as_deref()).map_err(|e| {
+        fail(
+            format!("the matching report could not be made: {e}"),
+            "fix the template",
+        )
+    })?;
+    let html = beamproof_report::render_html(&json, templates.as_deref()).map_err(|e| {
+        fail(
+            format!("the HTML summary could not be made: {e}"),
+            "fix the template",
+        )
+    })?;
+    let pdf_sum = format!(
+        "{}  report.pdf\n",
+        beamproof_engine::checksum::sha256_hex(&pdf)
+    );
+    let products: [(&str, &[u8]); 4] = [
+        ("results.json", &json),
+        ("report.pdf", &pdf),
+        ("report.pdf.sha256", pdf_sum.as_bytes()),
+        ("report.html", html.as_bytes()),
+    ];
+    beamproof_engine::output::write_run_folder(&out, &c.campaign, &c.prepared, &products)
+        .map_err(|e| fail(e.to_string(), "choose another folder with --out"))?;
+    let s = &c.record.summary;
+    outln!(io, "matching run folder: {}", out.display());
+    outln!(
+        io,
+        "{} · {} tests compared: {} pass, {} warn, {} fail, {} error",
+        c.record.machine.description,
+        s.tests,
+        s.pass,
+        s.warn,
+        s.fail,
+        s.error
+    );
+    outln!(io, "verdict: {} (advisory)", s.verdict);
+    for r in &s.reasons {
+        outln!(io, "  - {r}");
+    }
+    for n in &s.notes {
+        outln!(io, "note: {n}");
+    }
+    outln!(io, "");
+    for caution in CAUTIONS {
+        outln!(io, "caution: {caution}");
+    }
+    Ok(if s.verdict == beamproof_engine::compare::MATCHED {
+        EXIT_GO
+    } else {
+        EXIT_NO_GO
     })
 }
 

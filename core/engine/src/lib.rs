@@ -4,6 +4,7 @@
 pub mod archive;
 pub mod campaign;
 pub mod checksum;
+pub mod compare;
 pub mod diag;
 pub mod mu_input;
 pub mod output;

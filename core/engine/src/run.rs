@@ -169,6 +169,10 @@ pub struct Summary {
     pub reasons: Vec<String>,
     /// Tests with warnings.
     pub warnings: Vec<String>,
+    /// Remarks on the run as a whole (for a matching run: differences between the two runs
+    /// and tests not compared).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub notes: Vec<String>,
 }
 
 impl RunRecord {
@@ -433,5 +437,6 @@ fn summarise(sites: &[SiteRecord]) -> Summary {
         verdict: if reasons.is_empty() { "GO" } else { "NO-GO" },
         reasons,
         warnings,
+        notes: Vec::new(),
     }
 }

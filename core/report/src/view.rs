@@ -163,6 +163,8 @@ pub struct SummaryIn {
     pub verdict: String,
     pub reasons: Vec<String>,
     pub warnings: Vec<String>,
+    #[serde(default)]
+    pub notes: Vec<String>,
 }
 
 #[derive(Debug, Deserialize, Serialize, Clone)]
@@ -196,6 +198,10 @@ pub struct View {
     pub template: String,
     pub go: bool,
     pub verdict: String,
+    /// What the verdict requires, said in words on the verdict page.
+    pub verdict_rule: String,
+    /// Remarks on the run as a whole (a matching run's differences and tests not compared).
+    pub notes: Vec<String>,
     pub counts: Vec<Count>,
     pub n_tests: usize,
     pub reasons: Vec<String>,
@@ -389,8 +395,15 @@ impl View {
                     origin: p.origin,
                 })
                 .collect(),
-            go: s.verdict == "GO",
+            go: s.verdict == "GO" || s.verdict == "MATCHED",
             verdict: s.verdict.clone(),
+            verdict_rule: match s.verdict.as_str() {
+                "GO" => "No test failed or could not be analysed.".into(),
+                "MATCHED" => "No compared test failed or could not be compared.".into(),
+                "NOT MATCHED" => "MATCHED requires that no compared test failed and none could not be compared. Reasons:".into(),
+                _ => "GO requires that no test failed and none could not be analysed. Reasons:".into(),
+            },
+            notes: s.notes.clone(),
             counts: [
                 ("PASS", s.pass),
                 ("WARN", s.warn),
