@@ -103,6 +103,9 @@ fn lin_b_against_lin_a_differences_are_b_minus_a_of_each_runs_own_measurement() 
     );
     let d = metric(&rm, "pdd-6x-10x10", "difference:pdd10");
     assert!((d - (pb - pa)).abs() < 0.011, "{d} vs {pb} - {pa}");
+    // Depth doses are matched by 1D gamma as well, at the built-in 1 %/1 mm.
+    let g = metric(&rm, "pdd-6x-10x10", "pass-rate:1%/1mm-global");
+    assert!((0.0..=100.0).contains(&g));
     // Output: 100 (D_B - D_A) / D_A from the two runs' measured doses (4 decimals in Gy).
     let oa = measured(&ra, "output-6x", "Point doses", "ref");
     let ob = measured(&rb, "output-6x", "Point doses", "ref");
@@ -184,6 +187,11 @@ fn different_campaign_versions_are_noted_and_damaged_runs_refused() {
         o.stdout.contains(
             "note: the runs come from different versions of campaign `demo-6x` (SHA-256 "
         ),
+        "{}",
+        o.stdout
+    );
+    assert!(
+        o.stdout.contains("; what differs: title (`6 MV beam model validation, bunkers 1 and 2` / `6 MV beam model validation, bunkers 1 and 2 (revised)`)\n"),
         "{}",
         o.stdout
     );

@@ -187,10 +187,11 @@ pub fn compare(
         ));
     } else if ca != cb {
         notes.push(format!(
-            "the runs come from different versions of campaign `{}` (SHA-256 {} and {})",
+            "the runs come from different versions of campaign `{}` (SHA-256 {} and {}); what differs: {}",
             a.campaign.id,
             &ca[..ca.len().min(12)],
-            &cb[..cb.len().min(12)]
+            &cb[..cb.len().min(12)],
+            differences(&a.campaign, &b.campaign)
         ));
     }
     let key = |t: &PreparedTest| format!("{}/{}", t.site_id, t.spec.id);
@@ -260,7 +261,7 @@ pub fn compare(
             notes.push(not_compared("the measurements have different dose units"));
             continue;
         }
-        let analyses: Vec<_> = ta
+        let mut analyses: Vec<_> = ta
             .analyses
             .iter()
             .filter(|x| MATCHING_PLUGINS.contains(&x.plugin.as_str()))
@@ -271,6 +272,24 @@ pub fn compare(
             })
             .cloned()
             .collect();
+        // Profiles and depth doses are always matched by 1D gamma too.
+        if matches!(ta.spec.kind, TestKind::Profile | TestKind::DepthDose)
+            && !analyses.iter().any(|x| x.plugin == "gamma")
+            && let Some(g) = registry
+                .plugins()
+                .iter()
+                .find(|p| p.manifest.name == "gamma")
+        {
+            analyses.push(crate::prepare::PreparedAnalysis {
+                plugin: "gamma".into(),
+                params: g
+                    .manifest
+                    .params
+                    .iter()
+                    .filter_map(|p| Some((p.name.clone(), p.default.clone()?)))
+                    .collect(),
+            });
+        }
         if analyses.is_empty() {
             notes.push(not_compared(
                 "none of its analyses compares two measurements",
@@ -368,5 +387,71 @@ fn criteria_arg(c: &CriteriaSet) -> String {
         String::new()
     } else {
         format!(" --criteria {}", c.name)
+    }
+}
+
+/// What differs between two versions of a campaign, in words.
+fn differences(a: &Campaign, b: &Campaign) -> String {
+    let mut d = Vec::new();
+    if a.title != b.title {
+        d.push(format!("title (`{}` / `{}`)", a.title, b.title));
+    }
+    if a.institution != b.institution {
+        d.push("institution".to_string());
+    }
+    if a.tps != b.tps {
+        d.push(format!(
+            "planning system (`{} {} {}` / `{} {} {}`)",
+            a.tps.name,
+            a.tps.version,
+            a.tps.beam_model,
+            b.tps.name,
+            b.tps.version,
+            b.tps.beam_model
+        ));
+    }
+    for ca in &a.criteria {
+        match b.criteria_set(&ca.name) {
+            Some(cb) if cb == ca => {}
+            Some(_) => d.push(format!("criteria set `{}`", ca.name)),
+            None => d.push(format!("criteria set `{}` only in A", ca.name)),
+        }
+    }
+    // Test definitions, ignoring where in the file they sit.
+    let shape = |t: &crate::campaign::TestSpec| {
+        format!(
+            "{:?}|{:?}|{:?}|{:?}|{}|{:?}",
+            t.kind,
+            t.beam.as_ref().map(|b| &b.0),
+            t.measured.as_ref().map(|m| (&m.template, &m.placement)),
+            t.calculated.as_ref().map(|m| (&m.template, &m.placement)),
+            t.criteria.0,
+            t.analyses
+                .iter()
+                .map(|x| (
+                    &x.plugin,
+                    x.params.iter().map(|p| (&p.0, &p.1)).collect::<Vec<_>>()
+                ))
+                .collect::<Vec<_>>()
+        )
+    };
+    for sa in &a.sites {
+        for ta in &sa.tests {
+            let tb = b
+                .sites
+                .iter()
+                .flat_map(|s| &s.tests)
+                .find(|t| t.id == ta.id);
+            if let Some(tb) = tb
+                && shape(ta) != shape(tb)
+            {
+                d.push(format!("test `{}`", ta.id));
+            }
+        }
+    }
+    if d.is_empty() {
+        "comments or layout only".into()
+    } else {
+        d.join(", ")
     }
 }
