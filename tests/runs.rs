@@ -113,7 +113,8 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     let o = cli(&["verify", out.to_str().expect("utf8")]);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
-        o.stdout.ends_with("all 22 files match the manifest\n"),
+        o.stdout
+            .ends_with("all 22 files match the manifest\nno signatures\n"),
         "{}",
         o.stdout
     );
