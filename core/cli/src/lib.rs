@@ -428,6 +428,12 @@ fn run_campaign(
     outln!(io, "run folder: {}", out.display());
     outln!(
         io,
+        "report: {} (SHA-256 {})",
+        out.join("report.pdf").display(),
+        beamproof_engine::checksum::sha256_hex(&pdf)
+    );
+    outln!(
+        io,
         "machine {} · {} tests: {} pass, {} warn, {} fail, {} error",
         m.id,
         s.tests,
