@@ -122,7 +122,7 @@ fn truncated_dicom_is_refused() {
     let msg = fails(&campaign);
     assert_eq!(
         msg,
-        "error: cannot read as DICOM: Could not read data set token: Could not read 221892 value bytes for element tagged (7FE0,0010): Could not read value from source at position 816: failed to fill whole buffer\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file is damaged or truncated; copy or export it again\n\n1 problem found; nothing was run\n"
+        "error: cannot read as DICOM: Could not read data set token: Could not read 221892 value bytes for element tagged (7FE0,0010): Could not read value from source at position 570: failed to fill whole buffer\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file is damaged or truncated; copy or export it again\n\n1 problem found; nothing was run\n"
     );
 }
 

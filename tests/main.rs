@@ -3,6 +3,7 @@
 mod archive;
 mod campaign_errors;
 mod compare;
+mod demo_data;
 mod dynamic_plugins;
 mod gamma_cmd;
 mod gamma_crosscheck;

@@ -1,0 +1,335 @@
+//! The demo campaign's data, generated from an analytic beam model written for this invented
+//! scenario (not clinical data, not a real machine): a 6 MV-like depth dose with a linear
+//! build-up to 15 mm and exponential fall-off beyond, times error-function field edges with
+//! slight horns and a scatter tail. Measurements are the model with invented per-machine
+//! deviations and seeded detector noise; the planning-system dose is the model itself,
+//! written as data CSV files and a DICOM RT Dose grid (dicom-rs).
+//!
+//! Every number is fixed: the same generator writes the same bytes (a test checks the committed
+//! files against a fresh generation).
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+mod rtdose;
+
+/// Isocentre in the dose grid's DICOM patient coordinates, mm (HFS phantom).
+pub const ISO: [f64; 3] = [10.0, -50.0, 25.0];
+/// Dose at the isocentre, 10 cm deep, Gy.
+pub const D_ISO: f64 = 2.0;
+
+/// Relative depth dose: linear build-up from 45 % at the surface to the maximum at 15 mm, then
+/// exponential attenuation (0.48 % per mm).
+pub fn depth_factor(d_mm: f64) -> f64 {
+    let build = if d_mm < 15.0 {
+        (d_mm / 15.0).min(1.0) * 0.55 + 0.45
+    } else {
+        1.0
+    };
+    build * (-0.0048 * (d_mm - 15.0).max(0.0)).exp()
+}
+
+/// Error function (Abramowitz & Stegun 7.1.26, |error| < 1.5e-7): enough for invented data.
+pub fn erf(x: f64) -> f64 {
+    let t = 1.0 / (1.0 + 0.327_591_1 * x.abs());
+    let y = 1.0
+        - (((((1.061_405_429 * t - 1.453_152_027) * t) + 1.421_413_741) * t - 0.284_496_736) * t
+            + 0.254_829_592)
+            * t
+            * (-x * x).exp();
+    if x >= 0.0 { y } else { -y }
+}
+
+/// Open-field shape across one axis: error-function edges (sigma 3 mm) at +-`half`, slight
+/// horns, and a 3 % scatter tail outside the field.
+pub fn edge(u_mm: f64, half_mm: f64) -> f64 {
+    let s = std::f64::consts::SQRT_2 * 3.0;
+    let a = (half_mm - u_mm) / s;
+    let b = (half_mm + u_mm) / s;
+    0.97 * 0.25 * (1.0 + erf(a)) * (1.0 + erf(b)) * (1.0 + 0.0004 * u_mm * u_mm / 10.0) + 0.03
+}
+
+/// Dose at an IEC 61217 point (mm from the isocentre) of the 10 x 10 cm field entering from
+/// above (gantry 0) with the isocentre 10 cm deep.
+pub fn dose_iec(x: f64, y: f64, z: f64) -> f64 {
+    let depth = 100.0 - z;
+    D_ISO * depth_factor(depth) / depth_factor(100.0) * edge(x, 50.0) * edge(y, 50.0)
+}
+
+/// Deterministic normal deviates (64-bit LCG, Box-Muller), seeded.
+pub struct Noise(u64);
+
+impl Noise {
+    pub fn new(seed: u64) -> Noise {
+        Noise(seed)
+    }
+    fn uniform(&mut self) -> f64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6_364_136_223_846_793_005)
+            .wrapping_add(1_442_695_040_888_963_407);
+        ((self.0 >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+    /// A normal deviate with standard deviation `sd`.
+    pub fn normal(&mut self, sd: f64) -> f64 {
+        let (u, v) = (self.uniform(), self.uniform());
+        sd * (-2.0 * u.ln()).sqrt() * (std::f64::consts::TAU * v).cos()
+    }
+}
+
+/// Evenly spaced values from `from` to `to` inclusive.
+fn steps(from: f64, to: f64, step: f64) -> Vec<f64> {
+    let n = ((to - from) / step + 1e-9).floor() as usize;
+    (0..=n).map(|i| from + i as f64 * step).collect()
+}
+
+type Point<'a> = (&'a str, f64, f64, f64, f64);
+
+fn points_csv(rows: &[Point], unit: &str, note: &str) -> String {
+    let mut s = format!(
+        "# beamproof-data: 1\n# shape: points\n# dose-unit: {unit}\n# position-unit: mm\n# description: {note}\nlabel,x,y,z,dose\n"
+    );
+    for (label, x, y, z, d) in rows {
+        let _ = writeln!(s, "{label},{x:.1},{y:.1},{z:.1},{d:.4}");
+    }
+    s
+}
+
+fn curve_csv(axis: &str, positions: &[f64], dose: impl Fn(f64) -> f64, note: &str) -> String {
+    let mut s = format!(
+        "# beamproof-data: 1\n# shape: curve\n# axis: {axis}\n# dose-unit: %\n# position-unit: mm\n# description: {note}\nposition,dose\n"
+    );
+    for &p in positions {
+        let _ = writeln!(s, "{p:.1},{:.3}", dose(p));
+    }
+    s
+}
+
+fn plane_csv(axis: &[f64], dose: impl Fn(usize, usize) -> f64, note: &str) -> String {
+    let mut s = format!(
+        "# beamproof-data: 1\n# shape: plane\n# plane: xy\n# plane-offset: 0\n# dose-unit: Gy\n# position-unit: mm\n# description: {note}\ny\\x"
+    );
+    for x in axis {
+        let _ = write!(s, ",{x:.1}");
+    }
+    s.push('\n');
+    for (j, y) in axis.iter().enumerate() {
+        let _ = write!(s, "{y:.1}");
+        for i in 0..axis.len() {
+            let _ = write!(s, ",{:.4}", dose(i, j));
+        }
+        s.push('\n');
+    }
+    s
+}
+
+/// Chamber points of the 10 x 10 cm field: central axis at three depths, two off axis.
+const CAX_POINTS: [(&str, f64, f64, f64); 5] = [
+    ("d50", 0.0, 0.0, 50.0),
+    ("d100", 0.0, 0.0, 0.0),
+    ("d150", 0.0, 0.0, -50.0),
+    ("x-30", -30.0, 0.0, 0.0),
+    ("x+30", 30.0, 0.0, 0.0),
+];
+/// Prostate plan, chamber in a body phantom: invented planning-system point doses (Gy).
+const PROSTATE: [(&str, f64, f64, f64, f64); 3] = [
+    ("iso", 0.0, 0.0, 0.0, 2.000),
+    ("ptv-sup", 0.0, 25.0, 5.0, 1.962),
+    ("rectum", 0.0, -5.0, -35.0, 1.105),
+];
+
+/// One machine's invented deviations from the model.
+struct Machine {
+    id: &'static str,
+    /// Measured / calculated - 1 at each chamber point of the 10 x 10 field.
+    cax: [f64; 5],
+    /// Reference output error (lin-a's 3.6 % is the demo's deliberate failure).
+    output: f64,
+    prostate: [f64; 3],
+    /// Film: shift along x (mm) and dose scale.
+    film: (f64, f64),
+    /// Profile half-width increase on each side, mm.
+    widen: f64,
+}
+
+const MACHINES: [Machine; 2] = [
+    Machine {
+        id: "lin-a",
+        cax: [0.004, -0.002, 0.006, -0.005, 0.003],
+        output: 0.036,
+        prostate: [0.006, -0.011, 0.018],
+        film: (0.0, 1.000),
+        widen: 0.0,
+    },
+    Machine {
+        id: "lin-b",
+        cax: [0.007, 0.004, 0.017, -0.003, 0.009],
+        output: 0.008,
+        prostate: [-0.004, 0.009, -0.015],
+        film: (1.0, 1.010),
+        widen: 0.6,
+    },
+];
+
+fn write(dir: &Path, rel: &str, bytes: &[u8], out: &mut Vec<PathBuf>) -> Result<(), String> {
+    let p = dir.join(rel);
+    if let Some(parent) = p.parent() {
+        std::fs::create_dir_all(parent).map_err(|e| format!("{}: {e}", parent.display()))?;
+    }
+    std::fs::write(&p, bytes).map_err(|e| format!("{}: {e}", p.display()))?;
+    out.push(p);
+    Ok(())
+}
+
+/// Write every demo data file under `dir` (the campaign's `data/` folder); returns the paths.
+pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
+    let mut out = Vec::new();
+    write(
+        dir,
+        "tps/open-6x-10x10.dcm",
+        &rtdose::open_field(ISO).map_err(|e| format!("RT Dose: {e}"))?,
+        &mut out,
+    )?;
+    write(
+        dir,
+        "tps/output-6x.csv",
+        points_csv(
+            &[("ref", 0.0, 0.0, 0.0, 2.0)],
+            "Gy",
+            "planned dose at the reference point",
+        )
+        .as_bytes(),
+        &mut out,
+    )?;
+    write(
+        dir,
+        "tps/prostate-points.csv",
+        points_csv(&PROSTATE, "Gy", "planning-system point doses").as_bytes(),
+        &mut out,
+    )?;
+    for m in &MACHINES {
+        let rows: Vec<Point> = CAX_POINTS
+            .iter()
+            .zip(m.cax)
+            .map(|(&(l, x, y, z), dev)| (l, x, y, z, dose_iec(x, y, z) * (1.0 + dev)))
+            .collect();
+        write(
+            dir,
+            &format!("{}/cax-6x-10x10.csv", m.id),
+            points_csv(&rows, "Gy", &format!("ion chamber in water, {}", m.id)).as_bytes(),
+            &mut out,
+        )?;
+        write(
+            dir,
+            &format!("{}/output-6x.csv", m.id),
+            points_csv(
+                &[("ref", 0.0, 0.0, 0.0, 200.0 * (1.0 + m.output))],
+                "cGy",
+                &format!("reference output, {}", m.id),
+            )
+            .as_bytes(),
+            &mut out,
+        )?;
+        let rows: Vec<Point> = PROSTATE
+            .iter()
+            .zip(m.prostate)
+            .map(|(&(l, x, y, z, d), dev)| (l, x, y, z, d * (1.0 + dev)))
+            .collect();
+        write(
+            dir,
+            &format!("{}/prostate-chamber.csv", m.id),
+            points_csv(&rows, "Gy", &format!("chamber in body phantom, {}", m.id)).as_bytes(),
+            &mut out,
+        )?;
+    }
+    // Film-like plane at the isocentre (IEC z = 0), 2 mm pixels, 0.6 % seeded noise.
+    let mut noise = Noise::new(20_261_120);
+    let film_axis = steps(-70.0, 70.0, 2.0);
+    for m in &MACHINES {
+        let n = film_axis.len();
+        let grain: Vec<f64> = (0..n * n).map(|_| noise.normal(0.006)).collect();
+        let (shift, scale) = m.film;
+        let text = plane_csv(
+            &film_axis,
+            |i, j| {
+                scale * dose_iec(film_axis[i] - shift, film_axis[j], 0.0) * (1.0 + grain[j * n + i])
+            },
+            &format!("film plane, {}", m.id),
+        );
+        write(
+            dir,
+            &format!("{}/film-6x-10x10.csv", m.id),
+            text.as_bytes(),
+            &mut out,
+        )?;
+    }
+    // Depth dose on the central axis in percent of the maximum; measured with 0.2 % noise.
+    let depths = steps(0.0, 250.0, 2.0);
+    let max = depths.iter().map(|&d| depth_factor(d)).fold(0.0, f64::max);
+    write(
+        dir,
+        "tps/pdd-6x-10x10.csv",
+        curve_csv(
+            "depth",
+            &depths,
+            |d| 100.0 * depth_factor(d) / max,
+            "calculated depth dose",
+        )
+        .as_bytes(),
+        &mut out,
+    )?;
+    for m in &MACHINES {
+        let grain: Vec<f64> = depths.iter().map(|_| noise.normal(0.002)).collect();
+        let text = curve_csv(
+            "depth",
+            &depths,
+            |d| {
+                let i = depths.iter().position(|&x| x == d).unwrap_or(0);
+                100.0 * depth_factor(d) / max * (1.0 + grain[i])
+            },
+            &format!("water-tank depth dose, {}", m.id),
+        );
+        write(
+            dir,
+            &format!("{}/pdd-6x-10x10.csv", m.id),
+            text.as_bytes(),
+            &mut out,
+        )?;
+    }
+    // Crossplane profile at 10 cm depth, 1 mm steps, percent of the central axis; lin-b's
+    // field is wider on each side.
+    let xs = steps(-90.0, 90.0, 1.0);
+    let cax = dose_iec(0.0, 0.0, 0.0);
+    write(
+        dir,
+        "tps/profile-6x-10x10-x.csv",
+        curve_csv(
+            "x",
+            &xs,
+            |x| 100.0 * dose_iec(x, 0.0, 0.0) / cax,
+            "calculated crossplane profile",
+        )
+        .as_bytes(),
+        &mut out,
+    )?;
+    for m in &MACHINES {
+        let grain: Vec<f64> = xs.iter().map(|_| noise.normal(0.002)).collect();
+        let scale = (50.0 + m.widen) / 50.0;
+        let text = curve_csv(
+            "x",
+            &xs,
+            |x| {
+                let i = xs.iter().position(|&p| p == x).unwrap_or(0);
+                100.0 * dose_iec(x / scale, 0.0, 0.0) / cax * (1.0 + grain[i])
+            },
+            &format!("water-tank crossplane profile, {}", m.id),
+        );
+        write(
+            dir,
+            &format!("{}/profile-6x-10x10-x.csv", m.id),
+            text.as_bytes(),
+            &mut out,
+        )?;
+    }
+    Ok(out)
+}
