@@ -4,11 +4,7 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::support::{Outcome, cli, demo_copy, run_into_folder, scratch};
-
-fn s(p: &Path) -> &str {
-    p.to_str().expect("utf8")
-}
+use crate::support::{Outcome, arg, cli, demo_copy, keygen, run_into_folder, scratch};
 
 /// Three runs archived in order: lin-a, lin-b, then lin-b again with a signature.
 fn archive_of_three(name: &str) -> (PathBuf, Vec<PathBuf>) {
@@ -19,36 +15,30 @@ fn archive_of_three(name: &str) -> (PathBuf, Vec<PathBuf>) {
         let o = cli(&[
             "archive",
             "add",
-            s(run),
+            arg(run),
             "--archive",
-            s(&dir),
+            arg(&dir),
             "--date",
             "2026-11-23",
         ]);
         assert_eq!(o.code, 0, "{}", o.stderr);
     }
-    let keys = scratch(&format!("{name}-keys"));
-    let key = keys.join("k.key");
-    let o = cli(&[
-        "keygen",
-        "--name",
+    let key = keygen(
+        &scratch(&format!("{name}-keys")),
         "Ada Example",
-        "--role",
         "medical physicist",
-        "--out",
-        s(&key),
-    ]);
-    assert_eq!(o.code, 0, "{}", o.stderr);
+        "k.key",
+    );
     assert_eq!(
-        cli(&["sign", s(&b), "--key", s(&key), "--date", "2026-11-24"]).code,
+        cli(&["sign", arg(&b), "--key", arg(&key), "--date", "2026-11-24"]).code,
         0
     );
     let o = cli(&[
         "archive",
         "add",
-        s(&b),
+        arg(&b),
         "--archive",
-        s(&dir),
+        arg(&dir),
         "--date",
         "2026-11-24",
     ]);
@@ -57,7 +47,7 @@ fn archive_of_three(name: &str) -> (PathBuf, Vec<PathBuf>) {
 }
 
 fn verify(dir: &Path) -> Outcome {
-    cli(&["archive", "verify", s(dir)])
+    cli(&["archive", "verify", arg(dir)])
 }
 
 fn ledger(dir: &Path) -> Vec<String> {
@@ -92,7 +82,7 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
     let o = verify(&dir);
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(o.stdout.contains(": 3 entries and "), "{}", o.stdout);
-    let o = cli(&["archive", "list", "--archive", s(&dir)]);
+    let o = cli(&["archive", "list", "--archive", arg(&dir)]);
     let lines: Vec<&str> = o.stdout.lines().collect();
     assert_eq!(lines.len(), 3);
     assert!(
@@ -102,7 +92,7 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
     );
     // Adding the same run again is refused; the ledger is unchanged.
     let before = ledger(&dir);
-    let o = cli(&["archive", "add", s(&runs[1]), "--archive", s(&dir)]);
+    let o = cli(&["archive", "add", arg(&runs[1]), "--archive", arg(&dir)]);
     assert_eq!(o.code, 2);
     assert!(
         o.stderr
@@ -113,7 +103,7 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
     assert_eq!(ledger(&dir), before);
     // Export restores the signed run folder byte for byte.
     let dest = scratch("arch-ok-export").join("restored");
-    let o = cli(&["archive", "export", "3", s(&dest), "--archive", s(&dir)]);
+    let o = cli(&["archive", "export", "3", arg(&dest), "--archive", arg(&dir)]);
     assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
     let mut n = 0;
     for entry in walkdir::WalkDir::new(&runs[1])
@@ -136,7 +126,7 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
         "22 manifest-listed files, the manifest and one signature"
     );
     // Export never overwrites.
-    let o = cli(&["archive", "export", "3", s(&dest), "--archive", s(&dir)]);
+    let o = cli(&["archive", "export", "3", arg(&dest), "--archive", arg(&dir)]);
     assert_eq!(o.code, 2);
 }
 
@@ -274,7 +264,7 @@ fn folders_that_are_not_archives_and_damaged_runs_are_refused() {
         o.stderr
     );
     let (run, _) = run_into_folder(&demo_copy("arch-damaged"), "lin-b");
-    let o = cli(&["archive", "add", s(&run), "--archive", s(&dir)]);
+    let o = cli(&["archive", "add", arg(&run), "--archive", arg(&dir)]);
     assert_eq!(o.code, 2);
     assert!(
         o.stderr
@@ -284,7 +274,7 @@ fn folders_that_are_not_archives_and_damaged_runs_are_refused() {
     );
     std::fs::write(run.join("report.html"), "changed").expect("w");
     let fresh = scratch("arch-damaged-archive").join("a");
-    let o = cli(&["archive", "add", s(&run), "--archive", s(&fresh)]);
+    let o = cli(&["archive", "add", arg(&run), "--archive", arg(&fresh)]);
     assert_eq!(o.code, 2);
     assert!(
         o.stderr

@@ -2,13 +2,7 @@
 //! measurements against machine A's with the campaign's own plugins and tight matching
 //! criteria, and writes a checksummed matching run with a MATCHED / NOT MATCHED verdict.
 
-use std::path::Path;
-
-use crate::support::{cli, demo_copy, results, run_into_folder, scratch};
-
-fn s(p: &Path) -> &str {
-    p.to_str().expect("utf8")
-}
+use crate::support::{arg, cli, demo_copy, results, run_into_folder, scratch};
 
 fn metric(r: &serde_json::Value, test: &str, id: &str) -> f64 {
     r["sites"]
@@ -78,10 +72,10 @@ fn lin_b_against_lin_a_differences_are_b_minus_a_of_each_runs_own_measurement() 
     let out = scratch("cmp-out").join("match");
     let o = cli(&[
         "compare",
-        s(&a),
-        s(&b),
+        arg(&a),
+        arg(&b),
         "--out",
-        s(&out),
+        arg(&out),
         "--date",
         "2026-11-25",
     ]);
@@ -124,7 +118,7 @@ fn lin_b_against_lin_a_differences_are_b_minus_a_of_each_runs_own_measurement() 
         "{notes}"
     );
     // Checksummed like any run, with both runs' results and manifests kept.
-    let v = cli(&["verify", s(&out)]);
+    let v = cli(&["verify", arg(&out)]);
     assert_eq!(v.code, 0, "{}", v.stdout);
     for f in [
         "inputs/a/results.json",
@@ -143,10 +137,10 @@ fn a_run_against_itself_matches_exactly() {
     let out = scratch("cmp-self-out").join("match");
     let o = cli(&[
         "compare",
-        s(&a),
-        s(&a),
+        arg(&a),
+        arg(&a),
         "--out",
-        s(&out),
+        arg(&out),
         "--date",
         "2026-11-25",
     ]);
@@ -175,10 +169,10 @@ fn different_campaign_versions_are_noted_and_damaged_runs_refused() {
     let out = scratch("cmp-v-out").join("match");
     let o = cli(&[
         "compare",
-        s(&a),
-        s(&b),
+        arg(&a),
+        arg(&b),
         "--out",
-        s(&out),
+        arg(&out),
         "--date",
         "2026-11-25",
     ]);
@@ -198,10 +192,10 @@ fn different_campaign_versions_are_noted_and_damaged_runs_refused() {
     std::fs::write(b.join("results.json"), "{}").expect("w");
     let o = cli(&[
         "compare",
-        s(&a),
-        s(&b),
+        arg(&a),
+        arg(&b),
         "--out",
-        s(&scratch("cmp-v-out2").join("m")),
+        arg(&scratch("cmp-v-out2").join("m")),
     ]);
     assert_eq!(o.code, 2);
     assert!(

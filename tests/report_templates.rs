@@ -1,26 +1,36 @@
 //! A campaign may bring its own report template; a broken one is reported with its file and
 //! line, and nothing is written.
 
+use std::path::PathBuf;
+
 use crate::support::{demo_copy, relative, run_into_folder};
 
-fn with_template(name: &str, template: &str) -> (std::path::PathBuf, crate::support::Outcome) {
+/// A demo copy whose campaign names the template folder `folder`, holding `files`.
+fn campaign_with_templates(name: &str, folder: &str, files: &[(&str, &str)]) -> PathBuf {
     let campaign = demo_copy(name);
-    let dir = campaign.parent().expect("dir").to_path_buf();
-    std::fs::create_dir_all(dir.join("my-templates")).expect("mkdir");
-    std::fs::write(dir.join("my-templates/report.typ.hbs"), template).expect("write");
+    let dir = campaign.parent().expect("dir").join(folder);
+    std::fs::create_dir_all(&dir).expect("mkdir");
+    for (file, text) in files {
+        std::fs::write(dir.join(file), text).expect("write");
+    }
     let text = std::fs::read_to_string(&campaign).expect("read");
     std::fs::write(
         &campaign,
         text.replacen(
             "criteria:\n",
-            "report: {templates: my-templates}\ncriteria:\n",
+            &format!("report: {{templates: {folder}}}\ncriteria:\n"),
             1,
         ),
     )
     .expect("write");
+    campaign
+}
+
+fn with_template(name: &str, template: &str) -> (PathBuf, crate::support::Outcome) {
+    let campaign = campaign_with_templates(name, "my-templates", &[("report.typ.hbs", template)]);
     let (out, o) = run_into_folder(&campaign, "lin-b");
     assert!(!out.exists() || o.code == 0, "a failed run left its folder");
-    (dir, o)
+    (campaign.parent().expect("dir").to_path_buf(), o)
 }
 
 #[test]
@@ -50,29 +60,20 @@ fn a_custom_template_is_used_and_kept_with_the_run() {
 
 #[test]
 fn a_custom_template_can_use_its_own_images() {
-    let campaign = demo_copy("tpl-logo");
-    let dir = campaign.parent().expect("dir").to_path_buf();
-    std::fs::create_dir_all(dir.join("my-templates")).expect("mkdir");
-    std::fs::write(
-        dir.join("my-templates/logo.svg"),
-        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"20\" height=\"10\"><rect width=\"20\" height=\"10\" fill=\"#336699\"/></svg>",
-    )
-    .expect("logo");
-    std::fs::write(
-        dir.join("my-templates/report.typ.hbs"),
-        "#image(\"logo.svg\", width: 2cm)\n= {{title}}\n",
-    )
-    .expect("template");
-    let text = std::fs::read_to_string(&campaign).expect("read");
-    std::fs::write(
-        &campaign,
-        text.replacen(
-            "criteria:\n",
-            "report: {templates: my-templates}\ncriteria:\n",
-            1,
-        ),
-    )
-    .expect("write");
+    let campaign = campaign_with_templates(
+        "tpl-logo",
+        "my-templates",
+        &[
+            (
+                "logo.svg",
+                "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"20\" height=\"10\"><rect width=\"20\" height=\"10\" fill=\"#336699\"/></svg>",
+            ),
+            (
+                "report.typ.hbs",
+                "#image(\"logo.svg\", width: 2cm)\n= {{title}}\n",
+            ),
+        ],
+    );
     let (out, o) = run_into_folder(&campaign, "lin-b");
     assert_eq!(o.code, 0, "{}", o.stderr);
     assert!(out.join("inputs/my-templates/logo.svg").is_file());
@@ -80,19 +81,8 @@ fn a_custom_template_can_use_its_own_images() {
 
 #[test]
 fn a_template_folder_without_the_report_template_is_refused() {
-    let campaign = demo_copy("tpl-missing");
+    let campaign = campaign_with_templates("tpl-missing", "empty-templates", &[]);
     let dir = campaign.parent().expect("dir").to_path_buf();
-    std::fs::create_dir_all(dir.join("empty-templates")).expect("mkdir");
-    let text = std::fs::read_to_string(&campaign).expect("read");
-    std::fs::write(
-        &campaign,
-        text.replacen(
-            "criteria:\n",
-            "report: {templates: empty-templates}\ncriteria:\n",
-            1,
-        ),
-    )
-    .expect("write");
     let (out, o) = run_into_folder(&campaign, "lin-b");
     assert_eq!(o.code, 2);
     assert!(!out.exists());

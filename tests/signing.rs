@@ -2,25 +2,14 @@
 //! (Ed25519, RFC 8032, through ed25519-dalek; the test vector is checked in the engine's unit
 //! tests).
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
-use crate::support::{Outcome, cli, demo_copy, run_into_folder, scratch};
-
-fn s(p: &Path) -> &str {
-    p.to_str().expect("utf8")
-}
-
-fn keygen(dir: &Path, name: &str, role: &str, file: &str) -> PathBuf {
-    let key = dir.join(file);
-    let o = cli(&["keygen", "--name", name, "--role", role, "--out", s(&key)]);
-    assert_eq!(o.code, 0, "{}", o.stderr);
-    key
-}
+use crate::support::{Outcome, arg, cli, demo_copy, keygen, run_into_folder, scratch};
 
 fn verify(run: &Path, trusted: Option<&Path>) -> Outcome {
-    let mut args = vec!["verify", s(run)];
+    let mut args = vec!["verify", arg(run)];
     if let Some(t) = trusted {
-        args.extend(["--trusted-keys", s(t)]);
+        args.extend(["--trusted-keys", arg(t)]);
     }
     cli(&args)
 }
@@ -38,7 +27,7 @@ fn two_signers_sign_and_verify_names_who_signed_what() {
         "--role",
         "medical physicist",
         "--out",
-        s(&ada),
+        arg(&ada),
     ]);
     assert_eq!(made.code, 0, "{}", made.stderr);
     let bo = keygen(&keys, "Bo Chief", "chief physicist", "bo.key");
@@ -49,7 +38,7 @@ fn two_signers_sign_and_verify_names_who_signed_what() {
         assert_eq!(mode & 0o777, 0o600, "the secret key is owner-only");
     }
     // A key file is never overwritten and the secret is never printed.
-    let o = cli(&["keygen", "--name", "X", "--role", "Y", "--out", s(&ada)]);
+    let o = cli(&["keygen", "--name", "X", "--role", "Y", "--out", arg(&ada)]);
     assert_eq!(o.code, 2);
     assert!(
         o.stderr
@@ -67,13 +56,20 @@ fn two_signers_sign_and_verify_names_who_signed_what() {
         .iter()
         .map(|f| std::fs::read(run.join(f)).expect("read"))
         .collect();
-    let o = cli(&["sign", s(&run), "--key", s(&ada), "--date", "2026-11-21"]);
+    let o = cli(&[
+        "sign",
+        arg(&run),
+        "--key",
+        arg(&ada),
+        "--date",
+        "2026-11-21",
+    ]);
     assert_eq!(o.code, 0, "{}", o.stderr);
     let o = cli(&[
         "sign",
-        s(&run),
+        arg(&run),
         "--key",
-        s(&bo),
+        arg(&bo),
         "--date",
         "2026-11-22",
         "--statement",
@@ -110,7 +106,15 @@ fn altered_signatures_and_manifests_are_detected() {
     let keys = scratch("sign-tamper-keys");
     let ada = keygen(&keys, "Ada Example", "medical physicist", "ada.key");
     assert_eq!(
-        cli(&["sign", s(&run), "--key", s(&ada), "--date", "2026-11-21"]).code,
+        cli(&[
+            "sign",
+            arg(&run),
+            "--key",
+            arg(&ada),
+            "--date",
+            "2026-11-21"
+        ])
+        .code,
         0
     );
     let sig = run.join("signatures/01-ada-example.sig");
@@ -157,12 +161,12 @@ fn bad_keys_and_unverifiable_runs_are_refused() {
         k.replace(public_line, &flipped[..public_line.len()]),
     )
     .expect("w");
-    let o = cli(&["sign", s(&run), "--key", s(&broken)]);
+    let o = cli(&["sign", arg(&run), "--key", arg(&broken)]);
     assert_eq!(o.code, 2);
     assert!(o.stderr.contains("is not a valid beamproof key file: its public key does not belong to its secret key (the file was altered)"), "{}", o.stderr);
     // A run whose files do not match its manifest cannot be signed.
     std::fs::write(run.join("results.json"), "{}").expect("w");
-    let o = cli(&["sign", s(&run), "--key", s(&ada)]);
+    let o = cli(&["sign", arg(&run), "--key", arg(&ada)]);
     assert_eq!(o.code, 2);
     assert!(
         o.stderr

@@ -105,3 +105,16 @@ pub fn results(out: &Path) -> serde_json::Value {
     serde_json::from_slice(&std::fs::read(out.join("results.json")).expect("results.json"))
         .expect("json")
 }
+
+/// A path as the `&str` argument of a command line.
+pub fn arg(p: &Path) -> &str {
+    p.to_str().expect("utf-8 path")
+}
+
+/// `beamproof keygen` into `dir/file`; returns the key file.
+pub fn keygen(dir: &Path, name: &str, role: &str, file: &str) -> PathBuf {
+    let key = dir.join(file);
+    let o = cli(&["keygen", "--name", name, "--role", role, "--out", arg(&key)]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    key
+}

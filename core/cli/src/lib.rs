@@ -406,24 +406,7 @@ fn run_campaign(
             ),
         });
     }
-    let json = record.to_json();
-    let templates = prepared.templates.as_ref().map(|p| c.dir.join(p));
-    let pdf = beamproof_report::render_pdf(&json, templates.as_deref())
-        .map_err(|e| Failure { text: format!("error: the report could not be made: {e}\n  = help: fix the template, or remove `report: templates:` to use the built-in one"), code: EXIT_CANNOT_RUN })?;
-    let html = beamproof_report::render_html(&json, templates.as_deref())
-        .map_err(|e| Failure { text: format!("error: the HTML summary could not be made: {e}\n  = help: fix the template, or remove `report: templates:` to use the built-in one"), code: EXIT_CANNOT_RUN })?;
-    let pdf_sum = format!(
-        "{}  report.pdf\n",
-        beamproof_engine::checksum::sha256_hex(&pdf)
-    );
-    let products: [(&str, &[u8]); 4] = [
-        ("results.json", &json),
-        ("report.pdf", &pdf),
-        ("report.pdf.sha256", pdf_sum.as_bytes()),
-        ("report.html", html.as_bytes()),
-    ];
-    beamproof_engine::output::write_run_folder(&out, &c, &prepared, &products)
-        .map_err(|e| Failure { text: format!("error: {e}\n  = help: choose another folder with --out, or check free space and permissions"), code: EXIT_CANNOT_RUN })?;
+    let pdf = write_run(&out, &c, &prepared, &record.to_json())?;
     let s = &record.summary;
     outln!(io, "run folder: {}", out.display());
     outln!(
@@ -532,6 +515,56 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
     })
 }
 
+/// Render the report and the HTML summary from the results and write the run folder (results,
+/// report, its checksum, HTML, inputs, manifest) atomically; returns the report's bytes.
+fn write_run(
+    out: &Path,
+    campaign: &Campaign,
+    prepared: &Prepared,
+    json: &[u8],
+) -> Result<Vec<u8>, Failure> {
+    let fail = |what: &str, e: String, help: &str| Failure {
+        text: format!("error: {what}{e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    };
+    let template_help = "fix the template, or remove `report: templates:` to use the built-in one";
+    let templates = prepared.templates.as_ref().map(|p| campaign.dir.join(p));
+    let pdf = beamproof_report::render_pdf(json, templates.as_deref()).map_err(|e| {
+        fail(
+            "the report could not be made: ",
+            e.to_string(),
+            template_help,
+        )
+    })?;
+    let html = beamproof_report::render_html(json, templates.as_deref()).map_err(|e| {
+        fail(
+            "the HTML summary could not be made: ",
+            e.to_string(),
+            template_help,
+        )
+    })?;
+    let pdf_sum = format!(
+        "{}  report.pdf\n",
+        beamproof_engine::checksum::sha256_hex(&pdf)
+    );
+    let products: [(&str, &[u8]); 4] = [
+        ("results.json", json),
+        ("report.pdf", &pdf),
+        ("report.pdf.sha256", pdf_sum.as_bytes()),
+        ("report.html", html.as_bytes()),
+    ];
+    beamproof_engine::output::write_run_folder(out, campaign, prepared, &products).map_err(
+        |e| {
+            fail(
+                "",
+                e.to_string(),
+                "choose another folder with --out, or check free space and permissions",
+            )
+        },
+    )?;
+    Ok(pdf)
+}
+
 fn compare(
     io: &mut Io,
     run_a: &Path,
@@ -563,36 +596,13 @@ fn compare(
             "choose another folder with --out",
         ));
     }
-    let json = c.record.to_json();
-    let templates = c
-        .prepared
-        .templates
-        .as_ref()
-        .map(|p| c.campaign.dir.join(p));
-    let pdf = beamproof_report::render_pdf(&json, templates.as_deref()).map_err(|e| {
-        fail(
-            format!("the matching report could not be made: {e}"),
-            "fix the template",
-        )
-    })?;
-    let html = beamproof_report::render_html(&json, templates.as_deref()).map_err(|e| {
-        fail(
-            format!("the HTML summary could not be made: {e}"),
-            "fix the template",
-        )
-    })?;
-    let pdf_sum = format!(
-        "{}  report.pdf\n",
+    let pdf = write_run(&out, &c.campaign, &c.prepared, &c.record.to_json())?;
+    outln!(
+        io,
+        "report: {} (SHA-256 {})",
+        out.join("report.pdf").display(),
         beamproof_engine::checksum::sha256_hex(&pdf)
     );
-    let products: [(&str, &[u8]); 4] = [
-        ("results.json", &json),
-        ("report.pdf", &pdf),
-        ("report.pdf.sha256", pdf_sum.as_bytes()),
-        ("report.html", html.as_bytes()),
-    ];
-    beamproof_engine::output::write_run_folder(&out, &c.campaign, &c.prepared, &products)
-        .map_err(|e| fail(e.to_string(), "choose another folder with --out"))?;
     let s = &c.record.summary;
     outln!(io, "matching run folder: {}", out.display());
     outln!(
