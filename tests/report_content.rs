@@ -60,10 +60,9 @@ fn the_report_states_verdict_tests_cautions_and_checksums() {
         );
         checked += 1;
     }
-    assert_eq!(
-        checked, 19,
-        "campaign, 11 data inputs, 6 beam-data files and results.json"
-    );
+    // Every input file of the run and results.json: at least the campaign, the 6 MV and FFF
+    // scans, the chamber files, the dose grid and the beam data.
+    assert!(checked > 20, "only {checked} checksums checked");
     assert!(text.contains("templates/report.typ.hbs (built into beamproof"));
     // The sidecar holds the PDF's SHA-256 in sha256sum format.
     let pdf = std::fs::read(out.join("report.pdf")).expect("pdf");

@@ -63,7 +63,9 @@ fn demo_lin_b_is_go_with_a_warning() {
         r["summary"]["warnings"],
         serde_json::json!([
             "standard-fields/cax-6x-10x10: WARN",
-            "standard-fields/profile-6x-10x10-x: WARN"
+            "standard-fields/profile-6x-10x10-x: WARN",
+            "standard-fields/profile-6x-5x5-x: WARN",
+            "standard-fields/profile-6x-20x20-x: WARN"
         ])
     );
 }
@@ -114,7 +116,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
         o.stdout
-            .ends_with("all 22 files match the manifest\nno signatures\n"),
+            .ends_with("all 30 files match the manifest\nno signatures\n"),
         "{}",
         o.stdout
     );
@@ -136,13 +138,21 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/data/lin-a/cax-6x-10x10.csv",
         "inputs/data/lin-a/film-6x-10x10.csv",
         "inputs/data/lin-a/output-6x.csv",
+        "inputs/data/lin-a/pdd-10fff-10x10.csv",
         "inputs/data/lin-a/pdd-6x-10x10.csv",
+        "inputs/data/lin-a/profile-10fff-10x10-x.csv",
         "inputs/data/lin-a/profile-6x-10x10-x.csv",
+        "inputs/data/lin-a/profile-6x-20x20-x.csv",
+        "inputs/data/lin-a/profile-6x-5x5-x.csv",
         "inputs/data/lin-a/prostate-chamber.csv",
         "inputs/data/tps/open-6x-10x10.dcm",
         "inputs/data/tps/output-6x.csv",
+        "inputs/data/tps/pdd-10fff-10x10.csv",
         "inputs/data/tps/pdd-6x-10x10.csv",
+        "inputs/data/tps/profile-10fff-10x10-x.csv",
         "inputs/data/tps/profile-6x-10x10-x.csv",
+        "inputs/data/tps/profile-6x-20x20-x.csv",
+        "inputs/data/tps/profile-6x-5x5-x.csv",
         "inputs/data/tps/prostate-points.csv",
         "report.html",
         "report.pdf",

@@ -56,6 +56,36 @@ pub fn dose_iec(x: f64, y: f64, z: f64) -> f64 {
     D_ISO * depth_factor(depth) / depth_factor(100.0) * edge(x, 50.0) * edge(y, 50.0)
 }
 
+/// A second invented beam: 10 MV flattening-filter free. Deeper maximum (24 mm), a lower
+/// surface dose and slower attenuation than the 6 MV beam, and a cone-shaped profile (dose
+/// falling 0.18 % per mm from the axis) with sharper edges (sigma 2.5 mm).
+pub fn depth_factor_fff(d_mm: f64) -> f64 {
+    let build = if d_mm < 24.0 {
+        (d_mm / 24.0).min(1.0) * 0.62 + 0.38
+    } else {
+        1.0
+    };
+    build * (-0.0040 * (d_mm - 24.0).max(0.0)).exp()
+}
+
+/// The flattening-filter-free shape across one axis.
+pub fn edge_fff(u_mm: f64, half_mm: f64) -> f64 {
+    let s = std::f64::consts::SQRT_2 * 2.5;
+    let a = (half_mm - u_mm) / s;
+    let b = (half_mm + u_mm) / s;
+    0.975 * 0.25 * (1.0 + erf(a)) * (1.0 + erf(b)) * (1.0 - 0.0018 * u_mm.abs()) + 0.025
+}
+
+/// Relative crossplane profile at 10 cm depth of a square field of side `2 half` (mm) for
+/// the 6 MV (`fff` false) or the 10 MV FFF beam, in percent of the central axis.
+pub fn profile_percent(x: f64, half: f64, fff: bool) -> f64 {
+    if fff {
+        100.0 * edge_fff(x, half) / edge_fff(0.0, half)
+    } else {
+        100.0 * edge(x, half) / edge(0.0, half)
+    }
+}
+
 /// Deterministic normal deviates (64-bit LCG, Box-Muller), seeded.
 pub struct Noise(u64);
 
@@ -330,6 +360,83 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             text.as_bytes(),
             &mut out,
         )?;
+    }
+    // More scans, after the original ones so that their noise is unchanged: 6 MV crossplane
+    // profiles of 5 x 5 and 20 x 20 cm fields, and the 10 MV FFF beam's depth dose and 10 x 10
+    // profile. Measured scans carry 0.2 % noise; lin-b's fields are slightly wider.
+    let fff_depths = steps(0.0, 250.0, 2.0);
+    let fff_max = fff_depths
+        .iter()
+        .map(|&d| depth_factor_fff(d))
+        .fold(0.0, f64::max);
+    let pdd_fff = |d: f64| 100.0 * depth_factor_fff(d) / fff_max;
+    write(
+        dir,
+        "tps/pdd-10fff-10x10.csv",
+        curve_csv(
+            "depth",
+            &fff_depths,
+            pdd_fff,
+            "calculated depth dose, 10 MV FFF",
+        )
+        .as_bytes(),
+        &mut out,
+    )?;
+    for m in &MACHINES {
+        let grain: Vec<f64> = fff_depths.iter().map(|_| noise.normal(0.002)).collect();
+        let text = curve_csv(
+            "depth",
+            &fff_depths,
+            |d| {
+                let i = fff_depths.iter().position(|&x| x == d).unwrap_or(0);
+                pdd_fff(d) * (1.0 + grain[i])
+            },
+            &format!("water-tank depth dose, 10 MV FFF, {}", m.id),
+        );
+        write(
+            dir,
+            &format!("{}/pdd-10fff-10x10.csv", m.id),
+            text.as_bytes(),
+            &mut out,
+        )?;
+    }
+    let wide = steps(-160.0, 160.0, 1.0);
+    for (name, half, fff, positions) in [
+        ("6x-5x5", 25.0, false, &xs),
+        ("6x-20x20", 100.0, false, &wide),
+        ("10fff-10x10", 50.0, true, &xs),
+    ] {
+        write(
+            dir,
+            &format!("tps/profile-{name}-x.csv"),
+            curve_csv(
+                "x",
+                positions,
+                |x| profile_percent(x, half, fff),
+                &format!("calculated crossplane profile {name}"),
+            )
+            .as_bytes(),
+            &mut out,
+        )?;
+        for m in &MACHINES {
+            let grain: Vec<f64> = positions.iter().map(|_| noise.normal(0.002)).collect();
+            let scale = (half + m.widen / 2.0) / half;
+            let text = curve_csv(
+                "x",
+                positions,
+                |x| {
+                    let i = positions.iter().position(|&p| p == x).unwrap_or(0);
+                    profile_percent(x / scale, half, fff) * (1.0 + grain[i])
+                },
+                &format!("water-tank crossplane profile {name}, {}", m.id),
+            );
+            write(
+                dir,
+                &format!("{}/profile-{name}-x.csv", m.id),
+                text.as_bytes(),
+                &mut out,
+            )?;
+        }
     }
     Ok(out)
 }
