@@ -65,7 +65,8 @@ fn demo_lin_b_is_go_with_a_warning() {
             "standard-fields/cax-6x-10x10: WARN",
             "standard-fields/profile-6x-10x10-x: WARN",
             "standard-fields/profile-6x-5x5-x: WARN",
-            "standard-fields/profile-6x-20x20-x: WARN"
+            "standard-fields/profile-6x-20x20-x: WARN",
+            "monitor-units/mu-6x-plan: WARN"
         ])
     );
 }
@@ -116,7 +117,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
         o.stdout
-            .ends_with("all 30 files match the manifest\nno signatures\n"),
+            .ends_with("all 31 files match the manifest\nno signatures\n"),
         "{}",
         o.stdout
     );
@@ -149,6 +150,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/data/tps/output-6x.csv",
         "inputs/data/tps/pdd-10fff-10x10.csv",
         "inputs/data/tps/pdd-6x-10x10.csv",
+        "inputs/data/tps/plan-3field-6x.dcm",
         "inputs/data/tps/profile-10fff-10x10-x.csv",
         "inputs/data/tps/profile-6x-10x10-x.csv",
         "inputs/data/tps/profile-6x-20x20-x.csv",

@@ -12,6 +12,7 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 mod rtdose;
+mod rtplan;
 
 /// Isocentre in the dose grid's DICOM patient coordinates, mm (HFS phantom).
 pub const ISO: [f64; 3] = [10.0, -50.0, 25.0];
@@ -438,5 +439,70 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             )?;
         }
     }
+    // The three-field 6 MV plan of the MU check: AP open 10 x 10, an L-shaped oblique field
+    // (the upper half of the leaves closed to the axis) and a wedged PA field, on 1 cm leaves.
+    let open = |half: f64| -> Vec<f64> {
+        let a = (0..40).map(|i| {
+            let y = -200.0 + 10.0 * f64::from(i) + 5.0;
+            if y.abs() < half { -half } else { 0.0 }
+        });
+        let b = (0..40).map(|i| {
+            let y = -200.0 + 10.0 * f64::from(i) + 5.0;
+            if y.abs() < half { half } else { 0.0 }
+        });
+        a.chain(b).collect()
+    };
+    let mut l_shape = open(60.0);
+    for i in 20..40 {
+        let y = -200.0 + 10.0 * f64::from(i as u8) + 5.0;
+        if y > 0.0 && y < 60.0 {
+            l_shape[40 + i] = 0.0;
+        }
+    }
+    let beams = [
+        rtplan::PlanBeam {
+            number: 1,
+            name: "AP",
+            gantry: 0.0,
+            ssd_mm: 900.0,
+            jaws_mm: [-50.0, 50.0, -50.0, 50.0],
+            leaves_mm: open(50.0),
+            wedge: None,
+            mu: 150.0,
+            dose_gy: PLAN_DOSES[0],
+        },
+        rtplan::PlanBeam {
+            number: 2,
+            name: "LAO L",
+            gantry: 40.0,
+            ssd_mm: 910.0,
+            jaws_mm: [-60.0, 60.0, -60.0, 60.0],
+            leaves_mm: l_shape,
+            wedge: None,
+            mu: 180.0,
+            dose_gy: PLAN_DOSES[1],
+        },
+        rtplan::PlanBeam {
+            number: 3,
+            name: "PA W30",
+            gantry: 180.0,
+            ssd_mm: 895.0,
+            jaws_mm: [-50.0, 50.0, -50.0, 50.0],
+            leaves_mm: open(50.0),
+            wedge: Some(("W30", 0.62)),
+            mu: 250.0,
+            dose_gy: PLAN_DOSES[2],
+        },
+    ];
+    write(
+        dir,
+        "tps/plan-3field-6x.dcm",
+        &rtplan::plan("DEMO 3F 6X", &beams).map_err(|e| format!("RT Plan: {e}"))?,
+        &mut out,
+    )?;
     Ok(out)
 }
+
+/// The planning system's dose at the isocentre per beam of the three-field plan (invented:
+/// within a percent of the independent check with the lin-a beam data).
+const PLAN_DOSES: [f64; 3] = [1.2149, 1.4979, 1.2220];

@@ -12,7 +12,7 @@ use crate::dose_iec;
 
 /// A fixed UID under the UUID-derived root 2.25 (ISO/IEC 9834-8), from a name: the FNV-1a hash
 /// of the name in decimal. Unique enough for invented demo data, and always the same.
-fn uid(name: &str) -> String {
+pub fn uid(name: &str) -> String {
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
     for b in format!("beamproof-demo:{name}").bytes() {
         h ^= u64::from(b);
