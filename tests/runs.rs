@@ -117,7 +117,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
         o.stdout
-            .ends_with("all 31 files match the manifest\nno signatures\n"),
+            .ends_with("all 33 files match the manifest\nno signatures\n"),
         "{}",
         o.stdout
     );
@@ -136,6 +136,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/beam-data/6x/tpr.csv",
         "inputs/beam-data/lin-a-6x.yaml",
         "inputs/campaign.yaml",
+        "inputs/data/lin-a/array-l-field-6x.csv",
         "inputs/data/lin-a/cax-6x-10x10.csv",
         "inputs/data/lin-a/film-6x-10x10.csv",
         "inputs/data/lin-a/output-6x.csv",
@@ -146,6 +147,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
         "inputs/data/lin-a/profile-6x-20x20-x.csv",
         "inputs/data/lin-a/profile-6x-5x5-x.csv",
         "inputs/data/lin-a/prostate-chamber.csv",
+        "inputs/data/tps/l-field-6x.dcm",
         "inputs/data/tps/open-6x-10x10.dcm",
         "inputs/data/tps/output-6x.csv",
         "inputs/data/tps/pdd-10fff-10x10.csv",

@@ -29,6 +29,16 @@ fn ds_list(values: &[f64]) -> PrimitiveValue {
 /// The open 10 x 10 cm field's dose on a 4 x 5 x 5 mm grid around the isocentre `iso` (DICOM
 /// patient coordinates of an HFS phantom: IEC X = x, IEC Y = z, IEC Z = -y, relative to it).
 pub fn open_field(iso: [f64; 3]) -> Result<Vec<u8>, String> {
+    grid("open-6x-10x10.dcm", iso, dose_iec)
+}
+
+/// A dose grid of `dose(x, y, z)` (IEC 61217 mm from the isocentre, Gy) on the same 4 x 5 x 5
+/// mm grid, as an RT Dose file whose UIDs derive from `name`.
+pub fn grid(
+    name: &str,
+    iso: [f64; 3],
+    dose: impl Fn(f64, f64, f64) -> f64,
+) -> Result<Vec<u8>, String> {
     let xs: Vec<f64> = crate::steps(-80.0, 80.0, 4.0)
         .iter()
         .map(|v| v + iso[0])
@@ -46,12 +56,12 @@ pub fn open_field(iso: [f64; 3]) -> Result<Vec<u8>, String> {
     for pz in &zs {
         for py in &ys {
             for px in &xs {
-                let d = dose_iec(px - iso[0], pz - iso[2], -(py - iso[1]));
+                let d = dose(px - iso[0], pz - iso[2], -(py - iso[1]));
                 pixels.extend_from_slice(&((d / scaling).round() as u32).to_le_bytes());
             }
         }
     }
-    let sop = uid("open-6x-10x10.dcm");
+    let sop = uid(name);
     let s = |tag: Tag, vr: VR, v: &str| DataElement::new(tag, vr, PrimitiveValue::from(v));
     let obj = InMemDicomObject::from_element_iter([
         s(tags::SOP_CLASS_UID, VR::UI, uids::RT_DOSE_STORAGE),

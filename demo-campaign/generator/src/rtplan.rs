@@ -150,8 +150,16 @@ pub fn plan(label: &str, beams: &[PlanBeam]) -> Result<Vec<u8>, String> {
         s(tags::SOP_CLASS_UID, VR::UI, uids::RT_PLAN_STORAGE),
         s(tags::SOP_INSTANCE_UID, VR::UI, &sop),
         s(tags::STUDY_INSTANCE_UID, VR::UI, &uid("study")),
-        s(tags::SERIES_INSTANCE_UID, VR::UI, &uid(&format!("{label} series"))),
-        s(tags::FRAME_OF_REFERENCE_UID, VR::UI, &uid("frame of reference")),
+        s(
+            tags::SERIES_INSTANCE_UID,
+            VR::UI,
+            &uid(&format!("{label} series")),
+        ),
+        s(
+            tags::FRAME_OF_REFERENCE_UID,
+            VR::UI,
+            &uid("frame of reference"),
+        ),
         s(tags::PATIENT_NAME, VR::PN, "Water^Phantom"),
         s(tags::PATIENT_ID, VR::LO, "DEMO-PHANTOM"),
         s(tags::MODALITY, VR::CS, "RTPLAN"),
