@@ -116,6 +116,10 @@ fn steps(from: f64, to: f64, step: f64) -> Vec<f64> {
 
 type Point<'a> = (&'a str, f64, f64, f64, f64);
 
+/// A scan of the demo: file name, curve axis, positions, and the relative dose at a position
+/// for a parameter (slab density, or field widening).
+type Scan<'a> = (String, &'a str, Vec<f64>, Box<dyn Fn(f64, f64) -> f64>);
+
 fn points_csv(rows: &[Point], unit: &str, note: &str) -> String {
     let mut s = format!(
         "# beamproof-data: 1\n# shape: points\n# dose-unit: {unit}\n# position-unit: mm\n# description: {note}\nlabel,x,y,z,dose\n"
@@ -443,7 +447,7 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     // beams. The planning system's slab density is 0.32 where the (invented) truth is 0.30;
     // lin-b's asymmetric field edge sits 0.4 mm further out.
     for (beam, fff) in [("6x", false), ("10fff", true)] {
-        let scans: [(String, &str, Vec<f64>, Box<dyn Fn(f64, f64) -> f64>); 3] = [
+        let scans: [Scan; 3] = [
             (
                 format!("oblique-{beam}-10x10-x"),
                 "x",
