@@ -512,6 +512,37 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             }
         }
     }
+    // A breast-tangent-like plane (12 x 16 cm with a wedged gradient along x) measured on
+    // film against the calculated plane, 2 mm pixels: lin-a's film sits 0.5 mm off in x,
+    // lin-b's reads 1.5 % high; both with 0.8 % film noise.
+    let tangent = |x: f64, y: f64| D_ISO * edge(x, 60.0) * edge(y, 80.0) * (1.0 - 0.004 * x);
+    let plane_axis = steps(-90.0, 90.0, 2.0);
+    let n = plane_axis.len();
+    write(
+        dir,
+        "tps/breast-tangent-plane.csv",
+        plane_csv(
+            &plane_axis,
+            |i, j| tangent(plane_axis[i], plane_axis[j]),
+            "calculated plane, breast tangent",
+        )
+        .as_bytes(),
+        &mut out,
+    )?;
+    for (m, (shift, scale)) in MACHINES.iter().zip([(0.5, 1.0), (0.0, 1.015)]) {
+        let grain: Vec<f64> = (0..n * n).map(|_| noise.normal(0.008)).collect();
+        let text = plane_csv(
+            &plane_axis,
+            |i, j| scale * tangent(plane_axis[i] - shift, plane_axis[j]) * (1.0 + grain[j * n + i]),
+            &format!("film plane, breast tangent, {}", m.id),
+        );
+        write(
+            dir,
+            &format!("{}/breast-tangent-film.csv", m.id),
+            text.as_bytes(),
+            &mut out,
+        )?;
+    }
     // The three-field 6 MV plan of the MU check: AP open 10 x 10, an L-shaped oblique field
     // (the upper half of the leaves closed to the axis) and a wedged PA field, on 1 cm leaves.
     let open = |half: f64| -> Vec<f64> {
