@@ -597,14 +597,14 @@ fn compare(
         ));
     }
     let pdf = write_run(&out, &c.campaign, &c.prepared, &c.record.to_json())?;
+    let s = &c.record.summary;
+    outln!(io, "matching run folder: {}", out.display());
     outln!(
         io,
         "report: {} (SHA-256 {})",
         out.join("report.pdf").display(),
         beamproof_engine::checksum::sha256_hex(&pdf)
     );
-    let s = &c.record.summary;
-    outln!(io, "matching run folder: {}", out.display());
     outln!(
         io,
         "{} · {} tests compared: {} pass, {} warn, {} fail, {} error",

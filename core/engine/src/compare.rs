@@ -272,23 +272,32 @@ pub fn compare(
             })
             .cloned()
             .collect();
-        // Profiles and depth doses are always matched by 1D gamma too.
-        if matches!(ta.spec.kind, TestKind::Profile | TestKind::DepthDose)
-            && !analyses.iter().any(|x| x.plugin == "gamma")
-            && let Some(g) = registry
+        // Profiles and depth doses are always matched by 1D gamma too; two detector-array
+        // readings are compared point by point.
+        let with_defaults = |name: &str| {
+            registry
                 .plugins()
                 .iter()
-                .find(|p| p.manifest.name == "gamma")
+                .find(|p| p.manifest.name == name)
+                .map(|g| crate::prepare::PreparedAnalysis {
+                    plugin: name.into(),
+                    params: g
+                        .manifest
+                        .params
+                        .iter()
+                        .filter_map(|p| Some((p.name.clone(), p.default.clone()?)))
+                        .collect(),
+                })
+        };
+        if matches!(ta.spec.kind, TestKind::Profile | TestKind::DepthDose)
+            && !analyses.iter().any(|x| x.plugin == "gamma")
         {
-            analyses.push(crate::prepare::PreparedAnalysis {
-                plugin: "gamma".into(),
-                params: g
-                    .manifest
-                    .params
-                    .iter()
-                    .filter_map(|p| Some((p.name.clone(), p.default.clone()?)))
-                    .collect(),
-            });
+            analyses.extend(with_defaults("gamma"));
+        }
+        if matches!(mb.dataset.data, beamproof_api::DatasetData::Points(_))
+            && !analyses.iter().any(|x| x.plugin == "point-dose")
+        {
+            analyses.extend(with_defaults("point-dose"));
         }
         if analyses.is_empty() {
             notes.push(not_compared(
