@@ -200,6 +200,8 @@ pub struct View {
     pub verdict: String,
     /// What the verdict requires, said in words on the verdict page.
     pub verdict_rule: String,
+    /// What kind of report this is, for the title page.
+    pub report_kind: String,
     /// Remarks on the run as a whole (a matching run's differences and tests not compared).
     pub notes: Vec<String>,
     pub counts: Vec<Count>,
@@ -404,6 +406,11 @@ impl View {
                 _ => "GO requires that no test failed and none could not be analysed. Reasons:".into(),
             },
             notes: s.notes.clone(),
+            report_kind: if s.verdict.contains("MATCHED") {
+                "MACHINE MATCHING REPORT".into()
+            } else {
+                "COMMISSIONING REPORT".into()
+            },
             counts: [
                 ("PASS", s.pass),
                 ("WARN", s.warn),
