@@ -66,6 +66,12 @@ fn demo_lin_b_is_go_with_a_warning() {
             "standard-fields/profile-6x-10x10-x: WARN",
             "standard-fields/profile-6x-5x5-x: WARN",
             "standard-fields/profile-6x-20x20-x: WARN",
+            "standard-fields/profile-6x-10x10-x-d15: WARN",
+            "standard-fields/profile-6x-10x10-x-d50: WARN",
+            "standard-fields/profile-6x-10x10-x-d200: WARN",
+            "standard-fields/profile-10fff-10x10-x-d15: WARN",
+            "standard-fields/profile-10fff-10x10-x-d50: WARN",
+            "standard-fields/profile-10fff-10x10-x-d200: WARN",
             "monitor-units/mu-6x-plan: WARN"
         ])
     );

@@ -543,6 +543,54 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             &mut out,
         )?;
     }
+    // Crossplane profiles of the 10 x 10 cm field at 15, 50 and 200 mm depth for both beams:
+    // the field widens with divergence (SSD 90 cm) and the 6 MV horns fade with depth.
+    for (beam, fff) in [("6x", false), ("10fff", true)] {
+        for depth in [15.0, 50.0, 200.0] {
+            let half = 50.0 * (900.0 + depth) / 1000.0;
+            let horn = 1.3 - 0.003 * depth;
+            let f = move |x: f64, widen: f64| {
+                let h = half + widen;
+                if fff {
+                    100.0 * shape(x, 0.0, h, true) / shape(0.0, 0.0, h, true)
+                } else {
+                    let s = |x: f64| {
+                        let e = shape(x, 0.0, h, false);
+                        // Rescale the horn term of `shape` by the depth factor.
+                        (e - 0.03) / (1.0 + 0.0004 * x * x / 10.0)
+                            * (1.0 + horn * 0.0004 * x * x / 10.0)
+                            + 0.03
+                    };
+                    100.0 * s(x) / s(0.0)
+                }
+            };
+            let name = format!("profile-{beam}-10x10-x-d{depth:.0}");
+            write(
+                dir,
+                &format!("tps/{name}.csv"),
+                curve_csv("x", &xs, |x| f(x, 0.0), &format!("calculated {name}")).as_bytes(),
+                &mut out,
+            )?;
+            for m in &MACHINES {
+                let grain: Vec<f64> = xs.iter().map(|_| noise.normal(0.002)).collect();
+                let text = curve_csv(
+                    "x",
+                    &xs,
+                    |x| {
+                        let i = xs.iter().position(|&q| q == x).unwrap_or(0);
+                        f(x, m.widen) * (1.0 + grain[i])
+                    },
+                    &format!("water-tank scan {name}, {}", m.id),
+                );
+                write(
+                    dir,
+                    &format!("{}/{name}.csv", m.id),
+                    text.as_bytes(),
+                    &mut out,
+                )?;
+            }
+        }
+    }
     // The three-field 6 MV plan of the MU check: AP open 10 x 10, an L-shaped oblique field
     // (the upper half of the leaves closed to the axis) and a wedged PA field, on 1 cm leaves.
     let open = |half: f64| -> Vec<f64> {
