@@ -216,6 +216,56 @@ fn write(dir: &Path, rel: &str, bytes: &[u8], out: &mut Vec<PathBuf>) -> Result<
     Ok(())
 }
 
+/// A calculated curve (`tps/NAME.csv`) and each machine's measured scan of it
+/// (`MACHINE/NAME.csv`) with 0.2 % seeded noise drawn per machine in position order.
+struct ScanSet<'a> {
+    name: &'a str,
+    axis: &'a str,
+    positions: &'a [f64],
+    /// Description of the calculated curve, and the prefix of the measured ones' (", machine"
+    /// follows).
+    notes: (&'a str, &'a str),
+}
+
+impl ScanSet<'_> {
+    fn write(
+        &self,
+        dir: &Path,
+        out: &mut Vec<PathBuf>,
+        noise: &mut Noise,
+        calc: impl Fn(f64) -> f64,
+        measured: impl Fn(&Machine, f64) -> f64,
+    ) -> Result<(), String> {
+        let text = curve_csv(self.axis, self.positions, calc, self.notes.0);
+        write(dir, &format!("tps/{}.csv", self.name), text.as_bytes(), out)?;
+        for m in &MACHINES {
+            let grain: Vec<f64> = self.positions.iter().map(|_| noise.normal(0.002)).collect();
+            let values: Vec<f64> = self
+                .positions
+                .iter()
+                .zip(&grain)
+                .map(|(&p, g)| measured(m, p) * (1.0 + g))
+                .collect();
+            let text = curve_csv(
+                self.axis,
+                self.positions,
+                |p| {
+                    let i = self.positions.iter().position(|&q| q == p).unwrap_or(0);
+                    values[i]
+                },
+                &format!("{}, {}", self.notes.1, m.id),
+            );
+            write(
+                dir,
+                &format!("{}/{}.csv", m.id, self.name),
+                text.as_bytes(),
+                out,
+            )?;
+        }
+        Ok(())
+    }
+}
+
 /// Write every demo data file under `dir` (the campaign's `data/` folder); returns the paths.
 pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     let mut out = Vec::new();
@@ -301,147 +351,73 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     // Depth dose on the central axis in percent of the maximum; measured with 0.2 % noise.
     let depths = steps(0.0, 250.0, 2.0);
     let max = depths.iter().map(|&d| depth_factor(d)).fold(0.0, f64::max);
-    write(
-        dir,
-        "tps/pdd-6x-10x10.csv",
-        curve_csv(
-            "depth",
-            &depths,
-            |d| 100.0 * depth_factor(d) / max,
-            "calculated depth dose",
-        )
-        .as_bytes(),
-        &mut out,
-    )?;
-    for m in &MACHINES {
-        let grain: Vec<f64> = depths.iter().map(|_| noise.normal(0.002)).collect();
-        let text = curve_csv(
-            "depth",
-            &depths,
-            |d| {
-                let i = depths.iter().position(|&x| x == d).unwrap_or(0);
-                100.0 * depth_factor(d) / max * (1.0 + grain[i])
-            },
-            &format!("water-tank depth dose, {}", m.id),
-        );
-        write(
-            dir,
-            &format!("{}/pdd-6x-10x10.csv", m.id),
-            text.as_bytes(),
-            &mut out,
-        )?;
+    let pdd = |d: f64| 100.0 * depth_factor(d) / max;
+    ScanSet {
+        name: "pdd-6x-10x10",
+        axis: "depth",
+        positions: &depths,
+        notes: ("calculated depth dose", "water-tank depth dose"),
     }
+    .write(dir, &mut out, &mut noise, pdd, |_, d| pdd(d))?;
     // Crossplane profile at 10 cm depth, 1 mm steps, percent of the central axis; lin-b's
     // field is wider on each side.
     let xs = steps(-90.0, 90.0, 1.0);
     let cax = dose_iec(0.0, 0.0, 0.0);
-    write(
-        dir,
-        "tps/profile-6x-10x10-x.csv",
-        curve_csv(
-            "x",
-            &xs,
-            |x| 100.0 * dose_iec(x, 0.0, 0.0) / cax,
+    ScanSet {
+        name: "profile-6x-10x10-x",
+        axis: "x",
+        positions: &xs,
+        notes: (
             "calculated crossplane profile",
-        )
-        .as_bytes(),
-        &mut out,
-    )?;
-    for m in &MACHINES {
-        let grain: Vec<f64> = xs.iter().map(|_| noise.normal(0.002)).collect();
-        let scale = (50.0 + m.widen) / 50.0;
-        let text = curve_csv(
-            "x",
-            &xs,
-            |x| {
-                let i = xs.iter().position(|&p| p == x).unwrap_or(0);
-                100.0 * dose_iec(x / scale, 0.0, 0.0) / cax * (1.0 + grain[i])
-            },
-            &format!("water-tank crossplane profile, {}", m.id),
-        );
-        write(
-            dir,
-            &format!("{}/profile-6x-10x10-x.csv", m.id),
-            text.as_bytes(),
-            &mut out,
-        )?;
+            "water-tank crossplane profile",
+        ),
     }
+    .write(
+        dir,
+        &mut out,
+        &mut noise,
+        |x| 100.0 * dose_iec(x, 0.0, 0.0) / cax,
+        |m, x| 100.0 * dose_iec(x / ((50.0 + m.widen) / 50.0), 0.0, 0.0) / cax,
+    )?;
     // More scans, after the original ones so that their noise is unchanged: 6 MV crossplane
     // profiles of 5 x 5 and 20 x 20 cm fields, and the 10 MV FFF beam's depth dose and 10 x 10
     // profile. Measured scans carry 0.2 % noise; lin-b's fields are slightly wider.
-    let fff_depths = steps(0.0, 250.0, 2.0);
-    let fff_max = fff_depths
+    let fff_max = depths
         .iter()
         .map(|&d| depth_factor_fff(d))
         .fold(0.0, f64::max);
     let pdd_fff = |d: f64| 100.0 * depth_factor_fff(d) / fff_max;
-    write(
-        dir,
-        "tps/pdd-10fff-10x10.csv",
-        curve_csv(
-            "depth",
-            &fff_depths,
-            pdd_fff,
+    ScanSet {
+        name: "pdd-10fff-10x10",
+        axis: "depth",
+        positions: &depths,
+        notes: (
             "calculated depth dose, 10 MV FFF",
-        )
-        .as_bytes(),
-        &mut out,
-    )?;
-    for m in &MACHINES {
-        let grain: Vec<f64> = fff_depths.iter().map(|_| noise.normal(0.002)).collect();
-        let text = curve_csv(
-            "depth",
-            &fff_depths,
-            |d| {
-                let i = fff_depths.iter().position(|&x| x == d).unwrap_or(0);
-                pdd_fff(d) * (1.0 + grain[i])
-            },
-            &format!("water-tank depth dose, 10 MV FFF, {}", m.id),
-        );
-        write(
-            dir,
-            &format!("{}/pdd-10fff-10x10.csv", m.id),
-            text.as_bytes(),
-            &mut out,
-        )?;
+            "water-tank depth dose, 10 MV FFF",
+        ),
     }
+    .write(dir, &mut out, &mut noise, pdd_fff, |_, d| pdd_fff(d))?;
     let wide = steps(-160.0, 160.0, 1.0);
     for (name, half, fff, positions) in [
         ("6x-5x5", 25.0, false, &xs),
         ("6x-20x20", 100.0, false, &wide),
         ("10fff-10x10", 50.0, true, &xs),
     ] {
-        write(
-            dir,
-            &format!("tps/profile-{name}-x.csv"),
-            curve_csv(
-                "x",
-                positions,
-                |x| profile_percent(x, half, fff),
-                &format!("calculated crossplane profile {name}"),
-            )
-            .as_bytes(),
-            &mut out,
-        )?;
-        for m in &MACHINES {
-            let grain: Vec<f64> = positions.iter().map(|_| noise.normal(0.002)).collect();
-            let scale = (half + m.widen / 2.0) / half;
-            let text = curve_csv(
-                "x",
-                positions,
-                |x| {
-                    let i = positions.iter().position(|&p| p == x).unwrap_or(0);
-                    profile_percent(x / scale, half, fff) * (1.0 + grain[i])
-                },
-                &format!("water-tank crossplane profile {name}, {}", m.id),
-            );
-            write(
-                dir,
-                &format!("{}/profile-{name}-x.csv", m.id),
-                text.as_bytes(),
-                &mut out,
-            )?;
+        let calc_note = format!("calculated crossplane profile {name}");
+        let meas_note = format!("water-tank crossplane profile {name}");
+        ScanSet {
+            name: &format!("profile-{name}-x"),
+            axis: "x",
+            positions,
+            notes: (&calc_note, &meas_note),
         }
+        .write(
+            dir,
+            &mut out,
+            &mut noise,
+            |x| profile_percent(x, half, fff),
+            |m, x| profile_percent(x / ((half + m.widen / 2.0) / half), half, fff),
+        )?;
     }
     // Oblique incidence, a low-density slab and an asymmetric half-blocked field, for both
     // beams. The planning system's slab density is 0.32 where the (invented) truth is 0.30;
@@ -472,44 +448,33 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
         ];
         for (name, axis, positions, f) in &scans {
             let slab = name.starts_with("slab");
-            let tps_param = if slab { 0.32 } else { 0.0 };
-            write(
-                dir,
-                &format!("tps/{name}.csv"),
-                curve_csv(
-                    axis,
-                    positions,
-                    |p| f(p, tps_param),
-                    &format!("calculated {name}"),
-                )
-                .as_bytes(),
-                &mut out,
-            )?;
-            for m in &MACHINES {
-                let grain: Vec<f64> = positions.iter().map(|_| noise.normal(0.002)).collect();
-                let param = if slab {
-                    0.30
-                } else if name.starts_with("asym") && m.id == "lin-b" {
-                    0.4
-                } else {
-                    0.0
-                };
-                let text = curve_csv(
-                    axis,
-                    positions,
-                    |p| {
-                        let i = positions.iter().position(|&q| q == p).unwrap_or(0);
-                        f(p, param) * (1.0 + grain[i])
-                    },
-                    &format!("water-tank scan {name}, {}", m.id),
-                );
-                write(
-                    dir,
-                    &format!("{}/{name}.csv", m.id),
-                    text.as_bytes(),
-                    &mut out,
-                )?;
+            let asym = name.starts_with("asym");
+            let (calc_note, meas_note) = (
+                format!("calculated {name}"),
+                format!("water-tank scan {name}"),
+            );
+            ScanSet {
+                name,
+                axis,
+                positions,
+                notes: (&calc_note, &meas_note),
             }
+            .write(
+                dir,
+                &mut out,
+                &mut noise,
+                |p| f(p, if slab { 0.32 } else { 0.0 }),
+                |m, p| {
+                    let param = if slab {
+                        0.30
+                    } else if asym && m.id == "lin-b" {
+                        0.4
+                    } else {
+                        0.0
+                    };
+                    f(p, param)
+                },
+            )?;
         }
     }
     // A breast-tangent-like plane (12 x 16 cm with a wedged gradient along x) measured on
@@ -565,30 +530,23 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
                 }
             };
             let name = format!("profile-{beam}-10x10-x-d{depth:.0}");
-            write(
-                dir,
-                &format!("tps/{name}.csv"),
-                curve_csv("x", &xs, |x| f(x, 0.0), &format!("calculated {name}")).as_bytes(),
-                &mut out,
-            )?;
-            for m in &MACHINES {
-                let grain: Vec<f64> = xs.iter().map(|_| noise.normal(0.002)).collect();
-                let text = curve_csv(
-                    "x",
-                    &xs,
-                    |x| {
-                        let i = xs.iter().position(|&q| q == x).unwrap_or(0);
-                        f(x, m.widen) * (1.0 + grain[i])
-                    },
-                    &format!("water-tank scan {name}, {}", m.id),
-                );
-                write(
-                    dir,
-                    &format!("{}/{name}.csv", m.id),
-                    text.as_bytes(),
-                    &mut out,
-                )?;
+            let (calc_note, meas_note) = (
+                format!("calculated {name}"),
+                format!("water-tank scan {name}"),
+            );
+            ScanSet {
+                name: &name,
+                axis: "x",
+                positions: &xs,
+                notes: (&calc_note, &meas_note),
             }
+            .write(
+                dir,
+                &mut out,
+                &mut noise,
+                |x| f(x, 0.0),
+                |m, x| f(x, m.widen),
+            )?;
         }
     }
     // The three-field 6 MV plan of the MU check: AP open 10 x 10, an L-shaped oblique field
