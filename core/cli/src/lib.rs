@@ -408,13 +408,7 @@ fn run_campaign(
     }
     let pdf = write_run(&out, &c, &prepared, &record.to_json())?;
     let s = &record.summary;
-    outln!(io, "run folder: {}", out.display());
-    outln!(
-        io,
-        "report: {} (SHA-256 {})",
-        out.join("report.pdf").display(),
-        beamproof_engine::checksum::sha256_hex(&pdf)
-    );
+    print_folder(io, "run folder", &out, &pdf);
     outln!(
         io,
         "machine {} · {} tests: {} pass, {} warn, {} fail, {} error",
@@ -515,6 +509,17 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
     })
 }
 
+/// Where a run was written, and its report's checksum.
+fn print_folder(io: &mut Io, label: &str, out: &Path, pdf: &[u8]) {
+    outln!(io, "{label}: {}", out.display());
+    outln!(
+        io,
+        "report: {} (SHA-256 {})",
+        out.join("report.pdf").display(),
+        beamproof_engine::checksum::sha256_hex(pdf)
+    );
+}
+
 /// Render the report and the HTML summary from the results and write the run folder (results,
 /// report, its checksum, HTML, inputs, manifest) atomically; returns the report's bytes.
 fn write_run(
@@ -598,13 +603,7 @@ fn compare(
     }
     let pdf = write_run(&out, &c.campaign, &c.prepared, &c.record.to_json())?;
     let s = &c.record.summary;
-    outln!(io, "matching run folder: {}", out.display());
-    outln!(
-        io,
-        "report: {} (SHA-256 {})",
-        out.join("report.pdf").display(),
-        beamproof_engine::checksum::sha256_hex(&pdf)
-    );
+    print_folder(io, "matching run folder", &out, &pdf);
     outln!(
         io,
         "{} · {} tests compared: {} pass, {} warn, {} fail, {} error",
