@@ -69,6 +69,19 @@ pub fn depth_factor_fff(d_mm: f64) -> f64 {
     build * (-0.0040 * (d_mm - 24.0).max(0.0)).exp()
 }
 
+/// Relative depth dose of a square field of side `side_mm`: beyond the maximum, smaller fields
+/// attenuate faster (less phantom scatter) by 0.06 % per mm per unit of ln(100 mm / side);
+/// the 10 x 10 cm field is `depth_factor` or `depth_factor_fff` itself.
+pub fn depth_factor_sized(d_mm: f64, side_mm: f64, fff: bool) -> f64 {
+    let (base, dmax) = if fff {
+        (depth_factor_fff(d_mm), 24.0)
+    } else {
+        (depth_factor(d_mm), 15.0)
+    };
+    let k = 0.0006 * (100.0 / side_mm).ln();
+    base * (-k * (d_mm - dmax).max(0.0)).exp()
+}
+
 /// The flattening-filter-free shape across one axis.
 pub fn edge_fff(u_mm: f64, half_mm: f64) -> f64 {
     let s = std::f64::consts::SQRT_2 * 2.5;
@@ -507,6 +520,49 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             text.as_bytes(),
             &mut out,
         )?;
+    }
+    // The smallest and largest square fields, 2 x 2 and 30 x 30 cm, for both beams: depth dose
+    // and crossplane profile at 10 cm.
+    for (beam, fff) in [("6x", false), ("10fff", true)] {
+        for (side, positions) in [(20.0, &xs), (300.0, &wide)] {
+            let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
+            let max = depths
+                .iter()
+                .map(|&d| depth_factor_sized(d, side, fff))
+                .fold(0.0, f64::max);
+            let pdd = |d: f64| 100.0 * depth_factor_sized(d, side, fff) / max;
+            let name = format!("pdd-{beam}-{size}");
+            let (calc_note, meas_note) = (
+                format!("calculated {name}"),
+                format!("water-tank scan {name}"),
+            );
+            ScanSet {
+                name: &name,
+                axis: "depth",
+                positions: &depths,
+                notes: (&calc_note, &meas_note),
+            }
+            .write(dir, &mut out, &mut noise, pdd, |_, d| pdd(d))?;
+            let half = side / 2.0;
+            let name = format!("profile-{beam}-{size}-x");
+            let (calc_note, meas_note) = (
+                format!("calculated {name}"),
+                format!("water-tank scan {name}"),
+            );
+            ScanSet {
+                name: &name,
+                axis: "x",
+                positions,
+                notes: (&calc_note, &meas_note),
+            }
+            .write(
+                dir,
+                &mut out,
+                &mut noise,
+                |x| profile_percent(x, half, fff),
+                |m, x| profile_percent(x / ((half + m.widen) / half), half, fff),
+            )?;
+        }
     }
     // Crossplane profiles of the 10 x 10 cm field at 15, 50 and 200 mm depth for both beams:
     // the field widens with divergence (SSD 90 cm) and the 6 MV horns fade with depth.
