@@ -661,44 +661,45 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
         },
     ];
     // An irregular (L-shaped) field measured with a detector array in the isocentre plane,
-    // 10 mm detector pitch, against the calculated 3D dose. lin-a's bank B is off by a
-    // deliberate 1.5 mm; both arrays read with 0.5 % noise.
-    write(
-        dir,
-        "tps/l-field-6x.dcm",
-        &rtdose::grid("l-field-6x.dcm", ISO, |x, y, z| l_field(x, y, z, 0.0))
-            .map_err(|e| format!("RT Dose: {e}"))?,
-        &mut out,
-    )?;
+    // 10 mm detector pitch, against the calculated 3D dose, for both beams. lin-a's bank B is
+    // off by a deliberate 1.5 mm; both arrays read with 0.5 % noise.
     let pitch = steps(-70.0, 70.0, 10.0);
-    for (m, offset) in MACHINES.iter().zip([1.5, 0.0]) {
-        let mut rows = Vec::new();
-        for &y in &pitch {
-            for &x in &pitch {
-                rows.push((
-                    x,
-                    y,
-                    l_field(x, y, 0.0, offset) * (1.0 + noise.normal(0.005)),
-                ));
-            }
-        }
-        let labels: Vec<String> = (1..=rows.len()).map(|i| format!("d{i:03}")).collect();
-        let points: Vec<Point> = rows
-            .iter()
-            .zip(&labels)
-            .map(|(&(x, y, d), l)| (l.as_str(), x, y, 0.0, d))
-            .collect();
+    let fields: [(&str, fn(f64, f64, f64, f64) -> f64); 2] =
+        [("6x", l_field), ("10fff", l_field_fff)];
+    for (beam, field) in fields {
+        let grid_name = format!("l-field-{beam}.dcm");
         write(
             dir,
-            &format!("{}/array-l-field-6x.csv", m.id),
-            points_csv(
-                &points,
-                "Gy",
-                &format!("detector array, L-shaped field, {}", m.id),
-            )
-            .as_bytes(),
+            &format!("tps/{grid_name}"),
+            &rtdose::grid(&grid_name, ISO, |x, y, z| field(x, y, z, 0.0))
+                .map_err(|e| format!("RT Dose: {e}"))?,
             &mut out,
         )?;
+        for (m, offset) in MACHINES.iter().zip([1.5, 0.0]) {
+            let mut rows = Vec::new();
+            for &y in &pitch {
+                for &x in &pitch {
+                    rows.push((x, y, field(x, y, 0.0, offset) * (1.0 + noise.normal(0.005))));
+                }
+            }
+            let labels: Vec<String> = (1..=rows.len()).map(|i| format!("d{i:03}")).collect();
+            let points: Vec<Point> = rows
+                .iter()
+                .zip(&labels)
+                .map(|(&(x, y, d), l)| (l.as_str(), x, y, 0.0, d))
+                .collect();
+            let note = if beam == "6x" {
+                format!("detector array, L-shaped field, {}", m.id)
+            } else {
+                format!("detector array, L-shaped field, 10 MV FFF, {}", m.id)
+            };
+            write(
+                dir,
+                &format!("{}/array-l-field-{beam}.csv", m.id),
+                points_csv(&points, "Gy", &note).as_bytes(),
+                &mut out,
+            )?;
+        }
     }
     write(
         dir,
@@ -764,6 +765,18 @@ pub fn l_field(x: f64, y: f64, z: f64, bank_b_mm: f64) -> f64 {
     let lower = rect(-50.0, 50.0 + bank_b_mm, -50.0, 0.0);
     let upper = rect(-50.0, bank_b_mm, 0.0, 50.0);
     D_ISO * depth_factor(depth) / depth_factor(100.0) * lower.max(upper)
+}
+
+/// The same L-shaped field with the 10 MV FFF beam (cone-shaped about the beam axis).
+pub fn l_field_fff(x: f64, y: f64, z: f64, bank_b_mm: f64) -> f64 {
+    let depth = 100.0 - z;
+    let rect = |x0: f64, x1: f64, y0: f64, y1: f64| {
+        shape(x, (x0 + x1) / 2.0, (x1 - x0) / 2.0, true)
+            * shape(y, (y0 + y1) / 2.0, (y1 - y0) / 2.0, true)
+    };
+    let lower = rect(-50.0, 50.0 + bank_b_mm, -50.0, 0.0);
+    let upper = rect(-50.0, bank_b_mm, 0.0, 50.0);
+    D_ISO * depth_factor_fff(depth) / depth_factor_fff(100.0) * lower.max(upper)
 }
 
 /// The planning system's dose at the isocentre per beam of the three-field plan (invented:
