@@ -129,6 +129,9 @@ fn steps(from: f64, to: f64, step: f64) -> Vec<f64> {
 
 type Point<'a> = (&'a str, f64, f64, f64, f64);
 
+/// Dose of a shaped field at (x, y, z) with bank B moved by the last argument (mm).
+type FieldDose = fn(f64, f64, f64, f64) -> f64;
+
 /// A scan of the demo: file name, curve axis, positions, and the relative dose at a position
 /// for a parameter (slab density, or field widening).
 type Scan<'a> = (String, &'a str, Vec<f64>, Box<dyn Fn(f64, f64) -> f64>);
@@ -664,8 +667,7 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     // 10 mm detector pitch, against the calculated 3D dose, for both beams. lin-a's bank B is
     // off by a deliberate 1.5 mm; both arrays read with 0.5 % noise.
     let pitch = steps(-70.0, 70.0, 10.0);
-    let fields: [(&str, fn(f64, f64, f64, f64) -> f64); 2] =
-        [("6x", l_field), ("10fff", l_field_fff)];
+    let fields: [(&str, FieldDose); 2] = [("6x", l_field), ("10fff", l_field_fff)];
     for (beam, field) in fields {
         let grid_name = format!("l-field-{beam}.dcm");
         write(
