@@ -8,6 +8,7 @@ mod dynamic_plugins;
 mod gamma_cmd;
 mod gamma_crosscheck;
 mod mu_check;
+mod newcomer;
 mod report_content;
 mod report_templates;
 mod rtdose_reader;
