@@ -703,6 +703,53 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
             )?;
         }
     }
+    // A spine SBRT-like 3 x 3 cm 10 MV FFF field on a 2 mm dose grid, measured with a
+    // detector array of 5 mm pitch: lin-a's array sits 0.5 mm off in y, lin-b reads 1 % high;
+    // both with 0.5 % noise.
+    let sbrt = |x: f64, y: f64, z: f64| {
+        D_ISO * depth_factor_fff(100.0 - z) / depth_factor_fff(100.0)
+            * shape(x, 0.0, 15.0, true)
+            * shape(y, 0.0, 15.0, true)
+    };
+    write(
+        dir,
+        "tps/spine-sbrt-10fff.dcm",
+        &rtdose::grid_on(
+            "spine-sbrt-10fff.dcm",
+            ISO,
+            [(40.0, 2.0), (40.0, 2.0), (40.0, 2.0)],
+            sbrt,
+        )
+        .map_err(|e| format!("RT Dose: {e}"))?,
+        &mut out,
+    )?;
+    let fine = steps(-30.0, 30.0, 5.0);
+    for (m, (shift, scale)) in MACHINES.iter().zip([(0.5, 1.0), (0.0, 1.01)]) {
+        let mut rows = Vec::new();
+        for &y in &fine {
+            for &x in &fine {
+                let d = scale * sbrt(x, y - shift, 0.0) * (1.0 + noise.normal(0.005));
+                rows.push((x, y, d));
+            }
+        }
+        let labels: Vec<String> = (1..=rows.len()).map(|i| format!("s{i:03}")).collect();
+        let points: Vec<Point> = rows
+            .iter()
+            .zip(&labels)
+            .map(|(&(x, y, d), l)| (l.as_str(), x, y, 0.0, d))
+            .collect();
+        write(
+            dir,
+            &format!("{}/array-spine-sbrt-10fff.csv", m.id),
+            points_csv(
+                &points,
+                "Gy",
+                &format!("detector array, spine SBRT field, {}", m.id),
+            )
+            .as_bytes(),
+            &mut out,
+        )?;
+    }
     write(
         dir,
         "tps/plan-3field-6x.dcm",

@@ -39,18 +39,25 @@ pub fn grid(
     iso: [f64; 3],
     dose: impl Fn(f64, f64, f64) -> f64,
 ) -> Result<Vec<u8>, String> {
-    let xs: Vec<f64> = crate::steps(-80.0, 80.0, 4.0)
-        .iter()
-        .map(|v| v + iso[0])
-        .collect();
-    let ys: Vec<f64> = crate::steps(-100.0, 100.0, 5.0)
-        .iter()
-        .map(|v| v + iso[1])
-        .collect();
-    let zs: Vec<f64> = crate::steps(-80.0, 80.0, 5.0)
-        .iter()
-        .map(|v| v + iso[2])
-        .collect();
+    grid_on(name, iso, [(80.0, 4.0), (100.0, 5.0), (80.0, 5.0)], dose)
+}
+
+/// A dose grid on columns, rows and frames spanning +-extent around the isocentre with the
+/// given spacing, each `(extent, spacing)` in mm along patient x, y and z.
+pub fn grid_on(
+    name: &str,
+    iso: [f64; 3],
+    axes: [(f64, f64); 3],
+    dose: impl Fn(f64, f64, f64) -> f64,
+) -> Result<Vec<u8>, String> {
+    let axis = |a: usize| -> Vec<f64> {
+        let (extent, step) = axes[a];
+        crate::steps(-extent, extent, step)
+            .iter()
+            .map(|v| v + iso[a])
+            .collect()
+    };
+    let (xs, ys, zs) = (axis(0), axis(1), axis(2));
     let scaling = 1e-6;
     let mut pixels = Vec::with_capacity(xs.len() * ys.len() * zs.len() * 4);
     for pz in &zs {
@@ -105,7 +112,11 @@ pub fn grid(
             VR::DS,
             ds_list(&[1.0, 0.0, 0.0, 0.0, 1.0, 0.0]),
         ),
-        DataElement::new(tags::PIXEL_SPACING, VR::DS, ds_list(&[5.0, 4.0])),
+        DataElement::new(
+            tags::PIXEL_SPACING,
+            VR::DS,
+            ds_list(&[axes[1].1, axes[0].1]),
+        ),
         DataElement::new(tags::BITS_ALLOCATED, VR::US, PrimitiveValue::from(32u16)),
         DataElement::new(tags::BITS_STORED, VR::US, PrimitiveValue::from(32u16)),
         DataElement::new(tags::HIGH_BIT, VR::US, PrimitiveValue::from(31u16)),
