@@ -528,6 +528,30 @@ impl<'f> Decoder<'f> {
         }
     }
 
+    /// Decode every item of a list, reporting and dropping an item whose id an earlier one
+    /// already has (`message` holds `{}` for the id).
+    fn unique<T>(
+        &mut self,
+        items: &[Node],
+        mut decode: impl FnMut(&mut Self, &Node) -> Option<T>,
+        id: impl Fn(&T) -> &String,
+        message: &str,
+        help: &str,
+    ) -> Vec<T> {
+        let mut out: Vec<T> = Vec::new();
+        for item in items {
+            let Some(v) = decode(self, item) else {
+                continue;
+            };
+            if out.iter().any(|o| id(o) == id(&v)) {
+                self.report(item, message.replacen("{}", id(&v), 1), help);
+            } else {
+                out.push(v);
+            }
+        }
+        out
+    }
+
     pub(crate) fn list<'a>(&mut self, n: &'a Node, what: &str) -> Option<&'a [Node]> {
         match &n.value {
             Value::Seq(items) => Some(items),
@@ -686,21 +710,13 @@ impl<'f> Decoder<'f> {
             self.report(n, "`machines` is empty", "describe at least one machine");
             return None;
         }
-        let mut out: Vec<Machine> = Vec::new();
-        for item in items {
-            let Some(m) = self.machine(item) else {
-                continue;
-            };
-            if out.iter().any(|o| o.id == m.id) {
-                self.report(
-                    item,
-                    format!("machine id `{}` is used twice", m.id),
-                    "give each machine its own id",
-                );
-            }
-            out.push(m);
-        }
-        Some(out)
+        Some(self.unique(
+            items,
+            Self::machine,
+            |m| &m.id,
+            "machine id `{}` is used twice",
+            "give each machine its own id",
+        ))
     }
 
     fn machine(&mut self, n: &Node) -> Option<Machine> {
@@ -714,21 +730,13 @@ impl<'f> Decoder<'f> {
         let beams_node = self.required(&f, "beams", "add `beams:` listing the machine's beams");
         let beams = beams_node.and_then(|b| {
             let items = self.list(b, "`beams`")?;
-            let mut out: Vec<Beam> = Vec::new();
-            for item in items {
-                match self.beam(item) {
-                    Some(beam) if out.iter().any(|o| o.id == beam.id) => {
-                        self.report(
-                            item,
-                            format!("beam id `{}` is used twice", beam.id),
-                            "give each beam of a machine its own id",
-                        );
-                    }
-                    Some(beam) => out.push(beam),
-                    None => {}
-                }
-            }
-            Some(out)
+            Some(self.unique(
+                items,
+                Self::beam,
+                |b| &b.id,
+                "beam id `{}` is used twice",
+                "give each beam of a machine its own id",
+            ))
         });
         Some(Machine {
             id: id?,
@@ -898,21 +906,13 @@ impl<'f> Decoder<'f> {
             self.report(n, "`sites` is empty", "add at least one site with tests");
             return None;
         }
-        let mut out: Vec<Site> = Vec::new();
-        for item in items {
-            match self.site(item, criteria) {
-                Some(s) if out.iter().any(|o| o.id == s.id) => {
-                    self.report(
-                        item,
-                        format!("site id `{}` is used twice", s.id),
-                        "give each site its own id",
-                    );
-                }
-                Some(s) => out.push(s),
-                None => {}
-            }
-        }
-        Some(out)
+        Some(self.unique(
+            items,
+            |d, item| d.site(item, criteria),
+            |s| &s.id,
+            "site id `{}` is used twice",
+            "give each site its own id",
+        ))
     }
 
     fn site(&mut self, n: &Node, criteria: &[String]) -> Option<Site> {
@@ -927,21 +927,13 @@ impl<'f> Decoder<'f> {
             .required(&f, "tests", "add `tests:` listing the site's tests")
             .and_then(|t| {
                 let items = self.list(t, "`tests`")?;
-                let mut out: Vec<TestSpec> = Vec::new();
-                for item in items {
-                    match self.test(item, criteria) {
-                        Some(s) if out.iter().any(|o| o.id == s.id) => {
-                            self.report(
-                                item,
-                                format!("test id `{}` is used twice in this site", s.id),
-                                "give each test of a site its own id",
-                            );
-                        }
-                        Some(s) => out.push(s),
-                        None => {}
-                    }
-                }
-                Some(out)
+                Some(self.unique(
+                    items,
+                    |d, item| d.test(item, criteria),
+                    |t| &t.id,
+                    "test id `{}` is used twice in this site",
+                    "give each test of a site its own id",
+                ))
             });
         Some(Site {
             id: id?,
@@ -1412,5 +1404,44 @@ mod tests {
         assert!(!valid_iso_date("2100-02-29"));
         assert!(!valid_iso_date("2026-13-01"));
         assert!(!valid_iso_date("2026-1-01"));
+    }
+
+    #[test]
+    fn duplicate_ids_are_reported_once_each_at_the_second_use() {
+        // Convention (common practice, no source): ids identify machines, beams, sites and
+        // tests, so a repeated id is an error at its second occurrence.
+        let dir = std::env::temp_dir().join(format!("beamproof-dup-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).expect("dir");
+        let path = dir.join("campaign.yaml");
+        let test = |id: &str| {
+            format!(
+                "      - {{id: {id}, name: t, kind: point-dose, measured: m.csv, calculated: c.csv, criteria: c, analyses: [point-dose]}}\n"
+            )
+        };
+        let text = format!(
+            "beamproof-campaign: 1\nid: dup\ntitle: t\ninstitution: i\ntps: {{name: n, version: '1', beam-model: b}}\nmachines:\n  - id: m1\n    beams:\n      - {{id: b1, modality: photon, energy: 6}}\n      - {{id: b1, modality: photon, energy: 10}}\n  - id: m1\n    beams: [{{id: b2, modality: photon, energy: 6}}]\ncriteria:\n  c: {{dose-difference-percent: {{tolerance: 1, action: 2}}}}\nsites:\n  - id: s\n    name: s\n    tests:\n{}{}  - id: s\n    name: s2\n    tests:\n{}",
+            test("t1"),
+            test("t1"),
+            test("t2")
+        );
+        std::fs::write(&path, text).expect("write");
+        let (c, diags) = Campaign::load_partial(&path);
+        let _ = std::fs::remove_dir_all(&dir);
+        let found: Vec<(usize, &str)> =
+            diags.iter().map(|d| (d.line, d.message.as_str())).collect();
+        assert_eq!(
+            found,
+            [
+                (10, "beam id `b1` is used twice"),
+                (11, "machine id `m1` is used twice"),
+                (20, "test id `t1` is used twice in this site"),
+                (21, "site id `s` is used twice"),
+            ]
+        );
+        let c = c.expect("decoded");
+        assert_eq!(c.machines.len(), 1);
+        assert_eq!(c.machines[0].beams.len(), 1);
+        assert_eq!(c.sites.len(), 1);
+        assert_eq!(c.sites[0].tests.len(), 1);
     }
 }
