@@ -76,6 +76,19 @@ fn demo_lin_b_is_go_with_a_warning() {
             "standard-fields/profile-6x-30x30-x: WARN",
             "standard-fields/profile-10fff-2x2-x: WARN",
             "standard-fields/profile-10fff-30x30-x: WARN",
+            "standard-fields/profile-6x-2x2-x-d50: WARN",
+            "standard-fields/profile-6x-2x2-x-d200: WARN",
+            "standard-fields/profile-6x-5x5-x-d50: WARN",
+            "standard-fields/profile-6x-5x5-x-d200: WARN",
+            "standard-fields/profile-6x-30x30-x-d50: WARN",
+            "standard-fields/profile-6x-30x30-x-d200: WARN",
+            "standard-fields/profile-10fff-2x2-x-d50: WARN",
+            "standard-fields/profile-10fff-2x2-x-d200: WARN",
+            "standard-fields/profile-10fff-5x5-x-d50: WARN",
+            "standard-fields/profile-10fff-5x5-x-d200: WARN",
+            "standard-fields/profile-10fff-30x30-x-d50: WARN",
+            "standard-fields/profile-10fff-30x30-x-d200: WARN",
+            "standard-fields/profile-10fff-5x5-x: WARN",
             "monitor-units/mu-6x-plan: WARN"
         ])
     );

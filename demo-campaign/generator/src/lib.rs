@@ -570,84 +570,14 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     // and crossplane profile at 10 cm.
     for (beam, fff) in [("6x", false), ("10fff", true)] {
         for (side, positions) in [(20.0, &xs), (300.0, &wide)] {
-            let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
-            let max = depths
-                .iter()
-                .map(|&d| depth_factor_sized(d, side, fff))
-                .fold(0.0, f64::max);
-            let pdd = |d: f64| 100.0 * depth_factor_sized(d, side, fff) / max;
-            let name = format!("pdd-{beam}-{size}");
-            let (calc_note, meas_note) = (
-                format!("calculated {name}"),
-                format!("water-tank scan {name}"),
-            );
-            ScanSet {
-                name: &name,
-                axis: "depth",
-                positions: &depths,
-                notes: (&calc_note, &meas_note),
-            }
-            .write(dir, &mut out, &mut noise, pdd, |_, d| pdd(d))?;
-            let half = side / 2.0;
-            let name = format!("profile-{beam}-{size}-x");
-            let (calc_note, meas_note) = (
-                format!("calculated {name}"),
-                format!("water-tank scan {name}"),
-            );
-            ScanSet {
-                name: &name,
-                axis: "x",
-                positions,
-                notes: (&calc_note, &meas_note),
-            }
-            .write(
-                dir,
-                &mut out,
-                &mut noise,
-                |x| profile_percent(x, half, fff),
-                |m, x| profile_percent(x / ((half + m.widen) / half), half, fff),
-            )?;
+            sized_field_scans(dir, &mut out, &mut noise, (beam, fff), side, positions)?;
         }
     }
     // Crossplane profiles of the 10 x 10 cm field at 15, 50 and 200 mm depth for both beams:
     // the field widens with divergence (SSD 90 cm) and the 6 MV horns fade with depth.
     for (beam, fff) in [("6x", false), ("10fff", true)] {
         for depth in [15.0, 50.0, 200.0] {
-            let half = 50.0 * (900.0 + depth) / 1000.0;
-            let horn = 1.3 - 0.003 * depth;
-            let f = move |x: f64, widen: f64| {
-                let h = half + widen;
-                if fff {
-                    100.0 * shape(x, 0.0, h, true) / shape(0.0, 0.0, h, true)
-                } else {
-                    let s = |x: f64| {
-                        let e = shape(x, 0.0, h, false);
-                        // Rescale the horn term of `shape` by the depth factor.
-                        (e - 0.03) / (1.0 + 0.0004 * x * x / 10.0)
-                            * (1.0 + horn * 0.0004 * x * x / 10.0)
-                            + 0.03
-                    };
-                    100.0 * s(x) / s(0.0)
-                }
-            };
-            let name = format!("profile-{beam}-10x10-x-d{depth:.0}");
-            let (calc_note, meas_note) = (
-                format!("calculated {name}"),
-                format!("water-tank scan {name}"),
-            );
-            ScanSet {
-                name: &name,
-                axis: "x",
-                positions: &xs,
-                notes: (&calc_note, &meas_note),
-            }
-            .write(
-                dir,
-                &mut out,
-                &mut noise,
-                |x| f(x, 0.0),
-                |m, x| f(x, m.widen),
-            )?;
+            depth_profile_scan(dir, &mut out, &mut noise, (beam, fff), 100.0, depth, &xs)?;
         }
     }
     // The three-field 6 MV plan of the MU check: AP open 10 x 10, an L-shaped oblique field
@@ -770,6 +700,7 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
         })?;
     }
     clinical_sites(dir, &mut out, &mut noise)?;
+    more_scans(dir, &mut out, &mut noise)?;
     write(
         dir,
         "tps/plan-3field-6x.dcm",
@@ -998,4 +929,157 @@ fn clinical_sites(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Resu
         })?;
     }
     Ok(())
+}
+
+/// A square field's depth dose (`pdd-BEAM-SIZE`) and crossplane profile at 10 cm depth
+/// (`profile-BEAM-SIZE-x`); lin-b's field is `widen` mm wider on each side.
+fn sized_field_scans(
+    dir: &Path,
+    out: &mut Vec<PathBuf>,
+    noise: &mut Noise,
+    (beam, fff): (&str, bool),
+    side: f64,
+    positions: &[f64],
+) -> Result<(), String> {
+    let depths = steps(0.0, 250.0, 2.0);
+    let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
+    let max = depths
+        .iter()
+        .map(|&d| depth_factor_sized(d, side, fff))
+        .fold(0.0, f64::max);
+    let pdd = |d: f64| 100.0 * depth_factor_sized(d, side, fff) / max;
+    let name = format!("pdd-{beam}-{size}");
+    let (calc_note, meas_note) = (
+        format!("calculated {name}"),
+        format!("water-tank scan {name}"),
+    );
+    ScanSet {
+        name: &name,
+        axis: "depth",
+        positions: &depths,
+        notes: (&calc_note, &meas_note),
+    }
+    .write(dir, out, noise, pdd, |_, d| pdd(d))?;
+    let half = side / 2.0;
+    let name = format!("profile-{beam}-{size}-x");
+    let (calc_note, meas_note) = (
+        format!("calculated {name}"),
+        format!("water-tank scan {name}"),
+    );
+    ScanSet {
+        name: &name,
+        axis: "x",
+        positions,
+        notes: (&calc_note, &meas_note),
+    }
+    .write(
+        dir,
+        out,
+        noise,
+        |x| profile_percent(x, half, fff),
+        |m, x| profile_percent(x / ((half + m.widen) / half), half, fff),
+    )
+}
+
+/// Crossplane profile of a square field of side `side` (mm, at the isocentre) at `depth` mm
+/// in percent of the central axis, SSD 90 cm: the field widens with divergence, the 6 MV
+/// horns fade with depth; `widen` moves each edge outwards (mm).
+pub fn depth_profile(x: f64, side: f64, depth: f64, widen: f64, fff: bool) -> f64 {
+    let half = side / 2.0 * (900.0 + depth) / 1000.0;
+    let horn = 1.3 - 0.003 * depth;
+    let h = half + widen;
+    if fff {
+        100.0 * shape(x, 0.0, h, true) / shape(0.0, 0.0, h, true)
+    } else {
+        let s = |x: f64| {
+            let e = shape(x, 0.0, h, false);
+            // Rescale the horn term of `shape` by the depth factor.
+            (e - 0.03) / (1.0 + 0.0004 * x * x / 10.0) * (1.0 + horn * 0.0004 * x * x / 10.0) + 0.03
+        };
+        100.0 * s(x) / s(0.0)
+    }
+}
+
+/// The scan set `profile-BEAM-SIZE-x-dDEPTH` of `depth_profile`; lin-b's edges sit `widen`
+/// further out.
+fn depth_profile_scan(
+    dir: &Path,
+    out: &mut Vec<PathBuf>,
+    noise: &mut Noise,
+    (beam, fff): (&str, bool),
+    side: f64,
+    depth: f64,
+    positions: &[f64],
+) -> Result<(), String> {
+    let name = format!(
+        "profile-{beam}-{:.0}x{:.0}-x-d{depth:.0}",
+        side / 10.0,
+        side / 10.0
+    );
+    let (calc_note, meas_note) = (
+        format!("calculated {name}"),
+        format!("water-tank scan {name}"),
+    );
+    ScanSet {
+        name: &name,
+        axis: "x",
+        positions,
+        notes: (&calc_note, &meas_note),
+    }
+    .write(
+        dir,
+        out,
+        noise,
+        |x| depth_profile(x, side, depth, 0.0, fff),
+        |m, x| depth_profile(x, side, depth, m.widen, fff),
+    )
+}
+
+/// Scans added after the clinical sites (their noise follows): the 5 x 5 cm depth doses, the
+/// 10 MV FFF 5 x 5 cm profile, and profiles of the 2, 5 and 30 cm fields at 50 and 200 mm.
+fn more_scans(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Result<(), String> {
+    let xs = steps(-90.0, 90.0, 1.0);
+    let wide = steps(-220.0, 220.0, 1.0);
+    for (beam, fff) in [("6x", false), ("10fff", true)] {
+        let depths = steps(0.0, 250.0, 2.0);
+        let max = depths
+            .iter()
+            .map(|&d| depth_factor_sized(d, 50.0, fff))
+            .fold(0.0, f64::max);
+        let pdd = |d: f64| 100.0 * depth_factor_sized(d, 50.0, fff) / max;
+        let name = format!("pdd-{beam}-5x5");
+        let (calc_note, meas_note) = (
+            format!("calculated {name}"),
+            format!("water-tank scan {name}"),
+        );
+        ScanSet {
+            name: &name,
+            axis: "depth",
+            positions: &depths,
+            notes: (&calc_note, &meas_note),
+        }
+        .write(dir, out, noise, pdd, |_, d| pdd(d))?;
+        for side in [20.0, 50.0, 300.0] {
+            let positions = if side > 100.0 { &wide } else { &xs };
+            for depth in [50.0, 200.0] {
+                depth_profile_scan(dir, out, noise, (beam, fff), side, depth, positions)?;
+            }
+        }
+    }
+    ScanSet {
+        name: "profile-10fff-5x5-x",
+        axis: "x",
+        positions: &xs,
+        notes: (
+            "calculated profile-10fff-5x5-x",
+            "water-tank scan profile-10fff-5x5-x",
+        ),
+    }
+    .write(
+        dir,
+        out,
+        noise,
+        |x| profile_percent(x, 25.0, true),
+        |m, x| profile_percent(x / ((25.0 + m.widen) / 25.0), 25.0, true),
+    )
 }
