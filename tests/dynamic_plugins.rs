@@ -155,7 +155,10 @@ fn a_plugin_built_for_another_abi_is_refused_clearly() {
     assert_eq!(o.code, 2);
     assert_eq!(
         relative(&o.stderr, wrong),
-        "error: plugin ABI 999.1 is not supported; this beamproof reads ABI 1.x (up to 1.1)\n  --> libbeamproof_plugin_example_dynamic.so\n  = help: rebuild the plugin against the beamproof-api crate of this release (ABI 1.1)\n\n1 problem found; nothing was run\n"
+        format!(
+            "error: plugin ABI 999.{m} is not supported; this beamproof reads ABI 1.x (up to 1.{m})\n  --> libbeamproof_plugin_example_dynamic.so\n  = help: rebuild the plugin against the beamproof-api crate of this release (ABI 1.{m})\n\n1 problem found; nothing was run\n",
+            m = beamproof_api::abi::ABI_MINOR
+        )
     );
 }
 

@@ -61,6 +61,7 @@ fn run(
         measured: Some(read(reference)),
         calculated: Some(read(evaluated)),
         mu: None,
+        film: None,
     };
     beamproof_plugin_gamma::analyse_with_points(&input)
         .expect("gamma runs")

@@ -19,11 +19,12 @@ pub enum TestKind {
     PointSet,
     PointDose,
     MuCheck,
+    FilmCalibration,
 }
 
 impl TestKind {
     /// Every kind, in the order documented for the campaign file.
-    pub const ALL: [TestKind; 7] = [
+    pub const ALL: [TestKind; 8] = [
         TestKind::DepthDose,
         TestKind::Profile,
         TestKind::Plane,
@@ -31,6 +32,7 @@ impl TestKind {
         TestKind::PointSet,
         TestKind::PointDose,
         TestKind::MuCheck,
+        TestKind::FilmCalibration,
     ];
 
     /// The kebab-case name used in campaign files.
@@ -43,6 +45,7 @@ impl TestKind {
             TestKind::PointSet => "point-set",
             TestKind::PointDose => "point-dose",
             TestKind::MuCheck => "mu-check",
+            TestKind::FilmCalibration => "film-calibration",
         }
     }
 
@@ -164,6 +167,9 @@ pub struct AnalysisInput {
     /// 1.1; absent in older inputs.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub mu: Option<crate::mu::MuInput>,
+    /// The scanned film, its calibration and placement (`film` analyses). Added in ABI 1.2.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub film: Option<crate::film::FilmInput>,
 }
 
 impl AnalysisInput {

@@ -5,6 +5,7 @@
 pub mod abi;
 mod contract;
 mod data;
+pub mod film;
 pub mod mu;
 mod outcome;
 

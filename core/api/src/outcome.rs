@@ -225,6 +225,15 @@ pub struct AnalysisOutput {
     pub references: Vec<Reference>,
     /// Overall status; when `None` the runner takes the worst metric status (pass if none judged).
     pub status: Option<Status>,
+    /// A measured distribution derived from the test's raw measurement (a film's dose plane):
+    /// the runner hands it to the test's later analyses as their measured data and keeps it in
+    /// the run folder. Added in ABI 1.2.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub derived_measured: Option<crate::Dataset>,
+    /// A fitted film calibration: the runner stores it as a checksummed file of the run for
+    /// later films of the same lot. Added in ABI 1.2.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub calibration: Option<crate::film::FilmCalibration>,
 }
 
 impl AnalysisOutput {

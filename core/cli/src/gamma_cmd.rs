@@ -184,6 +184,7 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
         measured: Some(reference.clone()),
         calculated: Some(evaluated),
         mu: None,
+        film: None,
     };
     let (output, per_point) = beamproof_plugin_gamma::analyse_with_points(&input).map_err(|e| {
         usage(

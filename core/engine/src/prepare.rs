@@ -561,7 +561,7 @@ fn check_shapes(
             Some(points_or_grid),
             "measured points and calculated points or a dose grid",
         ),
-        TestKind::MuCheck => (None, None, ""),
+        TestKind::MuCheck | TestKind::FilmCalibration => (None, None, ""),
     };
     for (role, want, got) in [
         ("measured", want_m, measured),

@@ -341,6 +341,7 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         measured: t.measured.as_ref().map(|m| m.dataset.clone()),
         calculated: t.calculated.as_ref().map(|c| c.dataset.clone()),
         mu: t.mu.as_ref().map(|m| m.input.clone()),
+        film: None,
     };
     let analyses: Vec<AnalysisRecord> = t
         .analyses

@@ -62,6 +62,7 @@ pub fn curve_test_input(
         measured: Some(dataset("m.csv", measured)),
         calculated: Some(dataset("c.csv", calculated)),
         mu: None,
+        film: None,
     }
 }
 

@@ -307,6 +307,8 @@ fn build_output(
         notes,
         references: references(electrons),
         status: Some(Status::worst(statuses).unwrap_or(Status::Pass)),
+        derived_measured: None,
+        calibration: None,
     }
 }
 

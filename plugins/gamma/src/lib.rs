@@ -732,6 +732,8 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         notes,
         references: references(b.method),
         status: Status::worst(statuses),
+        derived_measured: None,
+        calibration: None,
     }
 }
 

@@ -580,6 +580,7 @@ mod plugin {
             measured: Some(measured),
             calculated: Some(calculated),
             mu: None,
+            film: None,
         }
     }
 
@@ -899,6 +900,7 @@ fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
             data: DatasetData::Grid(e),
         }),
         mu: None,
+        film: None,
     };
     let out = Gamma.analyse(&input).expect("runs");
     assert_eq!(out.status, Some(Status::Error));

@@ -441,6 +441,8 @@ impl Analysis for MuCheck {
             notes,
             references: references(clarkson),
             status: None,
+            derived_measured: None,
+            calibration: None,
         })
     }
 }
@@ -549,6 +551,7 @@ mod tests {
                 beams,
                 plan: None,
             }),
+            film: None,
         }
     }
 

@@ -324,6 +324,8 @@ fn build_output(
         notes,
         references: vec![reference()],
         status: Status::worst(rows.iter().map(|r| r.status)),
+        derived_measured: None,
+        calibration: None,
     }
 }
 
@@ -375,6 +377,7 @@ mod tests {
                 data: calculated,
             }),
             mu: None,
+            film: None,
         }
     }
 

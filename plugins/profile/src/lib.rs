@@ -491,6 +491,8 @@ fn build_output(
         notes,
         references: refs,
         status: Some(Status::worst(statuses).unwrap_or(Status::Pass)),
+        derived_measured: None,
+        calibration: None,
     }
 }
 
