@@ -25,7 +25,7 @@ fn schema_keys_match_the_checker() {
     let text =
         std::fs::read_to_string(root().join("docs/campaign.schema.json")).expect("schema file");
     let schema: serde_json::Value = serde_json::from_str(&text).expect("schema is JSON");
-    let pairs: [(&str, &[&str]); 13] = [
+    let pairs: [(&str, &[&str]); 16] = [
         ("/properties", c::CAMPAIGN_KEYS),
         ("/$defs/tps/properties", c::TPS_KEYS),
         ("/$defs/machine/properties", c::MACHINE_KEYS),
@@ -39,6 +39,12 @@ fn schema_keys_match_the_checker() {
         ("/$defs/analysis/oneOf/1/properties", c::ANALYSIS_KEYS),
         ("/$defs/mu/properties", c::MU_KEYS),
         ("/$defs/mu-beam/properties", c::MU_BEAM_KEYS),
+        ("/$defs/film/properties", beamproof_engine::campaign_film::FILM_KEYS),
+        ("/$defs/film-piece/properties", beamproof_engine::campaign_film::PIECE_KEYS),
+        (
+            "/$defs/film-fiducial/properties",
+            beamproof_engine::campaign_film::FIDUCIAL_KEYS,
+        ),
     ];
     for (pointer, list) in pairs {
         assert_eq!(

@@ -406,7 +406,7 @@ fn run_campaign(
             ),
         });
     }
-    let pdf = write_run(&out, &c, &prepared, &record.to_json())?;
+    let pdf = write_run(&out, &c, &prepared, &record.to_json(), &record.product_files)?;
     let s = &record.summary;
     print_folder(io, "run folder", &out, &pdf);
     outln!(
@@ -527,6 +527,7 @@ fn write_run(
     campaign: &Campaign,
     prepared: &Prepared,
     json: &[u8],
+    analysis_files: &[(String, Vec<u8>)],
 ) -> Result<Vec<u8>, Failure> {
     let fail = |what: &str, e: String, help: &str| Failure {
         text: format!("error: {what}{e}\n  = help: {help}"),
@@ -552,12 +553,13 @@ fn write_run(
         "{}  report.pdf\n",
         beamproof_engine::checksum::sha256_hex(&pdf)
     );
-    let products: [(&str, &[u8]); 4] = [
+    let mut products: Vec<(&str, &[u8])> = vec![
         ("results.json", json),
         ("report.pdf", &pdf),
         ("report.pdf.sha256", pdf_sum.as_bytes()),
         ("report.html", html.as_bytes()),
     ];
+    products.extend(analysis_files.iter().map(|(f, b)| (f.as_str(), b.as_slice())));
     beamproof_engine::output::write_run_folder(out, campaign, prepared, &products).map_err(
         |e| {
             fail(
@@ -601,7 +603,13 @@ fn compare(
             "choose another folder with --out",
         ));
     }
-    let pdf = write_run(&out, &c.campaign, &c.prepared, &c.record.to_json())?;
+    let pdf = write_run(
+        &out,
+        &c.campaign,
+        &c.prepared,
+        &c.record.to_json(),
+        &c.record.product_files,
+    )?;
     let s = &c.record.summary;
     print_folder(io, "matching run folder", &out, &pdf);
     outln!(

@@ -55,6 +55,7 @@ pub const TEST_KEYS: &[&str] = &[
     "criteria",
     "analyses",
     "mu",
+    "film",
 ];
 /// Keys of a monitor-unit check test's `mu:` block.
 pub const MU_KEYS: &[&str] = &["beam-data", "beams", "plan", "point-mm", "beam-doses"];
@@ -84,7 +85,7 @@ pub struct Pos {
 }
 
 impl Pos {
-    fn of(n: &Node) -> Pos {
+    pub(crate) fn of(n: &Node) -> Pos {
         Pos {
             line: n.line,
             column: n.column,
@@ -253,6 +254,8 @@ pub struct TestSpec {
     pub analyses: Vec<AnalysisSpec>,
     /// Beam data and beams of a `mu-check` test.
     pub mu: Option<MuSpec>,
+    /// The scanned film of a `film-calibration` or `plane` test.
+    pub film: Option<crate::campaign_film::FilmSpec>,
     pub pos: Pos,
 }
 
@@ -1043,6 +1046,11 @@ impl<'f> Decoder<'f> {
             }
             _ => {}
         }
+        let film = match f.get("film") {
+            Some(m) => Some(self.film(m, kind)?),
+            None => None,
+        };
+        self.film_rules(&f, kind, film.is_some());
         Some(TestSpec {
             id: id?,
             name: name?,
@@ -1054,12 +1062,54 @@ impl<'f> Decoder<'f> {
             criteria: criteria_ref?,
             analyses: analyses?,
             mu,
+            film,
             pos: Pos::of(n),
         })
     }
 
+    /// Which kinds take a `film:` block, and what it replaces.
+    fn film_rules(&mut self, f: &Fields, kind: Option<TestKind>, has_film: bool) {
+        match (kind, has_film) {
+            (Some(TestKind::FilmCalibration), false) => self.report(
+                f.node,
+                "a film-calibration test needs a `film:` block",
+                "add `film:` with `scan`, `lot` and `pieces` (docs/campaign.md)",
+            ),
+            (Some(TestKind::FilmCalibration), true) => {
+                for key in ["measured", "calculated"] {
+                    if let Some(k) = f.get(key) {
+                        self.report(
+                            k,
+                            format!("a film-calibration test takes no `{key}` data"),
+                            "remove it: the calibration pieces are the whole input",
+                        );
+                    }
+                }
+            }
+            (Some(TestKind::Plane), true) => {
+                if let Some(k) = f.get("measured") {
+                    self.report(
+                        k,
+                        "a test with a `film:` block takes its measured plane from the film",
+                        "remove `measured:`, or remove `film:` to give a dose plane file",
+                    );
+                }
+            }
+            (Some(k), true) => {
+                if let Some(m) = f.get("film") {
+                    self.report(
+                        m,
+                        format!("`film` belongs to plane and film-calibration tests, not to kind {}", k.name()),
+                        "remove the `film:` block or change the test's kind",
+                    );
+                }
+            }
+            _ => {}
+        }
+    }
+
     /// A list of exactly `n` numbers in `min..max`.
-    fn numbers<const N: usize>(
+    pub(crate) fn numbers<const N: usize>(
         &mut self,
         node: &Node,
         what: &str,
@@ -1249,7 +1299,7 @@ impl<'f> Decoder<'f> {
         })
     }
 
-    fn input(&mut self, n: &Node, what: &'static str) -> Option<InputSpec> {
+    pub(crate) fn input(&mut self, n: &Node, what: &'static str) -> Option<InputSpec> {
         if let Value::Scalar { .. } = n.value {
             let template = self.string(n, what)?;
             return Some(InputSpec {

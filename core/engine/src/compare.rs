@@ -322,6 +322,7 @@ pub fn compare(
             calculated: Some(renamed("b", mb)),
             analyses,
             mu: None,
+            film: None,
         });
     }
     if tests.is_empty() {

@@ -3,9 +3,11 @@
 
 pub mod archive;
 pub mod campaign;
+pub mod campaign_film;
 pub mod checksum;
 pub mod compare;
 pub mod diag;
+pub mod film;
 pub mod mu_input;
 pub mod output;
 pub mod prepare;

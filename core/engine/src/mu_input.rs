@@ -18,7 +18,6 @@ use beamproof_api::mu::{BeamData, Leaves, MuBeam, MuInput, MuSetup};
 use beamproof_api::{BeamInfo, DatasetData};
 
 use crate::campaign::{Campaign, InputSpec, Machine, MuSpec};
-use crate::checksum::sha256_hex;
 use crate::diag::Diagnostic;
 use crate::prepare::{InputFile, clean_relative};
 use crate::readers::rtplan::{Plan, PlanBeam, read_plan};
@@ -65,16 +64,6 @@ fn file(
         return None;
     }
     Some((rel, path))
-}
-
-fn keep(files: &mut BTreeMap<String, InputFile>, rel: &str, bytes: Vec<u8>) -> String {
-    let sha = sha256_hex(&bytes);
-    files.entry(rel.to_string()).or_insert_with(|| InputFile {
-        rel: rel.to_string(),
-        sha256: sha.clone(),
-        bytes,
-    });
-    sha
 }
 
 /// Prepare the `mu:` block of a test for one machine; problems go to `diags`.
@@ -149,9 +138,9 @@ pub fn prepare_mu(
         return None;
     }
     let bytes = std::fs::read(&path).unwrap_or_default();
-    read_files.push(("beam-data", rel.clone(), keep(files, &rel, bytes)));
+    read_files.push(("beam-data", rel.clone(), crate::prepare::register(files, &rel, bytes)));
     for (t_rel, t_bytes) in loaded.tables {
-        let sha = keep(files, &t_rel, t_bytes);
+        let sha = crate::prepare::register(files, &t_rel, t_bytes);
         read_files.push(("beam-data table", t_rel, sha));
     }
     let data = loaded.data;
@@ -167,7 +156,7 @@ pub fn prepare_mu(
                 }
             };
             let bytes = std::fs::read(&ppath).unwrap_or_default();
-            read_files.push(("plan", prel.clone(), keep(files, &prel, bytes)));
+            read_files.push(("plan", prel.clone(), crate::prepare::register(files, &prel, bytes)));
             let mut beams = match plan_beams(&plan, &prel, spec.point_mm, &data) {
                 Ok(b) => b,
                 Err(m) => {
@@ -229,7 +218,7 @@ pub fn prepare_mu(
                         }
                     }
                     let bytes = std::fs::read(&dpath).unwrap_or_default();
-                    read_files.push(("beam dose", drel.clone(), keep(files, &drel, bytes)));
+                    read_files.push(("beam dose", drel.clone(), crate::prepare::register(files, &drel, bytes)));
                 }
             }
             (beams, Some(plan.label.clone()))

@@ -52,6 +52,8 @@ pub struct PreparedTest {
     pub analyses: Vec<PreparedAnalysis>,
     /// Beam data and beams of a monitor-unit check.
     pub mu: Option<crate::mu_input::PreparedMu>,
+    /// The scanned film of a film calibration or a film plane.
+    pub film: Option<crate::film::PreparedFilm>,
 }
 
 /// Everything a run of one machine needs.
@@ -104,6 +106,8 @@ pub fn prepare(
     let mut diags = Vec::new();
     let mut tests = Vec::new();
     let mut files: BTreeMap<String, InputFile> = BTreeMap::new();
+    // Film-calibration tests met so far for this machine, with their film lot.
+    let mut calibration_lots: BTreeMap<String, String> = BTreeMap::new();
     let at = |pos: Pos, msg: String| Diagnostic::at(&campaign.path, pos.line, pos.column, msg);
     for site in &campaign.sites {
         for spec in &site.tests {
@@ -161,6 +165,20 @@ pub fn prepare(
                     &mut diags,
                 )
             });
+            let film = spec.film.as_ref().and_then(|f| {
+                crate::film::prepare_film(
+                    campaign,
+                    machine,
+                    spec,
+                    f,
+                    &calibration_lots,
+                    &mut files,
+                    &mut diags,
+                )
+            });
+            if let (TestKind::FilmCalibration, Some(f)) = (spec.kind, &spec.film) {
+                calibration_lots.insert(spec.id.clone(), f.lot.clone());
+            }
             if diags.len() == before {
                 if let Err(d) = check_shapes(campaign, spec, measured.as_ref(), calculated.as_ref())
                 {
@@ -181,6 +199,7 @@ pub fn prepare(
                     calculated,
                     analyses,
                     mu,
+                    film,
                 });
             }
         }
@@ -393,14 +412,14 @@ pub(crate) fn clean_relative(p: &str) -> Option<String> {
     (!parts.is_empty()).then(|| parts.join("/"))
 }
 
-fn input(
+/// Read an input file named in the campaign: its path relative to the campaign folder, its
+/// full path and its bytes (not yet registered as an input of the run).
+pub(crate) fn input_bytes(
     campaign: &Campaign,
     machine: &Machine,
-    spec: Option<&InputSpec>,
-    files: &mut BTreeMap<String, InputFile>,
+    spec: &InputSpec,
     diags: &mut Vec<Diagnostic>,
-) -> Option<PreparedInput> {
-    let spec = spec?;
+) -> Option<(String, std::path::PathBuf, Vec<u8>)> {
     let written = spec.path_for(&machine.id);
     let at = |msg: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg);
     let Some(rel) = clean_relative(&written) else {
@@ -409,8 +428,8 @@ fn input(
         return None;
     };
     let path = campaign.resolve(&rel);
-    let bytes = match std::fs::read(&path) {
-        Ok(b) => b,
+    match std::fs::read(&path) {
+        Ok(b) => Some((rel, path, b)),
         Err(e) => {
             let for_machine = if spec.template.contains("{machine}") {
                 format!(" (for machine `{}`)", machine.id)
@@ -427,17 +446,34 @@ fn input(
                 ))
                 .help(format!("expected at {}", path.display())),
             );
-            return None;
+            None
         }
-    };
+    }
+}
+
+/// Keep an input file for the run folder (once, whichever test names it); its SHA-256.
+pub(crate) fn register(files: &mut BTreeMap<String, InputFile>, rel: &str, bytes: Vec<u8>) -> String {
+    let sha256 = sha256_hex(&bytes);
+    files.entry(rel.to_string()).or_insert_with(|| InputFile {
+        rel: rel.to_string(),
+        sha256: sha256.clone(),
+        bytes,
+    });
+    sha256
+}
+
+fn input(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: Option<&InputSpec>,
+    files: &mut BTreeMap<String, InputFile>,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<PreparedInput> {
+    let spec = spec?;
+    let (rel, path, bytes) = input_bytes(campaign, machine, spec, diags)?;
     match read_dataset(&path, &rel, spec.placement.as_ref()) {
         Ok(dataset) => {
-            let sha256 = sha256_hex(&bytes);
-            files.entry(rel.clone()).or_insert_with(|| InputFile {
-                rel: rel.clone(),
-                sha256: sha256.clone(),
-                bytes,
-            });
+            let sha256 = register(files, &rel, bytes);
             Some(PreparedInput {
                 rel,
                 sha256,
@@ -540,6 +576,11 @@ fn check_shapes(
             Some(lateral),
             Some(lateral),
             "measured and calculated profiles (`# axis: x`, `y` or `diagonal`)",
+        ),
+        TestKind::Plane if spec.film.is_some() => (
+            None,
+            Some(grid),
+            "a calculated plane or volume for the film",
         ),
         TestKind::Plane => (
             Some(plane),

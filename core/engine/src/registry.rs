@@ -18,6 +18,7 @@ fn built_ins() -> Vec<Box<dyn Analysis>> {
         Box::new(beamproof_plugin_depth_dose::DepthDose),
         Box::new(beamproof_plugin_profile::Profile),
         Box::new(beamproof_plugin_mu_check::MuCheck),
+        Box::new(beamproof_plugin_film::Film),
     ]
 }
 

@@ -4,10 +4,12 @@
 
 use std::collections::BTreeMap;
 
+use beamproof_api::film::{FilmCalibration, FilmInput};
 use beamproof_api::{AnalysisInput, AnalysisOutput, CriteriaSet, Reference, Status, TestInfo};
 use serde::Serialize;
 
 use crate::campaign::{Campaign, Tps};
+use crate::film::{CalibrationSource, FilmTask};
 use crate::prepare::{Prepared, PreparedTest};
 use crate::registry::{Origin, Registry};
 
@@ -35,6 +37,10 @@ pub struct RunRecord {
     pub references: Vec<Reference>,
     pub cautions: Vec<&'static str>,
     pub report: ReportRecord,
+    /// Files the analyses produced (film calibrations, film dose planes), by path inside the
+    /// run folder; written beside `results.json` and covered by the manifest.
+    #[serde(skip)]
+    pub product_files: Vec<(String, Vec<u8>)>,
 }
 
 /// The templates that make the report: the campaign's own folder, or the built-in template
@@ -143,7 +149,25 @@ pub struct TestRecord {
     pub status: Status,
     pub inputs: Vec<InputRecord>,
     pub analyses: Vec<AnalysisRecord>,
+    /// Files the test's analyses produced (a film calibration, a film's dose plane).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub products: Vec<ProductRecord>,
 }
+
+/// A file an analysis produced, kept in the run folder.
+#[derive(Debug, Clone, Serialize)]
+pub struct ProductRecord {
+    /// What it is: `film calibration` or `film dose plane`.
+    pub role: &'static str,
+    /// Path inside the run folder.
+    pub file: String,
+    pub sha256: String,
+}
+
+/// Folder of a run holding film calibrations, one `ID.json` per calibration test.
+pub const CALIBRATIONS_DIR: &str = "calibrations";
+/// Folder of a run holding measured data derived from raw measurements (film dose planes).
+pub const DERIVED_DIR: &str = "derived";
 
 #[derive(Debug, Clone, Serialize)]
 pub struct AnalysisRecord {
@@ -204,8 +228,11 @@ pub fn run(
 ) -> RunRecord {
     let total = prepared.tests.len();
     let mut sites: Vec<SiteRecord> = Vec::new();
+    let mut calibrations: BTreeMap<String, FilmCalibration> = BTreeMap::new();
+    let mut product_files = Vec::new();
     for (i, t) in prepared.tests.iter().enumerate() {
-        let record = run_test(t, &prepared.machine.id, registry);
+        let (record, files) = run_test(t, &prepared.machine.id, registry, &mut calibrations);
+        product_files.extend(files);
         match sites.last_mut() {
             Some(s) if s.id == t.site_id => s.tests.push(record),
             _ => sites.push(SiteRecord {
@@ -323,11 +350,42 @@ pub fn run(
                 None => Vec::new(),
             },
         },
+        product_files,
     }
 }
 
-fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord {
-    let input = AnalysisInput {
+/// The film input of a test: a calibration to fit, or a measured film with its calibration
+/// (from a file, or from a calibration test run earlier in this run).
+fn film_input(
+    t: &PreparedTest,
+    calibrations: &BTreeMap<String, FilmCalibration>,
+) -> Result<Option<FilmInput>, String> {
+    let Some(f) = &t.film else { return Ok(None) };
+    Ok(Some(match &f.task {
+        FilmTask::Calibrate(c) => FilmInput::Calibrate(c.clone()),
+        FilmTask::Measure(m) => {
+            let c = match &m.calibration {
+                CalibrationSource::File(c) => (**c).clone(),
+                CalibrationSource::Test(id) => calibrations.get(id).cloned().ok_or_else(|| {
+                    format!("calibration test `{id}` produced no calibration (see its errors); this film cannot be read without it")
+                })?,
+            };
+            FilmInput::Measure(Box::new(m.with_calibration(c)))
+        }
+    }))
+}
+
+/// Run one test's analyses in order. A measured distribution an analysis derives (a film's
+/// dose plane) becomes the measured data of the analyses after it; a calibration it fits is
+/// kept for later tests. Returns the record and the files the analyses produced.
+fn run_test(
+    t: &PreparedTest,
+    machine: &str,
+    registry: &Registry,
+    calibrations: &mut BTreeMap<String, FilmCalibration>,
+) -> (TestRecord, Vec<(String, Vec<u8>)>) {
+    let film = film_input(t, calibrations);
+    let mut input = AnalysisInput {
         test: TestInfo {
             site: t.site_id.clone(),
             id: t.spec.id.clone(),
@@ -341,43 +399,78 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         measured: t.measured.as_ref().map(|m| m.dataset.clone()),
         calculated: t.calculated.as_ref().map(|c| c.dataset.clone()),
         mu: t.mu.as_ref().map(|m| m.input.clone()),
-        film: None,
+        film: film.as_ref().ok().cloned().flatten(),
     };
-    let analyses: Vec<AnalysisRecord> = t
-        .analyses
-        .iter()
-        .map(|a| {
-            let plugin = registry.get(&a.plugin);
-            let version = plugin
-                .map(|p| p.manifest.version.clone())
-                .unwrap_or_default();
-            let result = match plugin {
-                Some(p) => p.analyse(&AnalysisInput {
-                    params: a.params.clone(),
-                    ..input.clone()
-                }),
-                None => Err(format!("plugin `{}` is not loaded", a.plugin)),
-            };
-            match result {
-                Ok(output) => AnalysisRecord {
+    let mut products = Vec::new();
+    let mut files = Vec::new();
+    let mut analyses = Vec::new();
+    for a in &t.analyses {
+        let plugin = registry.get(&a.plugin);
+        let version = plugin
+            .map(|p| p.manifest.version.clone())
+            .unwrap_or_default();
+        let result = match (plugin, &film) {
+            (_, Err(e)) if a.plugin == beamproof_plugin_film::NAME => Err(e.clone()),
+            (Some(_), _) if t.film.is_some() && input.measured.is_none() && a.plugin != beamproof_plugin_film::NAME => Err(
+                "no measured plane: the film analysis before this one did not produce one (see its error), or the test lists no `film` analysis first".to_string(),
+            ),
+            (Some(p), _) => p.analyse(&AnalysisInput {
+                params: a.params.clone(),
+                ..input.clone()
+            }),
+            (None, _) => Err(format!("plugin `{}` is not loaded", a.plugin)),
+        };
+        let record = match result {
+            Ok(mut output) => {
+                if let Some(derived) = output.derived_measured.take() {
+                    let file = format!("{DERIVED_DIR}/{}.csv", t.spec.id);
+                    let text = crate::film::dataset_csv(
+                        &derived.data,
+                        derived.unit,
+                        &format!("measured dose derived by {} from {}", a.plugin, derived.source),
+                    );
+                    if let Some(text) = text {
+                        let bytes = text.into_bytes();
+                        products.push(ProductRecord {
+                            role: "film dose plane",
+                            file: file.clone(),
+                            sha256: crate::checksum::sha256_hex(&bytes),
+                        });
+                        files.push((file, bytes));
+                    }
+                    input.measured = Some(derived);
+                }
+                if let Some(c) = output.calibration.take() {
+                    let file = format!("{CALIBRATIONS_DIR}/{}.json", t.spec.id);
+                    let bytes = crate::film::calibration_bytes(&c);
+                    products.push(ProductRecord {
+                        role: "film calibration",
+                        file: file.clone(),
+                        sha256: crate::checksum::sha256_hex(&bytes),
+                    });
+                    files.push((file, bytes));
+                    calibrations.insert(t.spec.id.clone(), c);
+                }
+                AnalysisRecord {
                     plugin: a.plugin.clone(),
                     version,
                     params: a.params.clone(),
                     status: output.overall_status(),
                     error: None,
                     output: Some(output),
-                },
-                Err(e) => AnalysisRecord {
-                    plugin: a.plugin.clone(),
-                    version,
-                    params: a.params.clone(),
-                    status: Status::Error,
-                    error: Some(e),
-                    output: None,
-                },
+                }
             }
-        })
-        .collect();
+            Err(e) => AnalysisRecord {
+                plugin: a.plugin.clone(),
+                version,
+                params: a.params.clone(),
+                status: Status::Error,
+                error: Some(e),
+                output: None,
+            },
+        };
+        analyses.push(record);
+    }
     let mut inputs: Vec<InputRecord> = [("measured", &t.measured), ("calculated", &t.calculated)]
         .into_iter()
         .filter_map(|(role, i)| {
@@ -391,16 +484,19 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
             })
         })
         .collect();
-    if let Some(m) = &t.mu {
-        inputs.extend(m.files.iter().map(|(role, rel, sha)| InputRecord {
-            role,
-            file: format!("{INPUTS_DIR}/{rel}"),
-            sha256: sha.clone(),
-            unit: String::new(),
-            shape: String::new(),
-        }));
-    }
-    TestRecord {
+    let extra = t
+        .mu
+        .iter()
+        .flat_map(|m| m.files.iter())
+        .chain(t.film.iter().flat_map(|f| f.files.iter()));
+    inputs.extend(extra.map(|(role, rel, sha)| InputRecord {
+        role,
+        file: format!("{INPUTS_DIR}/{rel}"),
+        sha256: sha.clone(),
+        unit: String::new(),
+        shape: String::new(),
+    }));
+    let record = TestRecord {
         id: t.spec.id.clone(),
         name: t.spec.name.clone(),
         kind: t.spec.kind.name().to_string(),
@@ -409,7 +505,9 @@ fn run_test(t: &PreparedTest, machine: &str, registry: &Registry) -> TestRecord 
         status: Status::worst(analyses.iter().map(|a| a.status)).unwrap_or(Status::Error),
         inputs,
         analyses,
-    }
+        products,
+    };
+    (record, files)
 }
 
 fn summarise(sites: &[SiteRecord]) -> Summary {

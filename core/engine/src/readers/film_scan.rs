@@ -18,20 +18,19 @@ pub const MAX_PIXELS: usize = 40_000_000;
 /// How a scanner saves a film, as the refusals tell it.
 const SCAN_HELP: &str = "scan the film in transmission mode as 48-bit colour (16 bits per channel) with every colour correction off, and save it as an uncompressed or losslessly compressed TIFF";
 
-/// Read a scan. `source` is the path as the campaign names it; `pixel_mm` is the campaign's
+/// Read a scan from the bytes of file `path`. `source` is the path as the campaign names it; `pixel_mm` is the campaign's
 /// pixel pitch, which must agree with the file's resolution when the file states one (and is
 /// needed when it does not).
-pub fn read(path: &Path, source: &str, pixel_mm: Option<f64>) -> Result<RgbScan, Diagnostic> {
+pub fn read(
+    path: &Path,
+    bytes: &[u8],
+    source: &str,
+    pixel_mm: Option<f64>,
+) -> Result<RgbScan, Diagnostic> {
     let err = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    let file = std::fs::File::open(path).map_err(|e| {
-        err(
-            format!("cannot open the scan: {e}"),
-            "check that the file exists",
-        )
-    })?;
     let mut limits = Limits::default();
     limits.decoding_buffer_size = MAX_PIXELS * 6;
-    let mut dec = Decoder::new(std::io::BufReader::new(file))
+    let mut dec = Decoder::new(std::io::Cursor::new(bytes))
         .map_err(|e| err(format!("not a readable TIFF image: {e}"), SCAN_HELP))?
         .with_limits(limits);
     let colour = dec
