@@ -39,8 +39,14 @@ fn schema_keys_match_the_checker() {
         ("/$defs/analysis/oneOf/1/properties", c::ANALYSIS_KEYS),
         ("/$defs/mu/properties", c::MU_KEYS),
         ("/$defs/mu-beam/properties", c::MU_BEAM_KEYS),
-        ("/$defs/film/properties", beamproof_engine::campaign_film::FILM_KEYS),
-        ("/$defs/film-piece/properties", beamproof_engine::campaign_film::PIECE_KEYS),
+        (
+            "/$defs/film/properties",
+            beamproof_engine::campaign_film::FILM_KEYS,
+        ),
+        (
+            "/$defs/film-piece/properties",
+            beamproof_engine::campaign_film::PIECE_KEYS,
+        ),
         (
             "/$defs/film-fiducial/properties",
             beamproof_engine::campaign_film::FIDUCIAL_KEYS,

@@ -406,7 +406,13 @@ fn run_campaign(
             ),
         });
     }
-    let pdf = write_run(&out, &c, &prepared, &record.to_json(), &record.product_files)?;
+    let pdf = write_run(
+        &out,
+        &c,
+        &prepared,
+        &record.to_json(),
+        &record.product_files,
+    )?;
     let s = &record.summary;
     print_folder(io, "run folder", &out, &pdf);
     outln!(
@@ -559,7 +565,11 @@ fn write_run(
         ("report.pdf.sha256", pdf_sum.as_bytes()),
         ("report.html", html.as_bytes()),
     ];
-    products.extend(analysis_files.iter().map(|(f, b)| (f.as_str(), b.as_slice())));
+    products.extend(
+        analysis_files
+            .iter()
+            .map(|(f, b)| (f.as_str(), b.as_slice())),
+    );
     beamproof_engine::output::write_run_folder(out, campaign, prepared, &products).map_err(
         |e| {
             fail(

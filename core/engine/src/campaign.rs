@@ -1099,7 +1099,10 @@ impl<'f> Decoder<'f> {
                 if let Some(m) = f.get("film") {
                     self.report(
                         m,
-                        format!("`film` belongs to plane and film-calibration tests, not to kind {}", k.name()),
+                        format!(
+                            "`film` belongs to plane and film-calibration tests, not to kind {}",
+                            k.name()
+                        ),
                         "remove the `film:` block or change the test's kind",
                     );
                 }

@@ -166,7 +166,11 @@ impl Decoder<'_> {
     pub(crate) fn film(&mut self, n: &Node, kind: Option<TestKind>) -> Option<FilmSpec> {
         let f = self.fields(n, "`film`", FILM_KEYS)?;
         let scan = self
-            .required(&f, "scan", "add `scan:` with the TIFF file of the scanned film")
+            .required(
+                &f,
+                "scan",
+                "add `scan:` with the TIFF file of the scanned film",
+            )
             .and_then(|s| self.input(s, "`scan`"));
         let lot = self.req_string(
             &f,

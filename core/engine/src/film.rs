@@ -214,8 +214,14 @@ pub fn prepare_film(
         for p in &film.pieces {
             if !region_inside(p.region_px, &scan) {
                 diags.push(
-                    at(p.pos, format!("piece `{}`: `region-px` reaches beyond the {size} scan", p.label))
-                        .help("columns and rows count from 0 at the top-left pixel"),
+                    at(
+                        p.pos,
+                        format!(
+                            "piece `{}`: `region-px` reaches beyond the {size} scan",
+                            p.label
+                        ),
+                    )
+                    .help("columns and rows count from 0 at the top-left pixel"),
                 );
             }
         }
@@ -239,8 +245,11 @@ pub fn prepare_film(
             && !region_inside(u, &scan)
         {
             diags.push(
-                at(film.pos, format!("`unexposed-px` reaches beyond the {size} scan"))
-                    .help("columns and rows count from 0 at the top-left pixel"),
+                at(
+                    film.pos,
+                    format!("`unexposed-px` reaches beyond the {size} scan"),
+                )
+                .help("columns and rows count from 0 at the top-left pixel"),
             );
         }
         let lateral = match &film.lateral_scan {

@@ -138,7 +138,11 @@ pub fn prepare_mu(
         return None;
     }
     let bytes = std::fs::read(&path).unwrap_or_default();
-    read_files.push(("beam-data", rel.clone(), crate::prepare::register(files, &rel, bytes)));
+    read_files.push((
+        "beam-data",
+        rel.clone(),
+        crate::prepare::register(files, &rel, bytes),
+    ));
     for (t_rel, t_bytes) in loaded.tables {
         let sha = crate::prepare::register(files, &t_rel, t_bytes);
         read_files.push(("beam-data table", t_rel, sha));
@@ -156,7 +160,11 @@ pub fn prepare_mu(
                 }
             };
             let bytes = std::fs::read(&ppath).unwrap_or_default();
-            read_files.push(("plan", prel.clone(), crate::prepare::register(files, &prel, bytes)));
+            read_files.push((
+                "plan",
+                prel.clone(),
+                crate::prepare::register(files, &prel, bytes),
+            ));
             let mut beams = match plan_beams(&plan, &prel, spec.point_mm, &data) {
                 Ok(b) => b,
                 Err(m) => {
@@ -218,7 +226,11 @@ pub fn prepare_mu(
                         }
                     }
                     let bytes = std::fs::read(&dpath).unwrap_or_default();
-                    read_files.push(("beam dose", drel.clone(), crate::prepare::register(files, &drel, bytes)));
+                    read_files.push((
+                        "beam dose",
+                        drel.clone(),
+                        crate::prepare::register(files, &drel, bytes),
+                    ));
                 }
             }
             (beams, Some(plan.label.clone()))

@@ -452,7 +452,11 @@ pub(crate) fn input_bytes(
 }
 
 /// Keep an input file for the run folder (once, whichever test names it); its SHA-256.
-pub(crate) fn register(files: &mut BTreeMap<String, InputFile>, rel: &str, bytes: Vec<u8>) -> String {
+pub(crate) fn register(
+    files: &mut BTreeMap<String, InputFile>,
+    rel: &str,
+    bytes: Vec<u8>,
+) -> String {
     let sha256 = sha256_hex(&bytes);
     files.entry(rel.to_string()).or_insert_with(|| InputFile {
         rel: rel.to_string(),

@@ -427,7 +427,10 @@ fn run_test(
                     let text = crate::film::dataset_csv(
                         &derived.data,
                         derived.unit,
-                        &format!("measured dose derived by {} from {}", a.plugin, derived.source),
+                        &format!(
+                            "measured dose derived by {} from {}",
+                            a.plugin, derived.source
+                        ),
                     );
                     if let Some(text) = text {
                         let bytes = text.into_bytes();
@@ -484,11 +487,10 @@ fn run_test(
             })
         })
         .collect();
-    let extra = t
-        .mu
-        .iter()
-        .flat_map(|m| m.files.iter())
-        .chain(t.film.iter().flat_map(|f| f.files.iter()));
+    let extra =
+        t.mu.iter()
+            .flat_map(|m| m.files.iter())
+            .chain(t.film.iter().flat_map(|f| f.files.iter()));
     inputs.extend(extra.map(|(role, rel, sha)| InputRecord {
         role,
         file: format!("{INPUTS_DIR}/{rel}"),

@@ -356,12 +356,26 @@ pub enum Scale {
     Gamma,
     /// Diverging, symmetric about zero, clipped at +-limit.
     Diverging { limit: f64 },
+    /// Sequential, one hue from light (0) to dark (`max`), for quantities that are never
+    /// negative (a dose map).
+    Sequential { max: f64 },
 }
 
 impl Scale {
     pub fn for_map(quantity: &str, values: &[Option<f64>]) -> Scale {
         if is_gamma(quantity) {
             Scale::Gamma
+        } else if quantity == "dose" {
+            // The largest value rounded up to two significant digits.
+            let max = values.iter().flatten().copied().fold(0.0, f64::max);
+            let step = if max > 0.0 {
+                10f64.powf(max.log10().floor() - 1.0)
+            } else {
+                1.0
+            };
+            Scale::Sequential {
+                max: ((max / step).ceil() * step).max(step),
+            }
         } else {
             // The 99th percentile of |value|, rounded up, between 1 and 10: a few outliers
             // do not wash out the scale; values beyond it are drawn at the end colour.
@@ -381,6 +395,7 @@ impl Scale {
         match *self {
             Scale::Gamma => (0.0, 2.0),
             Scale::Diverging { limit } => (-limit, limit),
+            Scale::Sequential { max } => (0.0, max),
         }
     }
 
@@ -397,6 +412,11 @@ impl Scale {
                     )
                 }
             }
+            Scale::Sequential { max } => lerp(
+                RGBColor(0xf4, 0xf4, 0xf1),
+                RGBColor(0x3b, 0x2a, 0x5c),
+                v / max,
+            ),
             Scale::Diverging { limit } => {
                 let t = (v / limit).clamp(-1.0, 1.0);
                 let mid = RGBColor(0xf4, 0xf4, 0xf1);
@@ -585,6 +605,26 @@ mod tests {
         let (below, above) = (s.colour(1.0), s.colour(1.0001));
         assert!(below.2 > below.0, "passing end is blue");
         assert!(above.0 > above.2, "failing start is warm");
+    }
+
+    #[test]
+    fn dose_maps_use_a_sequential_scale_from_zero_that_darkens_with_dose() {
+        // Design rule (common practice, no source): a dose is never negative, so its map runs
+        // from zero, and reads in greyscale (luma falls as dose rises). Rec. 709 luma weights.
+        let luma = |c: RGBColor| 0.2126 * c.0 as f64 + 0.7152 * c.1 as f64 + 0.0722 * c.2 as f64;
+        let s = Scale::for_map("dose", &[Some(0.1), Some(2.093), None]);
+        assert_eq!(s, Scale::Sequential { max: 2.1 });
+        assert_eq!(s.range(), (0.0, 2.1));
+        let mut last = f64::INFINITY;
+        for i in 0..=21 {
+            let l = luma(s.colour(i as f64 * 0.1));
+            assert!(l < last, "luma does not fall at {} Gy", i as f64 * 0.1);
+            last = l;
+        }
+        assert!(matches!(
+            Scale::for_map("dose difference", &[Some(-0.5), Some(0.7)]),
+            Scale::Diverging { .. }
+        ));
     }
 
     #[test]

@@ -103,6 +103,9 @@ pub struct TestIn {
     pub status: String,
     pub inputs: Vec<InputIn>,
     pub analyses: Vec<AnalysisIn>,
+    /// Files the analyses produced (film calibrations, film dose planes).
+    #[serde(default)]
+    pub products: Vec<InputIn>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -481,13 +484,14 @@ fn methods(r: &Results) -> Vec<MethodView> {
         .collect()
 }
 
-/// Every file the run depends on, once, in path order: the campaign file, the test inputs and
-/// the templates (the results file's own checksum is shown beside this list).
+/// Every file the run depends on or its analyses produced, once, in path order: the campaign
+/// file, the test inputs, the templates and the analyses' files (film calibrations and dose
+/// planes); the results file's own checksum is shown beside this list.
 fn manifest(r: &Results) -> Vec<FileIn> {
     let mut files = std::collections::BTreeMap::new();
     files.insert(r.campaign.file.clone(), r.campaign.sha256.clone());
     for t in r.sites.iter().flat_map(|s| &s.tests) {
-        for i in &t.inputs {
+        for i in t.inputs.iter().chain(&t.products) {
             files.insert(i.file.clone(), i.sha256.clone());
         }
     }

@@ -11,6 +11,7 @@
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
+pub mod film;
 mod rtdose;
 mod rtplan;
 
@@ -701,6 +702,7 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
     }
     clinical_sites(dir, &mut out, &mut noise)?;
     more_scans(dir, &mut out, &mut noise)?;
+    film_scans(dir, &mut out)?;
     write(
         dir,
         "tps/plan-3field-6x.dcm",
@@ -1082,4 +1084,35 @@ fn more_scans(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Result<(
         |x| profile_percent(x, 25.0, true),
         |m, x| profile_percent(x / ((25.0 + m.widen) / 25.0), 25.0, true),
     )
+}
+
+/// Radiochromic film of the brain-metastasis plan, scanned, and the calibration scan of its
+/// lot (noise of their own, so that the other files keep theirs). Both machines' films lay in
+/// the same scanner template, 0.8 degrees off square; lin-b's scanning day reads 0.8 % bright
+/// (scanner drift, removed by the unexposed strip on each scan); the doses follow the arrays'
+/// machine deviations (lin-a 0.6 % low, lin-b's fields 0.3 mm wider on each side).
+fn film_scans(dir: &Path, out: &mut Vec<PathBuf>) -> Result<(), String> {
+    let mut noise = Noise::new(20_261_126);
+    let (calibration, _) = film::calibration_scan(&mut noise)?;
+    write(dir, "film/calibration-fh2611.tif", &calibration, out)?;
+    let place = film::OnScanner {
+        origin_mm: [52.0, 50.0],
+        angle_deg: 0.8,
+    };
+    let scan = |drift: f64| film::FilmScan {
+        width: 335,
+        height: 284,
+        place: &place,
+        half_mm: 45.0,
+        strip: [295, 318, 40, 240],
+        drift,
+    };
+    for (m, ((widen, scale), drift)) in MACHINES
+        .iter()
+        .zip([(0.0, 0.994), (0.3, 1.0)].into_iter().zip([1.0, 1.008]))
+    {
+        let tiff = scan(drift).tiff(|x, y| scale * brain_mets(x, y, 0.0, widen), &mut noise)?;
+        write(dir, &format!("{}/film-brain-mets.tif", m.id), &tiff, out)?;
+    }
+    Ok(())
 }

@@ -9,8 +9,9 @@ use beamproof_api::{
 use crate::fit::{fit_response, quality};
 use crate::{judged, references, region_values};
 
-/// Default levels of the largest relative dose residual of a channel's fit, percent (common
-/// practice, no source): the calibration should read its own pieces back within 2 %.
+/// Default levels of the largest dose residual of a channel's fit, in percent of the highest
+/// calibration dose (common practice, no source): the calibration should read its own pieces
+/// back within 2 %.
 pub const FIT_LEVELS: Levels = Levels {
     tolerance: 2.0,
     action: 3.0,
@@ -60,9 +61,9 @@ pub fn calibrate(
         metrics.push(judged(
             &format!("fit-max-residual-percent:{name}"),
             &format!(
-                "Largest calibration residual, {name} channel (pieces above 5 % of the top dose)"
+                "Largest calibration residual, {name} channel, % of the highest calibration dose"
             ),
-            qualities[k].max_relative_percent,
+            qualities[k].max_percent_of_top,
             "%",
             levels,
         ));
@@ -109,7 +110,7 @@ pub fn calibrate(
                 format!("{:.6}", r.b),
                 format!("{:.6}", r.c),
                 fixed(q.rms_dose_gy, 4),
-                fixed(q.max_relative_percent, 2),
+                fixed(q.max_percent_of_top, 2),
             ]
         })
         .collect();
@@ -169,7 +170,14 @@ pub fn calibrate(
             },
             Table {
                 title: "Fitted response X(D) = a + b / (D - c)".into(),
-                columns: ["channel", "a", "b", "c (Gy)", "RMS residual (Gy)", "largest residual (%)"]
+                columns: [
+                    "channel",
+                    "a",
+                    "b",
+                    "c (Gy)",
+                    "RMS residual (Gy)",
+                    "largest residual (% of top dose)",
+                ]
                     .map(String::from)
                     .to_vec(),
                 rows: parameter_rows,

@@ -18,9 +18,9 @@ pub struct FitQuality {
     pub dose_residuals: Vec<f64>,
     /// Root mean square of the dose residuals, Gy.
     pub rms_dose_gy: f64,
-    /// Largest dose residual relative to the delivered dose, percent, over points above 5 %
-    /// of the highest dose (relative residuals of near-zero doses say nothing).
-    pub max_relative_percent: f64,
+    /// Largest dose residual in percent of the highest calibration dose (a global measure:
+    /// relative residuals of near-zero doses say little).
+    pub max_percent_of_top: f64,
 }
 
 /// Why a calibration cannot be fitted.
@@ -146,17 +146,15 @@ pub fn quality(r: &ChannelResponse, doses: &[f64], values: &[f64]) -> FitQuality
     let rms_dose_gy =
         (dose_residuals.iter().map(|e| e * e).sum::<f64>() / dose_residuals.len() as f64).sqrt();
     let d_max = doses.iter().copied().fold(0.0, f64::max);
-    let max_relative_percent = doses
+    let max_percent_of_top = dose_residuals
         .iter()
-        .zip(&dose_residuals)
-        .filter(|(d, _)| **d > 0.05 * d_max)
-        .map(|(d, e)| 100.0 * (e / d).abs())
+        .map(|e| 100.0 * e.abs() / d_max)
         .fold(0.0, f64::max);
     FitQuality {
         value_residuals,
         dose_residuals,
         rms_dose_gy,
-        max_relative_percent,
+        max_percent_of_top,
     }
 }
 

@@ -329,6 +329,10 @@ pub fn measure(
     let disturbance: Vec<Option<f64>> = (0..nodes)
         .map(|n| (count[n] > 0).then(|| sum_delta[n] / count[n] as f64))
         .collect();
+    let disturbance_percent: Vec<Option<f64>> = disturbance
+        .iter()
+        .map(|d| d.map(|v| 100.0 * (v - 1.0)))
+        .collect();
     let excluded_nodes = dose.iter().filter(|d| d.is_none()).count();
     let names = axis_names(m.plane);
     let position = |i: usize, j: usize| -> [f64; 3] {
@@ -515,14 +519,14 @@ pub fn measure(
     }];
     if use_multichannel {
         figures.push(Figure::Map {
-            title: "Disturbance removed by the multichannel method (1 = calibration film)".into(),
+            title: "Disturbance removed by the multichannel method: optical density relative to the calibration film, minus 1".into(),
             quantity: "disturbance".into(),
-            unit: String::new(),
+            unit: "%".into(),
             x_label: format!("IEC {} (mm)", names[0]),
             y_label: format!("IEC {} (mm)", names[1]),
             x_mm: ua,
             y_mm: ub,
-            values: disturbance,
+            values: disturbance_percent,
         });
     }
     Ok(AnalysisOutput {
