@@ -9,6 +9,8 @@ pub mod dose;
 pub mod fit;
 mod measure;
 pub mod placement;
+#[cfg(test)]
+mod tests;
 
 use beamproof_api::film::{CHANNELS, FilmInput, RgbScan};
 use beamproof_api::{
@@ -51,7 +53,7 @@ impl Analysis for Film {
                     },
                     default: Some(1.0.into()),
                     unit: "mm".into(),
-                    description: "Spacing of the dose plane; each node is the mean dose of the film pixels nearest to it".into(),
+                    description: "Spacing of the dose plane; each node is the mean of the pixel doses interpolated at points spread evenly over its cell".into(),
                 },
             ],
         }

@@ -7,7 +7,8 @@
 //! 3. Each pixel whose centre falls within the region becomes a dose (red channel or
 //!    multichannel); pixels that are saturated, whose channels cannot agree, or whose dose lies
 //!    beyond the calibrated range are excluded and counted, never extrapolated.
-//! 4. Each node of the output plane is the mean dose of the pixels nearest to it.
+//! 4. Each node of the output plane is the mean of the pixel doses interpolated bilinearly at
+//!    points set symmetrically over its cell (no bias in a dose gradient).
 
 use beamproof_api::film::{FilmMeasurement, FilmPlane, RgbScan};
 use beamproof_api::{
@@ -286,49 +287,90 @@ pub fn measure(
             })
         })
         .collect();
-    // Accumulate in a fixed order (bit-identical results whatever the thread count).
+    // Share of excluded pixels among the pixels within the region (for the metrics).
     let nodes = na * nb;
-    let mut covered = vec![0usize; nodes];
-    let mut count = vec![0usize; nodes];
-    let mut sum = vec![0.0; nodes];
-    let mut sum_delta = vec![0.0; nodes];
-    let mut sum_spread = vec![0.0; nodes];
     let (mut n_in, mut n_outside, mut n_unreadable) = (0usize, 0usize, 0usize);
     for (k, p) in pixels.iter().enumerate() {
         let (r, c) = (r0 + k / width, c0 + k % width);
         let q = place.to_plane([c as f64 * px, r as f64 * py]);
-        let i = ((q[0] - a0) / spacing).round();
-        let j = ((q[1] - b0) / spacing).round();
-        if i < 0.0 || j < 0.0 || i >= na as f64 || j >= nb as f64 {
+        if q[0] < a0 - h || q[0] > a1 + h || q[1] < b0 - h || q[1] > b1 + h {
             continue;
         }
-        let node = j as usize * na + i as usize;
-        covered[node] += 1;
         n_in += 1;
         match p.kind {
-            Pixel::Dose => {
-                count[node] += 1;
-                sum[node] += p.dose;
-                sum_delta[node] += p.disturbance;
-                sum_spread[node] += p.spread;
-            }
+            Pixel::Dose => {}
             Pixel::OutsideRange => n_outside += 1,
             Pixel::Unreadable => n_unreadable += 1,
         }
     }
-    if let Some(node) = covered.iter().position(|&n| n == 0) {
+    // Each node is the mean of the pixel doses interpolated bilinearly at `per` x `per` points
+    // set symmetrically over the node's cell: their centroid is the node itself, so a dose
+    // gradient adds no bias, and the points average about as many pixels as the cell holds.
+    let per = ((spacing / px.min(py)).round() as usize).max(1);
+    let offsets: Vec<f64> = (0..per)
+        .map(|k| ((k as f64 + 0.5) / per as f64 - 0.5) * spacing)
+        .collect();
+    let height = r1 - r0 + 1;
+    let sample = |q: [f64; 2]| -> Option<Option<[f64; 3]>> {
+        let p = place.to_scan(q);
+        let (fc, fr) = (p[0] / px - c0 as f64, p[1] / py - r0 as f64);
+        if width < 2 || height < 2 || !(fc >= 0.0 && fr >= 0.0) {
+            return None;
+        }
+        if fc > (width - 1) as f64 || fr > (height - 1) as f64 {
+            return None;
+        }
+        let (i, j) = ((fc as usize).min(width - 2), (fr as usize).min(height - 2));
+        let (t, u) = (fc - i as f64, fr - j as f64);
+        let corners = [
+            (&pixels[j * width + i], (1.0 - t) * (1.0 - u)),
+            (&pixels[j * width + i + 1], t * (1.0 - u)),
+            (&pixels[(j + 1) * width + i], (1.0 - t) * u),
+            (&pixels[(j + 1) * width + i + 1], t * u),
+        ];
+        if corners.iter().any(|(p, _)| p.kind != Pixel::Dose) {
+            return Some(None);
+        }
+        let mut v = [0.0; 3];
+        for (p, w) in corners {
+            v[0] += w * p.dose;
+            v[1] += w * p.disturbance;
+            v[2] += w * p.spread;
+        }
+        Some(Some(v))
+    };
+    let node_values: Vec<Result<Option<[f64; 3]>, usize>> = (0..nodes)
+        .into_par_iter()
+        .map(|n| {
+            let (i, j) = (n % na, n / na);
+            let (mut sum, mut count) = ([0.0; 3], 0usize);
+            for dy in &offsets {
+                for dx in &offsets {
+                    match sample([ua[i] + dx, ub[j] + dy]) {
+                        None => return Err(n),
+                        Some(Some(v)) => {
+                            for k in 0..3 {
+                                sum[k] += v[k];
+                            }
+                            count += 1;
+                        }
+                        Some(None) => {}
+                    }
+                }
+            }
+            Ok((count > 0).then(|| sum.map(|s| s / count as f64)))
+        })
+        .collect();
+    if let Some(Err(node)) = node_values.iter().find(|v| v.is_err()) {
         return Err(AnalysisError::new(format!(
-            "region-mm reaches beyond the scanned film near ({}, {}) mm, or the spacing ({spacing} mm) is finer than the scan's pixels ({px} mm); shrink `region-mm` to the film or coarsen `spacing-mm`",
+            "region-mm reaches beyond the scanned film near ({}, {}) mm; shrink `region-mm` to the film",
             fixed(ua[node % na], 1),
             fixed(ub[node / na], 1)
         )));
     }
-    let dose: Vec<Option<f64>> = (0..nodes)
-        .map(|n| (count[n] > 0).then(|| sum[n] / count[n] as f64))
-        .collect();
-    let disturbance: Vec<Option<f64>> = (0..nodes)
-        .map(|n| (count[n] > 0).then(|| sum_delta[n] / count[n] as f64))
-        .collect();
+    let node_values: Vec<Option<[f64; 3]>> = node_values.into_iter().flatten().collect();
+    let dose: Vec<Option<f64>> = node_values.iter().map(|v| v.map(|v| v[0])).collect();
+    let disturbance: Vec<Option<f64>> = node_values.iter().map(|v| v.map(|v| v[1])).collect();
     let disturbance_percent: Vec<Option<f64>> = disturbance
         .iter()
         .map(|d| d.map(|v| 100.0 * (v - 1.0)))
@@ -429,11 +471,9 @@ pub fn measure(
     let d_max = dose.iter().flatten().copied().fold(0.0, f64::max);
     if use_multichannel {
         let (mut s, mut n) = (0.0, 0usize);
-        for (k, d) in dose.iter().enumerate() {
-            if let Some(d) = d
-                && *d > 0.2 * d_max
-            {
-                s += 100.0 * sum_spread[k] / count[k] as f64 / d;
+        for v in node_values.iter().flatten() {
+            if v[0] > 0.2 * d_max {
+                s += 100.0 * v[2] / v[0];
                 n += 1;
             }
         }
@@ -497,7 +537,7 @@ pub fn measure(
         fixed(100.0 * RANGE_MARGIN, 0)
     ));
     notes.push(format!(
-        "Placement: {} fiducial marks, rotation {} deg, {}; each plane node ({spacing} mm) is the mean dose of the {} film pixels nearest to it.",
+        "Placement: {} fiducial marks, rotation {} deg, {}; each plane node ({spacing} mm) is the mean of the pixel doses interpolated at {} points spread evenly over its cell (about {} pixels).",
         m.fiducials.len(),
         fixed(place.angle_rad.to_degrees(), 2),
         if place.mirrored {
@@ -505,6 +545,7 @@ pub fn measure(
         } else {
             "image rows running along the plane's second axis"
         },
+        per * per,
         fixed(n_in as f64 / nodes as f64, 1)
     ));
     let mut figures = vec![Figure::Map {
