@@ -18,8 +18,9 @@ use crate::campaign::Campaign;
 use crate::checksum::{sha256_hex, verify_run};
 use crate::diag::Diagnostic;
 use crate::prepare::{InputFile, Prepared, PreparedInput, PreparedTest, prepare};
+use crate::readers::read_dataset;
 use crate::registry::Registry;
-use crate::run::{RunRecord, run};
+use crate::run::{DERIVED_DIR, RunRecord, run};
 
 /// Verdicts of a matching run.
 pub const MATCHED: &str = "MATCHED";
@@ -143,6 +144,28 @@ fn renamed(side: &str, i: &PreparedInput) -> PreparedInput {
 /// Compare run B against run A. `criteria` names one of A's campaign criteria sets (default
 /// the built-in matching set). Warnings (different campaigns or versions) come back as notes
 /// in the record's summary warnings.
+/// A run's measurement of a test and the bytes of its file: the input file, or for a film the
+/// dose plane the run derived from it (`derived/ID.csv` in the run folder).
+fn measured(side: &Side, t: &PreparedTest) -> Option<(PreparedInput, Vec<u8>)> {
+    if t.film.is_some() {
+        let rel = format!("{DERIVED_DIR}/{}.csv", t.spec.id);
+        let path = side.dir.join(&rel);
+        let bytes = std::fs::read(&path).ok()?;
+        let dataset = read_dataset(&path, &rel, None).ok()?;
+        return Some((
+            PreparedInput {
+                sha256: sha256_hex(&bytes),
+                rel,
+                dataset,
+            },
+            bytes,
+        ));
+    }
+    let m = t.measured.clone()?;
+    let bytes = std::fs::read(side.campaign.dir.join(&m.rel)).unwrap_or_default();
+    Some((m, bytes))
+}
+
 pub fn compare(
     dir_a: &Path,
     dir_b: &Path,
@@ -242,7 +265,6 @@ pub fn compare(
         }
     }
     add_file("b/campaign.yaml".into(), b.campaign.bytes.clone());
-    let src = |s: &Side, rel: &str| std::fs::read(s.campaign.dir.join(rel)).unwrap_or_default();
     let mut tests = Vec::new();
     for ta in &a.prepared.tests {
         let Some(tb) = b_tests.get(&key(ta)) else {
@@ -253,10 +275,18 @@ pub fn compare(
             notes.push(not_compared("an MU check compares each machine with the planning system, not the machines with each other"));
             continue;
         }
-        let (Some(ma), Some(mb)) = (&ta.measured, &tb.measured) else {
+        if ta.spec.kind == TestKind::FilmCalibration {
+            notes.push(not_compared(
+                "a film calibration describes a film lot, not a machine",
+            ));
+            continue;
+        }
+        let (Some((ma, bytes_a)), Some((mb, bytes_b))) = (measured(&a, ta), measured(&b, tb))
+        else {
             notes.push(not_compared("a run has no measurement"));
             continue;
         };
+        let (ma, mb) = (&ma, &mb);
         if ma.dataset.unit != mb.dataset.unit {
             notes.push(not_compared("the measurements have different dose units"));
             continue;
@@ -305,8 +335,8 @@ pub fn compare(
             ));
             continue;
         }
-        add_file(format!("a/{}", ma.rel), src(&a, &ma.rel));
-        add_file(format!("b/{}", mb.rel), src(&b, &mb.rel));
+        add_file(format!("a/{}", ma.rel), bytes_a);
+        add_file(format!("b/{}", mb.rel), bytes_b);
         let mut spec = ta.spec.clone();
         spec.name = format!(
             "{}: {} against {}",

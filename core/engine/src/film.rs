@@ -323,10 +323,12 @@ mod tests {
     use beamproof_api::{Grid, PointSet};
 
     fn calibration() -> FilmCalibration {
+        // Values whose shortest decimal form needs all 17 digits: the file must give back the
+        // very same numbers (the checksum covers them, and doses follow from them).
         let r = ChannelResponse {
-            a: 0.1,
-            b: 2.0,
-            c: -3.0,
+            a: 0.1 + 0.2,
+            b: 7.0 / 3.0,
+            c: -std::f64::consts::PI,
         };
         FilmCalibration {
             id: "cal".into(),
