@@ -3,7 +3,8 @@
 
 use beamproof_api::film::{CHANNELS, CalibrationInput, CalibrationPoint, FilmCalibration};
 use beamproof_api::{
-    AnalysisError, AnalysisOutput, CriteriaSet, Figure, Levels, Series, SeriesStyle, Table, fixed,
+    AnalysisError, AnalysisOutput, CriteriaSet, Figure, Levels, Series, SeriesStyle, Span, Table,
+    fixed,
 };
 
 use crate::fit::{fit_response, quality};
@@ -114,24 +115,6 @@ pub fn calibrate(
             ]
         })
         .collect();
-    let mut series = Vec::new();
-    let dense: Vec<f64> = (0..=100)
-        .map(|i| d_min + (d_max - d_min) * f64::from(i) / 100.0)
-        .collect();
-    for (k, name) in CHANNELS.iter().enumerate() {
-        series.push(Series {
-            name: format!("{name}, pieces"),
-            style: SeriesStyle::Markers,
-            x: doses.clone(),
-            y: points.iter().map(|p| p.value[k]).collect(),
-        });
-        series.push(Series {
-            name: format!("{name}, fitted"),
-            style: SeriesStyle::Line,
-            x: dense.clone(),
-            y: dense.iter().map(|&d| responses[k].value(d)).collect(),
-        });
-    }
     let mut notes = vec![
         format!(
             "Film lot {}; calibration scan `{}` (SHA-256 {}).",
@@ -155,6 +138,15 @@ pub fn calibrate(
             "No unexposed (0 Gy) piece: films measured with this calibration cannot use the unexposed-film correction.".into(),
         );
     }
+    let calibration = FilmCalibration {
+        id: c.id.clone(),
+        lot: c.lot.clone(),
+        scan: c.scan.source.clone(),
+        scan_sha256: c.scan_sha256.clone(),
+        responses,
+        points,
+        dose_range_gy: [d_min, d_max],
+    };
     Ok(AnalysisOutput {
         metrics,
         tables: vec![
@@ -183,26 +175,53 @@ pub fn calibrate(
                 rows: parameter_rows,
             },
         ],
-        figures: vec![Figure::Chart {
-            title: "Calibration: normalised scanner value against dose".into(),
-            x_label: "dose (Gy)".into(),
-            y_label: "scanner value / 65535".into(),
-            series,
-            bands: Vec::new(),
-            spans: Vec::new(),
-        }],
+        figures: vec![calibration_chart(&calibration, None)],
         notes,
         references: references(false),
         status: None,
         derived_measured: None,
-        calibration: Some(FilmCalibration {
-            id: c.id.clone(),
-            lot: c.lot.clone(),
-            scan: c.scan.source.clone(),
-            scan_sha256: c.scan_sha256.clone(),
-            responses,
-            points,
-            dose_range_gy: [d_min, d_max],
-        }),
+        calibration: Some(calibration),
     })
+}
+
+/// The calibration curves: each piece's mean value per channel (markers) and the fitted
+/// responses (lines), with the dose range of a measured film marked when given.
+pub fn calibration_chart(cal: &FilmCalibration, film_range: Option<(f64, f64)>) -> Figure {
+    let [d_min, d_max] = cal.dose_range_gy;
+    let dense: Vec<f64> = (0..=100)
+        .map(|i| d_min + (d_max - d_min) * f64::from(i) / 100.0)
+        .collect();
+    let mut series = Vec::new();
+    for (k, name) in CHANNELS.iter().enumerate() {
+        series.push(Series {
+            name: format!("{name}, pieces"),
+            style: SeriesStyle::Markers,
+            x: cal.points.iter().map(|p| p.dose_gy).collect(),
+            y: cal.points.iter().map(|p| p.value[k]).collect(),
+        });
+        series.push(Series {
+            name: format!("{name}, fitted"),
+            style: SeriesStyle::Line,
+            x: dense.clone(),
+            y: dense.iter().map(|&d| cal.responses[k].value(d)).collect(),
+        });
+    }
+    Figure::Chart {
+        title: format!(
+            "Calibration `{}` (lot {}): normalised scanner value against dose",
+            cal.id, cal.lot
+        ),
+        x_label: "dose (Gy)".into(),
+        y_label: "scanner value / 65535".into(),
+        series,
+        bands: Vec::new(),
+        spans: film_range
+            .map(|(lo, hi)| Span {
+                label: "doses on this film".into(),
+                from: lo,
+                to: hi,
+            })
+            .into_iter()
+            .collect(),
+    }
 }

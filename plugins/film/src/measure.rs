@@ -548,6 +548,7 @@ pub fn measure(
         per * per,
         fixed(n_in as f64 / nodes as f64, 1)
     ));
+    let d_min = dose.iter().flatten().copied().fold(f64::INFINITY, f64::min);
     let mut figures = vec![Figure::Map {
         title: "Film dose".into(),
         quantity: "dose".into(),
@@ -558,6 +559,10 @@ pub fn measure(
         y_mm: ub.clone(),
         values: dose,
     }];
+    figures.push(crate::calibrate::calibration_chart(
+        cal,
+        (d_min <= d_max).then_some((d_min, d_max)),
+    ));
     if use_multichannel {
         figures.push(Figure::Map {
             title: "Disturbance removed by the multichannel method: optical density relative to the calibration film, minus 1".into(),
