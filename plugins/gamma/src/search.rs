@@ -342,22 +342,17 @@ fn gamma_at_k<const K: usize>(
                     fu[a] = (u[a] - x0) / h[a];
                 }
                 // Cell bound: with p the cell's point nearest to u, every x of the cell has
-                // |x - u|^2 >= d^2 + |x - p|^2 (projection onto a convex set) and
-                // |D(x) - D(p)| <= lambda |x - p|, lambda the norm of the largest edge slope
-                // along each axis (each simplex's gradient component is one such slope). The
-                // minimum over r = |x - p| of r^2/dt^2 + (|D(p) - d_ref| - lambda r)^2/dd^2 is
-                // the plane formula below.
+                // |x - u|^2 >= d^2 + |x - p|^2 (projection onto a convex set). Along the
+                // segment from p to x the dose changes by gradient components that are edge
+                // slopes of the cell, and x_a - p_a keeps one sign on every axis where u lies
+                // outside the cell's span (the cell is on one side of the point). So D(x) can
+                // move towards d_ref by at most lambda |x - p|, lambda the norm over the axes of
+                // the largest edge slope in the helpful direction (either direction where u
+                // lies within the span). The minimum over r = |x - p| of
+                // r^2/dt^2 + (|D(p) - d_ref| - lambda r)^2/dd^2 is the plane formula below.
                 let mut pf = [0.0; MAX_DIMS];
-                let mut lambda2 = 0.0;
                 for a in 0..k {
                     pf[a] = fu[a].clamp(0.0, 1.0);
-                    let mut slope: f64 = 0.0;
-                    for b in 0..corners {
-                        if b & (1 << a) == 0 {
-                            slope = slope.max((cd[b | (1 << a)] - cd[b]).abs());
-                        }
-                    }
-                    lambda2 += (slope / h[a]) * (slope / h[a]);
                 }
                 let mut po = [0, 1, 2];
                 po[..k].sort_unstable_by(|&p, &q| pf[q].total_cmp(&pf[p]));
@@ -369,6 +364,33 @@ fn gamma_at_k<const K: usize>(
                     dp += cd[bits] * (pf[po[j]] - next);
                 }
                 let delta_p = dp - d_ref;
+                // Helpful direction: towards lower dose when the cell's nearest point is above
+                // the reference dose, towards higher dose when below.
+                let want = if delta_p > 0.0 { -1.0 } else { 1.0 };
+                let mut lambda2 = 0.0;
+                for a in 0..k {
+                    // Sign of x_a - p_a over the cell: +1 above the point, -1 below, 0 both.
+                    let side = if fu[a] <= 0.0 {
+                        1.0
+                    } else if fu[a] >= 1.0 {
+                        -1.0
+                    } else {
+                        0.0
+                    };
+                    let mut slope: f64 = 0.0;
+                    for b in 0..corners {
+                        if b & (1 << a) == 0 {
+                            let e = cd[b | (1 << a)] - cd[b];
+                            let rate = if side == 0.0 {
+                                e.abs()
+                            } else {
+                                (want * side * e).max(0.0)
+                            };
+                            slope = slope.max(rate);
+                        }
+                    }
+                    lambda2 += (slope / h[a]) * (slope / h[a]);
+                }
                 let mut cell_lb2 = [0.0; 16];
                 let mut any = false;
                 for c in 0..nc {
