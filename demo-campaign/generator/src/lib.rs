@@ -933,24 +933,22 @@ fn clinical_sites(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Resu
     Ok(())
 }
 
-/// A square field's depth dose (`pdd-BEAM-SIZE`) and crossplane profile at 10 cm depth
-/// (`profile-BEAM-SIZE-x`); lin-b's field is `widen` mm wider on each side.
-fn sized_field_scans(
+/// The depth dose of a square field of side `side` (mm), `pdd-BEAM-SIZE`, in percent of its
+/// maximum.
+fn pdd_scan(
     dir: &Path,
     out: &mut Vec<PathBuf>,
     noise: &mut Noise,
     (beam, fff): (&str, bool),
     side: f64,
-    positions: &[f64],
 ) -> Result<(), String> {
     let depths = steps(0.0, 250.0, 2.0);
-    let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
     let max = depths
         .iter()
         .map(|&d| depth_factor_sized(d, side, fff))
         .fold(0.0, f64::max);
     let pdd = |d: f64| 100.0 * depth_factor_sized(d, side, fff) / max;
-    let name = format!("pdd-{beam}-{size}");
+    let name = format!("pdd-{beam}-{:.0}x{:.0}", side / 10.0, side / 10.0);
     let (calc_note, meas_note) = (
         format!("calculated {name}"),
         format!("water-tank scan {name}"),
@@ -961,7 +959,21 @@ fn sized_field_scans(
         positions: &depths,
         notes: (&calc_note, &meas_note),
     }
-    .write(dir, out, noise, pdd, |_, d| pdd(d))?;
+    .write(dir, out, noise, pdd, |_, d| pdd(d))
+}
+
+/// A square field's depth dose (`pdd-BEAM-SIZE`) and crossplane profile at 10 cm depth
+/// (`profile-BEAM-SIZE-x`); lin-b's field is `widen` mm wider on each side.
+fn sized_field_scans(
+    dir: &Path,
+    out: &mut Vec<PathBuf>,
+    noise: &mut Noise,
+    (beam, fff): (&str, bool),
+    side: f64,
+    positions: &[f64],
+) -> Result<(), String> {
+    pdd_scan(dir, out, noise, (beam, fff), side)?;
+    let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
     let half = side / 2.0;
     let name = format!("profile-{beam}-{size}-x");
     let (calc_note, meas_note) = (
@@ -1043,24 +1055,7 @@ fn more_scans(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Result<(
     let xs = steps(-90.0, 90.0, 1.0);
     let wide = steps(-220.0, 220.0, 1.0);
     for (beam, fff) in [("6x", false), ("10fff", true)] {
-        let depths = steps(0.0, 250.0, 2.0);
-        let max = depths
-            .iter()
-            .map(|&d| depth_factor_sized(d, 50.0, fff))
-            .fold(0.0, f64::max);
-        let pdd = |d: f64| 100.0 * depth_factor_sized(d, 50.0, fff) / max;
-        let name = format!("pdd-{beam}-5x5");
-        let (calc_note, meas_note) = (
-            format!("calculated {name}"),
-            format!("water-tank scan {name}"),
-        );
-        ScanSet {
-            name: &name,
-            axis: "depth",
-            positions: &depths,
-            notes: (&calc_note, &meas_note),
-        }
-        .write(dir, out, noise, pdd, |_, d| pdd(d))?;
+        pdd_scan(dir, out, noise, (beam, fff), 50.0)?;
         for side in [20.0, 50.0, 300.0] {
             let positions = if side > 100.0 { &wide } else { &xs };
             for depth in [50.0, 200.0] {

@@ -89,25 +89,7 @@ pub fn multichannel(x: [f64; 3], responses: &[ChannelResponse; 3]) -> Option<Mul
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// Invented channel responses of the rational form (Micke et al 2011), red most sensitive.
-    pub(crate) const RESPONSES: [ChannelResponse; 3] = [
-        ChannelResponse {
-            a: 0.08,
-            b: 2.4,
-            c: -3.6,
-        },
-        ChannelResponse {
-            a: 0.02,
-            b: 4.8,
-            c: -7.0,
-        },
-        ChannelResponse {
-            a: -0.5,
-            b: 18.0,
-            c: -22.0,
-        },
-    ];
+    use crate::tests::RESPONSES;
 
     /// Forward model of the method's own assumption: OD_k = Δ · OD_k(D).
     fn observe(d: f64, delta: f64) -> [f64; 3] {

@@ -168,26 +168,9 @@ mod tests {
 
     #[test]
     fn recovers_known_parameters_from_exact_points() {
-        // Synthetic points on X(D) = a + b / (D - c) with invented red, green and blue
-        // parameters of the shape Micke et al 2011 describe (values falling with dose, the red
-        // channel most sensitive): the fit must return them.
-        for truth in [
-            ChannelResponse {
-                a: 0.08,
-                b: 2.4,
-                c: -3.6,
-            },
-            ChannelResponse {
-                a: 0.02,
-                b: 4.8,
-                c: -7.0,
-            },
-            ChannelResponse {
-                a: -0.5,
-                b: 18.0,
-                c: -22.0,
-            },
-        ] {
+        // Synthetic points on X(D) = a + b / (D - c) with the invented red, green and blue
+        // parameters of the tests: the fit must return them.
+        for truth in crate::tests::RESPONSES {
             let values: Vec<f64> = DOSES.iter().map(|&d| truth.value(d)).collect();
             let fit = fit_response(&DOSES, &values).expect("fits");
             assert!(
@@ -205,11 +188,7 @@ mod tests {
     fn noisy_points_give_small_dose_residuals() {
         // 0.2 % noise on the values (deterministic pattern): the fitted curve reads the
         // calibration doses back within 2 % above 0.5 Gy (common practice for film, no source).
-        let truth = ChannelResponse {
-            a: 0.08,
-            b: 2.4,
-            c: -3.6,
-        };
+        let truth = crate::tests::RESPONSES[0];
         let wiggle = [1.0, -1.0, 0.5, -0.5, 1.0, 0.0, -1.0, 0.5, -0.5, 1.0];
         let values: Vec<f64> = DOSES
             .iter()

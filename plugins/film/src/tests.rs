@@ -15,8 +15,9 @@ use beamproof_api::{
 
 use crate::Film;
 
-/// Invented responses of the rational form, red most sensitive (as in the other tests).
-const RESPONSES: [ChannelResponse; 3] = [
+/// Invented responses of the rational form X(D) = a + b / (D - c) (Micke et al 2011), values
+/// falling with dose, the red channel most sensitive; shared by the plugin's tests.
+pub(crate) const RESPONSES: [ChannelResponse; 3] = [
     ChannelResponse {
         a: 0.08,
         b: 2.4,
