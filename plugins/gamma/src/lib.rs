@@ -785,11 +785,11 @@ fn maps(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
     ]
 }
 
-/// Gamma maps on the three orthogonal planes of a 3D reference grid through its worst point
-/// (the largest gamma of the first criterion).
+/// Gamma and dose-difference maps on the three orthogonal planes of a 3D reference grid
+/// through its worst point (the largest gamma of the first criterion).
 fn worst_slices(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
     let n = b.crits.len();
-    let (nx, ny) = (gx.len(), gy.len());
+    let (nx, ny, nz) = (gx.len(), gy.len(), gz.len());
     let Some(worst) = (0..b.points.len())
         .filter(|&i| !b.gammas[i * n].is_nan())
         .max_by(|&p, &q| b.gammas[p * n].total_cmp(&b.gammas[q * n]).then(q.cmp(&p)))
@@ -797,66 +797,77 @@ fn worst_slices(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
         return Vec::new();
     };
     let (wx, wy, wz) = (worst % nx, (worst / nx) % ny, worst / (nx * ny));
-    let value = |ix: usize, iy: usize, iz: usize| {
-        Some(b.gammas[((iz * ny + iy) * nx + ix) * n]).filter(|v| !v.is_nan())
+    let index = |ix: usize, iy: usize, iz: usize| (iz * ny + iy) * nx + ix;
+    let gamma = |i: usize| Some(b.gammas[i * n]).filter(|v| !v.is_nan());
+    let norm = b.crits[0].norm_dose;
+    let diff = |i: usize| {
+        b.field
+            .local(b.points.at(i))
+            .map(|u| 100.0 * (b.field.interpolate(&u) - b.ref_dose[i]) / norm)
     };
-    let title = |plane: &str, at: String| {
-        format!(
-            "Gamma ({}), {plane} plane through the worst point, {at}",
-            label(&b.spec[0])
-        )
-    };
-    let map = |title: String,
-               xn: &str,
-               yn: &str,
-               xs: &Vec<f64>,
-               ys: &Vec<f64>,
-               values: Vec<Option<f64>>| Figure::Map {
-        title,
-        quantity: "gamma".into(),
-        unit: String::new(),
-        x_label: format!("{xn} (mm)"),
-        y_label: format!("{yn} (mm)"),
-        x_mm: xs.clone(),
-        y_mm: ys.clone(),
-        values,
-    };
-    let nz = gz.len();
-    vec![
-        map(
-            title("XY", format!("Z = {:.1} mm", gz[wz])),
-            "X",
-            "Y",
-            gx,
-            gy,
+    // Each plane: name, where it cuts, axis names and coordinates, and the reference points
+    // on it row by row.
+    let planes: [(&str, String, [&str; 2], [&Vec<f64>; 2], Vec<usize>); 3] = [
+        (
+            "XY",
+            format!("Z = {:.1} mm", gz[wz]),
+            ["X", "Y"],
+            [gx, gy],
             (0..ny)
-                .flat_map(|iy| (0..nx).map(move |ix| (ix, iy)))
-                .map(|(ix, iy)| value(ix, iy, wz))
+                .flat_map(|iy| (0..nx).map(move |ix| index(ix, iy, wz)))
                 .collect(),
         ),
-        map(
-            title("XZ", format!("Y = {:.1} mm", gy[wy])),
-            "X",
-            "Z",
-            gx,
-            gz,
+        (
+            "XZ",
+            format!("Y = {:.1} mm", gy[wy]),
+            ["X", "Z"],
+            [gx, gz],
             (0..nz)
-                .flat_map(|iz| (0..nx).map(move |ix| (ix, iz)))
-                .map(|(ix, iz)| value(ix, wy, iz))
+                .flat_map(|iz| (0..nx).map(move |ix| index(ix, wy, iz)))
                 .collect(),
         ),
-        map(
-            title("YZ", format!("X = {:.1} mm", gx[wx])),
-            "Y",
-            "Z",
-            gy,
-            gz,
+        (
+            "YZ",
+            format!("X = {:.1} mm", gx[wx]),
+            ["Y", "Z"],
+            [gy, gz],
             (0..nz)
-                .flat_map(|iz| (0..ny).map(move |iy| (iy, iz)))
-                .map(|(iy, iz)| value(wx, iy, iz))
+                .flat_map(|iz| (0..ny).map(move |iy| index(wx, iy, iz)))
                 .collect(),
         ),
-    ]
+    ];
+    let mut figures = Vec::new();
+    for (plane, at, [xn, yn], [xs, ys], points) in planes {
+        let map =
+            |title: String, quantity: &str, unit: &str, values: Vec<Option<f64>>| Figure::Map {
+                title,
+                quantity: quantity.into(),
+                unit: unit.into(),
+                x_label: format!("{xn} (mm)"),
+                y_label: format!("{yn} (mm)"),
+                x_mm: xs.clone(),
+                y_mm: ys.clone(),
+                values,
+            };
+        figures.push(map(
+            format!(
+                "Gamma ({}), {plane} plane through the worst point, {at}",
+                label(&b.spec[0])
+            ),
+            "gamma",
+            "",
+            points.iter().map(|&i| gamma(i)).collect(),
+        ));
+        figures.push(map(
+            format!(
+                "Dose difference, evaluated - reference, in % of the normalisation dose, {plane} plane through the worst point, {at}"
+            ),
+            "dose difference",
+            "%",
+            points.iter().map(|&i| diff(i)).collect(),
+        ));
+    }
+    figures
 }
 
 #[cfg(test)]

@@ -748,10 +748,34 @@ mod plugin {
             titles,
             [
                 "Gamma (3%/2mm global), XY plane through the worst point, Z = 1.0 mm",
+                "Dose difference, evaluated - reference, in % of the normalisation dose, XY plane through the worst point, Z = 1.0 mm",
                 "Gamma (3%/2mm global), XZ plane through the worst point, Y = 2.0 mm",
+                "Dose difference, evaluated - reference, in % of the normalisation dose, XZ plane through the worst point, Y = 2.0 mm",
                 "Gamma (3%/2mm global), YZ plane through the worst point, X = -2.0 mm",
+                "Dose difference, evaluated - reference, in % of the normalisation dose, YZ plane through the worst point, X = -2.0 mm",
             ]
         );
+        // The hot point's dose difference on each plane: evaluated 2.0 - reference 2.2 Gy in %
+        // of the normalisation dose (the reference maximum, 2.2 Gy): -9.09 % (arithmetic);
+        // everywhere else 0.
+        let diffs: Vec<Vec<f64>> = out
+            .figures
+            .iter()
+            .filter_map(|f| match f {
+                Figure::Map {
+                    quantity, values, ..
+                } if quantity == "dose difference" => {
+                    Some(values.iter().flatten().copied().collect())
+                }
+                _ => None,
+            })
+            .collect();
+        assert_eq!(diffs.len(), 3);
+        for d in diffs {
+            let min = d.iter().copied().fold(f64::INFINITY, f64::min);
+            assert!((min - 100.0 * (2.0 - 2.2) / 2.2).abs() < 1e-9, "{min}");
+            assert_eq!(d.iter().filter(|v| v.abs() > 1e-12).count(), 1);
+        }
     }
 
     #[test]
