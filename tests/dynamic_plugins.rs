@@ -111,9 +111,44 @@ fn a_dynamic_analysis_runs_beside_the_built_in_one() {
     let got = a["output"]["metrics"][0]["value"].as_f64().expect("value");
     assert!((got - expected).abs() < 1e-9, "{got} vs {expected}");
     let plugins = r["plugins"].as_array().expect("plugins");
-    assert!(plugins.iter().any(|p| p["name"] == "mean-dose-ratio"
-        && p["origin"] == "dynamic"
-        && p["sha256"].as_str().is_some_and(|s| s.len() == 64)));
+    let dynamic = plugins
+        .iter()
+        .find(|p| p["name"] == "mean-dose-ratio" && p["origin"] == "dynamic")
+        .expect("the dynamic plugin is listed");
+    // The library is kept in the run folder under its checksum, and the rerun command loads it
+    // from there.
+    let file = dynamic["file"].as_str().expect("file");
+    assert!(file.starts_with("plugins/"), "{file}");
+    let bytes = std::fs::read(out.join(file)).expect("library copied into the run folder");
+    let sha = beamproof_engine::checksum::sha256_hex(&bytes);
+    assert_eq!(dynamic["sha256"], sha.as_str());
+    let manifest = std::fs::read_to_string(out.join("manifest.sha256")).expect("manifest");
+    assert!(manifest.contains(&format!("{sha}  {file}\n")), "{manifest}");
+    assert!(
+        r["run"]["reproduce"]
+            .as_str()
+            .is_some_and(|c| c.contains(" --plugin-dir plugins ")),
+        "{}",
+        r["run"]["reproduce"]
+    );
+    // The rerun command, from inside the run folder, gives the same results (the copy and the
+    // original library are the same file, loaded once).
+    let rerun = out.with_file_name("rerun");
+    let o = crate::support::cli(&[
+        "run",
+        crate::support::arg(&out.join("inputs/campaign.yaml")),
+        "--machine",
+        "lin-b",
+        "--date",
+        r["run"]["date"].as_str().expect("date"),
+        "--plugin-dir",
+        crate::support::arg(&out.join("plugins")),
+        "--out",
+        crate::support::arg(&rerun),
+    ]);
+    assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
+    let again = results(&rerun);
+    assert_eq!(again["sites"], r["sites"]);
 }
 
 #[test]

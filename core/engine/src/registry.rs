@@ -112,6 +112,21 @@ impl Registry {
             for file in files {
                 match load(&file) {
                     Ok(p) => {
+                        let same_library = |o: &Origin| match (o, &p.origin) {
+                            (
+                                Origin::Dynamic { sha256: a, .. },
+                                Origin::Dynamic { sha256: b, .. },
+                            ) => a == b,
+                            _ => false,
+                        };
+                        if reg
+                            .get(&p.manifest.name)
+                            .is_some_and(|o| same_library(&o.origin))
+                        {
+                            // The same library twice (a run folder's copy beside the original
+                            // folder): one is enough.
+                            continue;
+                        }
                         if let Some(other) = reg.get(&p.manifest.name) {
                             let from = match &other.origin {
                                 Origin::BuiltIn => "a built-in plugin".to_string(),

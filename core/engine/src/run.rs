@@ -116,7 +116,7 @@ pub struct PluginRecord {
     pub description: String,
     /// `built-in` or `dynamic`.
     pub origin: &'static str,
-    /// File name and checksum of a dynamic plugin.
+    /// A dynamic plugin's library as copied into the run folder, and its checksum.
     pub file: Option<String>,
     pub sha256: Option<String>,
 }
@@ -168,6 +168,8 @@ pub struct ProductRecord {
 pub const CALIBRATIONS_DIR: &str = "calibrations";
 /// Folder of a run holding measured data derived from raw measurements (film dose planes).
 pub const DERIVED_DIR: &str = "derived";
+/// Folder of a run holding a copy of every dynamic plugin library that was loaded.
+pub const PLUGINS_DIR: &str = "plugins";
 
 #[derive(Debug, Clone, Serialize)]
 pub struct AnalysisRecord {
@@ -258,6 +260,17 @@ pub fn run(
         .collect();
     references.sort();
     references.dedup();
+    // Every dynamic plugin library goes into the run folder beside the results, so that the
+    // evidence holds the very code that analysed (its checksum is in the plugin list too).
+    let mut dynamic_dir = None;
+    for p in registry.plugins() {
+        if let Origin::Dynamic { path, .. } = &p.origin
+            && let (Some(name), Ok(bytes)) = (path.file_name(), std::fs::read(path))
+        {
+            product_files.push((format!("{PLUGINS_DIR}/{}", name.to_string_lossy()), bytes));
+            dynamic_dir = Some(PLUGINS_DIR);
+        }
+    }
     let Tps {
         name,
         version,
@@ -300,8 +313,11 @@ pub fn run(
             id: format!("{}-{}-{date}", campaign.id, prepared.machine.id),
             date: date.to_string(),
             reproduce: format!(
-                "beamproof run {INPUTS_DIR}/{campaign_name} --machine {m} --date {date} --out ../rerun-{m}-{date}",
-                m = prepared.machine.id
+                "beamproof run {INPUTS_DIR}/{campaign_name} --machine {m} --date {date}{plugins} --out ../rerun-{m}-{date}",
+                m = prepared.machine.id,
+                plugins = dynamic_dir
+                    .map(|d| format!(" --plugin-dir {d}"))
+                    .unwrap_or_default()
             ),
         },
         plugins: registry
@@ -316,9 +332,9 @@ pub fn run(
                     Origin::Dynamic { .. } => "dynamic",
                 },
                 file: match &p.origin {
-                    Origin::Dynamic { path, .. } => {
-                        path.file_name().map(|n| n.to_string_lossy().into_owned())
-                    }
+                    Origin::Dynamic { path, .. } => path
+                        .file_name()
+                        .map(|n| format!("{PLUGINS_DIR}/{}", n.to_string_lossy())),
                     Origin::BuiltIn => None,
                 },
                 sha256: match &p.origin {
