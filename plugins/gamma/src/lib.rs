@@ -785,6 +785,10 @@ fn maps(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
     ]
 }
 
+/// A plane through a 3D reference grid: name, where it cuts, axis names and coordinates, and
+/// the indices of the reference points on it, row by row.
+type Slice<'a> = (&'a str, String, [&'a str; 2], [&'a Vec<f64>; 2], Vec<usize>);
+
 /// Gamma and dose-difference maps on the three orthogonal planes of a 3D reference grid
 /// through its worst point (the largest gamma of the first criterion).
 fn worst_slices(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
@@ -805,9 +809,7 @@ fn worst_slices(b: &BuildInput, [gx, gy, gz]: [&Vec<f64>; 3]) -> Vec<Figure> {
             .local(b.points.at(i))
             .map(|u| 100.0 * (b.field.interpolate(&u) - b.ref_dose[i]) / norm)
     };
-    // Each plane: name, where it cuts, axis names and coordinates, and the reference points
-    // on it row by row.
-    let planes: [(&str, String, [&str; 2], [&Vec<f64>; 2], Vec<usize>); 3] = [
+    let planes: [Slice; 3] = [
         (
             "XY",
             format!("Z = {:.1} mm", gz[wz]),
