@@ -122,3 +122,40 @@ fn a_typst_error_names_the_generated_line() {
         "error: the report could not be made: typeset error in the source generated from template my-templates/report.typ.hbs, line 2: unclosed delimiter (in `#let x = (`)\n  = help: fix the template, or remove `report: templates:` to use the built-in one\n"
     );
 }
+
+#[test]
+fn check_compiles_the_campaign_template_before_any_run() {
+    // The same two mistakes as above, found by `check` with the same messages.
+    for (name, template, message) in [
+        (
+            "tpl-check-hbs",
+            "= {{title}}\n\n{{#each sites}}\n{{name}}\n",
+            "template my-templates/report.typ.hbs:5:1: invalid handlebars syntax",
+        ),
+        (
+            "tpl-check-typst",
+            "= {{title}}\n#let x = (\n",
+            "typeset error in the source generated from template my-templates/report.typ.hbs, line 2: unclosed delimiter",
+        ),
+    ] {
+        let campaign =
+            campaign_with_templates(name, "my-templates", &[("report.typ.hbs", template)]);
+        let o = crate::support::cli(&["check", crate::support::arg(&campaign)]);
+        assert_eq!(o.code, 2, "{name}: {}", o.stdout);
+        let dir = campaign.parent().expect("dir");
+        assert!(
+            relative(&o.stderr, dir)
+                .starts_with(&format!("error: the report could not be made: {message}")),
+            "{name}: {}",
+            o.stderr
+        );
+    }
+    // A good template passes.
+    let campaign = campaign_with_templates(
+        "tpl-check-ok",
+        "my-templates",
+        &[("report.typ.hbs", "= {{title}}\nVerdict: {{verdict}}\n")],
+    );
+    let o = crate::support::cli(&["check", crate::support::arg(&campaign)]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+}

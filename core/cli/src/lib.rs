@@ -329,7 +329,18 @@ fn check(
     } else {
         Machines::All
     };
-    let (_, _, prepared) = gather(campaign, which, plugin_dirs)?;
+    let (c, registry, prepared) = gather(campaign, which, plugin_dirs)?;
+    // A campaign's own report template is compiled too, on results without tests, so that its
+    // mistakes show now and not at the end of a run.
+    if let Some(p) = prepared.first().filter(|p| p.templates.is_some()) {
+        let empty = Prepared {
+            tests: Vec::new(),
+            ..p.clone()
+        };
+        let date = c.date.clone().unwrap_or_else(|| "2000-01-01".into());
+        let record = beamproof_engine::run::run(&c, &empty, &registry, &date, |_, _, _| {});
+        render_reports(&c, &empty, &record.to_json())?;
+    }
     let n_tests: usize = prepared.iter().map(|p| p.tests.len()).sum();
     let ids: Vec<&str> = prepared.iter().map(|p| p.machine.id.as_str()).collect();
     outln!(
@@ -526,6 +537,38 @@ fn print_folder(io: &mut Io, label: &str, out: &Path, pdf: &[u8]) {
     );
 }
 
+fn cannot_run(what: &str, e: String, help: &str) -> Failure {
+    Failure {
+        text: format!("error: {what}{e}\n  = help: {help}"),
+        code: EXIT_CANNOT_RUN,
+    }
+}
+
+/// The report and the HTML summary of `json`, with the campaign's templates when it has them.
+fn render_reports(
+    campaign: &Campaign,
+    prepared: &Prepared,
+    json: &[u8],
+) -> Result<(Vec<u8>, String), Failure> {
+    let template_help = "fix the template, or remove `report: templates:` to use the built-in one";
+    let templates = prepared.templates.as_ref().map(|p| campaign.dir.join(p));
+    let pdf = beamproof_report::render_pdf(json, templates.as_deref()).map_err(|e| {
+        cannot_run(
+            "the report could not be made: ",
+            e.to_string(),
+            template_help,
+        )
+    })?;
+    let html = beamproof_report::render_html(json, templates.as_deref()).map_err(|e| {
+        cannot_run(
+            "the HTML summary could not be made: ",
+            e.to_string(),
+            template_help,
+        )
+    })?;
+    Ok((pdf, html))
+}
+
 /// Render the report and the HTML summary from the results and write the run folder (results,
 /// report, its checksum, HTML, inputs, manifest) atomically; returns the report's bytes.
 fn write_run(
@@ -535,26 +578,7 @@ fn write_run(
     json: &[u8],
     analysis_files: &[(String, Vec<u8>)],
 ) -> Result<Vec<u8>, Failure> {
-    let fail = |what: &str, e: String, help: &str| Failure {
-        text: format!("error: {what}{e}\n  = help: {help}"),
-        code: EXIT_CANNOT_RUN,
-    };
-    let template_help = "fix the template, or remove `report: templates:` to use the built-in one";
-    let templates = prepared.templates.as_ref().map(|p| campaign.dir.join(p));
-    let pdf = beamproof_report::render_pdf(json, templates.as_deref()).map_err(|e| {
-        fail(
-            "the report could not be made: ",
-            e.to_string(),
-            template_help,
-        )
-    })?;
-    let html = beamproof_report::render_html(json, templates.as_deref()).map_err(|e| {
-        fail(
-            "the HTML summary could not be made: ",
-            e.to_string(),
-            template_help,
-        )
-    })?;
+    let (pdf, html) = render_reports(campaign, prepared, json)?;
     let pdf_sum = format!(
         "{}  report.pdf\n",
         beamproof_engine::checksum::sha256_hex(&pdf)
@@ -572,7 +596,7 @@ fn write_run(
     );
     beamproof_engine::output::write_run_folder(out, campaign, prepared, &products).map_err(
         |e| {
-            fail(
+            cannot_run(
                 "",
                 e.to_string(),
                 "choose another folder with --out, or check free space and permissions",
