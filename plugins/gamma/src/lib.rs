@@ -73,9 +73,63 @@ impl Positions {
     }
 }
 
+/// Criteria that differ only by a common scale of dose and distance (3 %/3 mm, 2 %/2 mm,
+/// 1 %/1 mm, ...) share their minimiser: scaling both criteria by lambda divides every
+/// generalised distance by lambda, so the search runs once per group and each member's gamma
+/// is the searched one times dt_searched / dt_member. Members must also share the
+/// normalisation, its dose and the threshold.
+struct Groups {
+    /// For each criterion: the criterion searched for it (itself when it leads its group).
+    searched: Vec<usize>,
+    /// The criteria that are searched, in order.
+    leaders: Vec<usize>,
+}
+
+fn groups(crits: &[Criterion], thresholds: &[f64]) -> Groups {
+    let same = |a: &Criterion, b: &Criterion, ta: f64, tb: f64| {
+        let ratio = |c: &Criterion| c.dose_fraction / c.dta_mm;
+        a.local == b.local
+            && (a.local || a.norm_dose == b.norm_dose)
+            && ta == tb
+            && (ratio(a) - ratio(b)).abs() <= 1e-12 * ratio(a).abs()
+    };
+    let mut searched = vec![usize::MAX; crits.len()];
+    let mut leaders = Vec::new();
+    for c in 0..crits.len() {
+        if searched[c] != usize::MAX {
+            continue;
+        }
+        let members: Vec<usize> = (c..crits.len())
+            .filter(|&m| {
+                searched[m] == usize::MAX
+                    && same(&crits[c], &crits[m], thresholds[c], thresholds[m])
+            })
+            .collect();
+        // The member with the largest search radius is searched: its value is exact for the
+        // most points.
+        let lead = members
+            .iter()
+            .copied()
+            .max_by(|&p, &q| {
+                crits[p]
+                    .max_search_mm
+                    .total_cmp(&crits[q].max_search_mm)
+                    .then(q.cmp(&p))
+            })
+            .unwrap_or(c);
+        for m in members {
+            searched[m] = lead;
+        }
+        leaders.push(lead);
+    }
+    Groups { searched, leaders }
+}
+
 /// Gamma of every reference point for every criterion, row-major (`gammas[i * n + c]`).
 /// NaN where a point is not evaluated: outside the evaluated grid, below `thresholds[c]`, or
-/// with zero dose under a local criterion. Runs in parallel over points.
+/// with zero dose under a local criterion. Runs in parallel over points. Proportional criteria
+/// are searched once (see [`Groups`]); a member whose minimiser lies beyond its own search
+/// radius is searched on its own, so the values equal separate searches.
 pub fn compute(
     field: &Field,
     points: &Positions,
@@ -94,6 +148,12 @@ pub fn compute(
         ),
         _ => Offsets::default(),
     };
+    let g = groups(crits, thresholds);
+    let search = |list: &[Criterion], i: usize, scratch: &mut Scratch, buf: &mut [f64]| match method
+    {
+        Method::Sampled { .. } => gamma_sampled(field, list, &offsets, points.at(i), doses[i], buf),
+        _ => gamma_at(field, list, method, points.at(i), doses[i], scratch, buf),
+    };
     out.par_chunks_mut(n.max(1)).enumerate().for_each_init(
         || {
             (
@@ -106,37 +166,36 @@ pub fn compute(
         |(scratch, active, which, buf), (i, row)| {
             active.clear();
             which.clear();
-            for (c, cr) in crits.iter().enumerate() {
-                if doses[i] >= thresholds[c] && cr.delta_dose(doses[i]) > 0.0 {
-                    active.push(*cr);
+            for &c in &g.leaders {
+                if doses[i] >= thresholds[c] && crits[c].delta_dose(doses[i]) > 0.0 {
+                    active.push(crits[c]);
                     which.push(c);
                 }
             }
             if active.is_empty() {
                 return;
             }
-            let evaluated = match method {
-                Method::Sampled { .. } => gamma_sampled(
-                    field,
-                    active,
-                    &offsets,
-                    points.at(i),
-                    doses[i],
-                    &mut buf[..active.len()],
-                ),
-                _ => gamma_at(
-                    field,
-                    active,
-                    method,
-                    points.at(i),
-                    doses[i],
-                    scratch,
-                    &mut buf[..active.len()],
-                ),
-            };
-            if evaluated {
-                for (j, &c) in which.iter().enumerate() {
-                    row[c] = buf[j];
+            if !search(active, i, scratch, &mut buf[..active.len()]) {
+                return;
+            }
+            for (j, &lead) in which.iter().enumerate() {
+                row[lead] = buf[j];
+            }
+            for c in 0..n {
+                let lead = g.searched[c];
+                if lead == c || row[lead].is_nan() {
+                    continue;
+                }
+                let (l, m) = (&crits[lead], &crits[c]);
+                // The minimiser lies at distance gamma_lead * dta_lead; within the member's
+                // radius the member's value is the scaled one, else search it alone.
+                if row[lead] * l.dta_mm <= m.max_search_mm * (1.0 + 1e-12) {
+                    row[c] = row[lead] * l.dta_mm / m.dta_mm;
+                } else {
+                    let mut one = [0.0];
+                    if search(&[*m], i, scratch, &mut one) {
+                        row[c] = one[0];
+                    }
                 }
             }
         },

@@ -514,7 +514,9 @@ fn pass_rate_never_drops_as_criteria_loosen() {
         rates[0] < rates[5],
         "the sweep should span different pass rates: {rates:?}"
     );
-    // One search for six criteria equals six separate searches.
+    // One search for six criteria equals six separate searches (proportional criteria, such
+    // as 1 %/1 mm, 2 %/2 mm, 3 %/3 mm and 4 %/4 mm, are searched once and scaled: equal up to
+    // rounding, the same minimiser in the homogeneous gamma metric).
     for (c, cr) in crits.iter().enumerate() {
         let single = compute(
             &field,
@@ -527,10 +529,52 @@ fn pass_rate_never_drops_as_criteria_loosen() {
         for i in 0..pts.len() {
             let (a, b) = (single[i], out[i * crits.len() + c]);
             assert!(
-                a == b || (a.is_nan() && b.is_nan()),
+                (a - b).abs() <= 1e-12 * a.abs() || (a.is_nan() && b.is_nan()),
                 "criterion {c} point {i}: {a} vs {b}"
             );
         }
+    }
+}
+
+#[test]
+fn proportional_criteria_share_one_search_and_fall_back_beyond_their_radius() {
+    // 1 %/1 mm with a 1.5 mm search radius beside 4 %/4 mm with 12 mm: the same metric up to
+    // a factor 4 (gamma is homogeneous in the two criteria), but points whose minimiser lies
+    // beyond 1.5 mm need their own restricted search. A 3 mm shift and 8 % scaling puts many
+    // minimisers there. Every value must equal the separate search (up to rounding).
+    let xs = steps(-12.0, 12.0, 1.0);
+    let f = blobs(11, 3);
+    let reference = grid(&xs, &xs, &[0.0], &f);
+    let eval = grid(&xs, &xs, &[0.0], |x, y, z| 1.08 * f(x - 3.0, y, z));
+    let field = Field::from_grid(&eval).expect("field");
+    let pts: Vec<[f64; 3]> = (0..reference.dose.len())
+        .map(|i| [xs[i % xs.len()], xs[i / xs.len()], 0.0])
+        .collect();
+    let norm = reference.dose.iter().copied().fold(0.0, f64::max);
+    let mut tight = crit(1.0, 1.0, norm, false);
+    tight.max_search_mm = 1.5;
+    let loose = crit(4.0, 4.0, norm, false);
+    let th = vec![0.1 * norm; 2];
+    for method in [Method::Exact, Method::Nodes] {
+        let both = compute(&field, &pts, &reference.dose, &[tight, loose], &th, method);
+        let mut fell_back = 0;
+        for (c, cr) in [tight, loose].iter().enumerate() {
+            let single = compute(&field, &pts, &reference.dose, &[*cr], &th[..1], method);
+            for i in 0..pts.len() {
+                let (a, b) = (single[i], both[i * 2 + c]);
+                assert!(
+                    (a - b).abs() <= 1e-12 * a.abs() || (a.is_nan() && b.is_nan()),
+                    "{method:?} criterion {c} point {i}: {a} vs {b}"
+                );
+                if c == 0 && !a.is_nan() && both[i * 2 + 1] * 4.0 > 1.5 {
+                    fell_back += 1;
+                }
+            }
+        }
+        assert!(
+            fell_back > 10,
+            "{method:?}: the fallback was exercised {fell_back} times"
+        );
     }
 }
 
