@@ -18,7 +18,7 @@ use beamproof_api::{
 use rayon::prelude::*;
 
 use crate::dose::multichannel;
-use crate::placement;
+use crate::placement::{self, Placement};
 use crate::{check_channels, info, judged, references, region_values};
 
 /// Default levels of the fiducial residual (root mean square, mm; common practice, no source):
@@ -130,65 +130,42 @@ fn axis(from: f64, to: f64, step: f64) -> Vec<f64> {
     (0..=n).map(|i| from + i as f64 * step).collect()
 }
 
-/// Turn a measured film into a dose plane.
-pub fn measure(
+/// Scale factors per channel from unexposed film on this scan against the calibration's
+/// zero-dose piece (scanner drift between the calibration scan and this one); 1 without it.
+fn unexposed_factors(
     m: &FilmMeasurement,
-    use_multichannel: bool,
-    spacing: f64,
-    criteria: &CriteriaSet,
-) -> Result<AnalysisOutput, AnalysisError> {
+    notes: &mut Vec<String>,
+) -> Result<[f64; 3], AnalysisError> {
+    let Some(region) = m.unexposed_region_px else {
+        return Ok([1.0; 3]);
+    };
     let cal = &m.calibration;
-    if m.lot != cal.lot {
+    let zero = cal.points.iter().find(|p| p.dose_gy == 0.0).ok_or_else(|| {
+        AnalysisError::new(format!(
+            "the unexposed-film correction needs a 0 Gy piece in calibration `{}`; add one or remove `unexposed-px`",
+            cal.id
+        ))
+    })?;
+    let stats = region_values(&m.scan, region, None)
+        .map_err(|e| AnalysisError::new(format!("unexposed region: {e}")))?;
+    let factors = [0, 1, 2].map(|k| zero.value[k] / stats.mean[k]);
+    if factors.iter().any(|f| !(0.9..=1.1).contains(f)) {
         return Err(AnalysisError::new(format!(
-            "the film is from lot `{}` but calibration `{}` was made for lot `{}`: calibrate this lot, or name the calibration of lot `{}`",
-            m.lot, cal.id, cal.lot, m.lot
+            "the unexposed film reads more than 10 % away from the calibration's unexposed piece (factors {:.3}, {:.3}, {:.3}): another scanner setting or film lot?",
+            factors[0], factors[1], factors[2]
         )));
     }
-    let scan = &m.scan;
-    check_channels(scan)?;
-    let mut notes = Vec::new();
-    // Scanner drift: unexposed film on this scan against the calibration's zero-dose piece.
-    let mut factors = [1.0; 3];
-    if let Some(region) = m.unexposed_region_px {
-        let zero = cal.points.iter().find(|p| p.dose_gy == 0.0).ok_or_else(|| {
-            AnalysisError::new(format!(
-                "the unexposed-film correction needs a 0 Gy piece in calibration `{}`; add one or remove `unexposed-px`",
-                cal.id
-            ))
-        })?;
-        let stats = region_values(scan, region, None)
-            .map_err(|e| AnalysisError::new(format!("unexposed region: {e}")))?;
-        factors = [0, 1, 2].map(|k| zero.value[k] / stats.mean[k]);
-        if factors.iter().any(|f| !(0.9..=1.1).contains(f)) {
-            return Err(AnalysisError::new(format!(
-                "the unexposed film reads more than 10 % away from the calibration's unexposed piece (factors {:.3}, {:.3}, {:.3}): another scanner setting or film lot?",
-                factors[0], factors[1], factors[2]
-            )));
-        }
-        notes.push(format!(
-            "Unexposed-film correction: values scaled by {:.4} (red), {:.4} (green), {:.4} (blue) so that the unexposed region matches the calibration's 0 Gy piece.",
-            factors[0], factors[1], factors[2]
-        ));
-    }
-    let lateral = match &m.lateral {
-        Some(l) => {
-            let f = lateral_factors(l, scan)?;
-            let worst = f
-                .iter()
-                .flat_map(|v| v.iter())
-                .map(|v| (v - 1.0).abs())
-                .fold(0.0, f64::max);
-            notes.push(format!(
-                "Scanner lateral-response correction from `{}`: one factor per column and channel (largest {:.2} %), applied at every dose (first order).",
-                l.source,
-                100.0 * worst
-            ));
-            Some(f)
-        }
-        None => None,
-    };
-    // Placement from the fiducials.
-    let [px, py] = scan.pixel_mm;
+    notes.push(format!(
+        "Unexposed-film correction: values scaled by {:.4} (red), {:.4} (green), {:.4} (blue) so that the unexposed region matches the calibration's 0 Gy piece.",
+        factors[0], factors[1], factors[2]
+    ));
+    Ok(factors)
+}
+
+/// The film's placement from its fiducials; a scale beyond [`SCALE_LIMIT`] from the scan's
+/// pixel pitch is refused as a mismatched resolution.
+fn place_film(m: &FilmMeasurement) -> Result<Placement, AnalysisError> {
+    let [px, py] = m.scan.pixel_mm;
     let from: Vec<[f64; 2]> = m
         .fiducials
         .iter()
@@ -209,6 +186,176 @@ pub fn measure(
             py
         )));
     }
+    Ok(place)
+}
+
+/// The dose of every scan pixel in the bounding box of a plane region: columns `c0..` and rows
+/// `r0..`, `width` x `height`, row by row.
+struct PixelImage {
+    c0: usize,
+    r0: usize,
+    width: usize,
+    height: usize,
+    pixel_mm: [f64; 2],
+    pixels: Vec<PixelDose>,
+}
+
+impl PixelImage {
+    /// Pixel doses of the scan's pixels that may fall within `bounds` (plane mm: first-axis
+    /// minimum and maximum, second-axis minimum and maximum), after the channel `factors` and
+    /// the lateral correction; saturated pixels, pixels whose channels cannot agree and doses
+    /// beyond the calibrated range (plus [`RANGE_MARGIN`]) are marked, never extrapolated.
+    fn new(
+        m: &FilmMeasurement,
+        place: &Placement,
+        [a0, a1, b0, b1]: [f64; 4],
+        factors: [f64; 3],
+        lateral: Option<&[[f64; 3]]>,
+        use_multichannel: bool,
+    ) -> PixelImage {
+        let scan = &m.scan;
+        let [px, py] = scan.pixel_mm;
+        let corners = [[a0, b0], [a1, b0], [a0, b1], [a1, b1]].map(|q| place.to_scan(q));
+        let lo = |k: usize, pitch: f64, n: usize| {
+            let v = corners.iter().map(|c| c[k]).fold(f64::INFINITY, f64::min) / pitch;
+            (v.floor().max(0.0) as usize).min(n.saturating_sub(1))
+        };
+        let hi = |k: usize, pitch: f64, n: usize| {
+            let v = corners
+                .iter()
+                .map(|c| c[k])
+                .fold(f64::NEG_INFINITY, f64::max)
+                / pitch;
+            (v.ceil().max(0.0) as usize).min(n.saturating_sub(1))
+        };
+        let (c0, c1) = (lo(0, px, scan.width), hi(0, px, scan.width));
+        let (r0, r1) = (lo(1, py, scan.height), hi(1, py, scan.height));
+        let responses = m.calibration.responses;
+        let [d_lo, d_hi] = m.calibration.dose_range_gy;
+        let margin = RANGE_MARGIN * d_hi;
+        let channels = scan.channels();
+        let pixels: Vec<PixelDose> = (r0..=r1)
+            .into_par_iter()
+            .flat_map_iter(|r| {
+                (c0..=c1).map(move |c| {
+                    let i = r * scan.width + c;
+                    let raw = [channels[0][i], channels[1][i], channels[2][i]];
+                    let unreadable = PixelDose {
+                        kind: Pixel::Unreadable,
+                        dose: f64::NAN,
+                        disturbance: f64::NAN,
+                        spread: f64::NAN,
+                    };
+                    if raw.iter().any(|&v| v == 0 || v == u16::MAX) {
+                        return unreadable;
+                    }
+                    let lat = lateral.map_or([1.0; 3], |l| l[c]);
+                    let x = [0, 1, 2].map(|k| f64::from(raw[k]) / 65535.0 * factors[k] * lat[k]);
+                    let (dose, disturbance, spread) = if use_multichannel {
+                        match multichannel(x, &responses) {
+                            Some(mc) => (mc.dose, mc.disturbance, mc.spread),
+                            None => return unreadable,
+                        }
+                    } else {
+                        (responses[0].dose(x[0]), 1.0, 0.0)
+                    };
+                    if !dose.is_finite() || dose < d_lo - margin || dose > d_hi + margin {
+                        return PixelDose {
+                            kind: Pixel::OutsideRange,
+                            ..unreadable
+                        };
+                    }
+                    PixelDose {
+                        kind: Pixel::Dose,
+                        dose: dose.max(0.0),
+                        disturbance,
+                        spread,
+                    }
+                })
+            })
+            .collect();
+        PixelImage {
+            c0,
+            r0,
+            width: c1 - c0 + 1,
+            height: r1 - r0 + 1,
+            pixel_mm: scan.pixel_mm,
+            pixels,
+        }
+    }
+
+    /// Dose, disturbance and channel spread interpolated bilinearly at plane position `q`:
+    /// `None` outside the image, `Some(None)` when a neighbouring pixel has no dose.
+    fn sample(&self, place: &Placement, q: [f64; 2]) -> Option<Option<[f64; 3]>> {
+        let (width, height) = (self.width, self.height);
+        let p = place.to_scan(q);
+        let fc = p[0] / self.pixel_mm[0] - self.c0 as f64;
+        let fr = p[1] / self.pixel_mm[1] - self.r0 as f64;
+        if width < 2 || height < 2 || !(fc >= 0.0 && fr >= 0.0) {
+            return None;
+        }
+        if fc > (width - 1) as f64 || fr > (height - 1) as f64 {
+            return None;
+        }
+        let (i, j) = ((fc as usize).min(width - 2), (fr as usize).min(height - 2));
+        let (t, u) = (fc - i as f64, fr - j as f64);
+        let px = &self.pixels;
+        let corners = [
+            (&px[j * width + i], (1.0 - t) * (1.0 - u)),
+            (&px[j * width + i + 1], t * (1.0 - u)),
+            (&px[(j + 1) * width + i], (1.0 - t) * u),
+            (&px[(j + 1) * width + i + 1], t * u),
+        ];
+        if corners.iter().any(|(p, _)| p.kind != Pixel::Dose) {
+            return Some(None);
+        }
+        let mut v = [0.0; 3];
+        for (p, w) in corners {
+            v[0] += w * p.dose;
+            v[1] += w * p.disturbance;
+            v[2] += w * p.spread;
+        }
+        Some(Some(v))
+    }
+}
+
+/// Turn a measured film into a dose plane.
+pub fn measure(
+    m: &FilmMeasurement,
+    use_multichannel: bool,
+    spacing: f64,
+    criteria: &CriteriaSet,
+) -> Result<AnalysisOutput, AnalysisError> {
+    let cal = &m.calibration;
+    if m.lot != cal.lot {
+        return Err(AnalysisError::new(format!(
+            "the film is from lot `{}` but calibration `{}` was made for lot `{}`: calibrate this lot, or name the calibration of lot `{}`",
+            m.lot, cal.id, cal.lot, m.lot
+        )));
+    }
+    let scan = &m.scan;
+    check_channels(scan)?;
+    let mut notes = Vec::new();
+    let factors = unexposed_factors(m, &mut notes)?;
+    let lateral = match &m.lateral {
+        Some(l) => {
+            let f = lateral_factors(l, scan)?;
+            let worst = f
+                .iter()
+                .flat_map(|v| v.iter())
+                .map(|v| (v - 1.0).abs())
+                .fold(0.0, f64::max);
+            notes.push(format!(
+                "Scanner lateral-response correction from `{}`: one factor per column and channel (largest {:.2} %), applied at every dose (first order).",
+                l.source,
+                100.0 * worst
+            ));
+            Some(f)
+        }
+        None => None,
+    };
+    let [px, py] = scan.pixel_mm;
+    let place = place_film(m)?;
     // Output nodes.
     let [a0, a1, b0, b1] = m.region_mm;
     let (ua, ub) = (axis(a0, a1, spacing), axis(b0, b1, spacing));
@@ -218,75 +365,17 @@ pub fn measure(
         )));
     }
     let (na, nb) = (ua.len(), ub.len());
-    // Pixels that may fall within the region (with half a node of margin).
     let h = spacing / 2.0;
-    let corners = [
-        [a0 - h, b0 - h],
-        [a1 + h, b0 - h],
-        [a0 - h, b1 + h],
-        [a1 + h, b1 + h],
-    ]
-    .map(|q| place.to_scan(q));
-    let lo = |k: usize, pitch: f64, n: usize| {
-        let v = corners.iter().map(|c| c[k]).fold(f64::INFINITY, f64::min) / pitch;
-        (v.floor().max(0.0) as usize).min(n.saturating_sub(1))
-    };
-    let hi = |k: usize, pitch: f64, n: usize| {
-        let v = corners
-            .iter()
-            .map(|c| c[k])
-            .fold(f64::NEG_INFINITY, f64::max)
-            / pitch;
-        (v.ceil().max(0.0) as usize).min(n.saturating_sub(1))
-    };
-    let (c0, c1) = (lo(0, px, scan.width), hi(0, px, scan.width));
-    let (r0, r1) = (lo(1, py, scan.height), hi(1, py, scan.height));
-    let responses = cal.responses;
-    let [d_lo, d_hi] = cal.dose_range_gy;
-    let margin = RANGE_MARGIN * d_hi;
-    let channels = scan.channels();
-    let width = c1 - c0 + 1;
-    let lateral = lateral.as_deref();
-    let pixels: Vec<PixelDose> = (r0..=r1)
-        .into_par_iter()
-        .flat_map_iter(|r| {
-            (c0..=c1).map(move |c| {
-                let i = r * scan.width + c;
-                let raw = [channels[0][i], channels[1][i], channels[2][i]];
-                let unreadable = PixelDose {
-                    kind: Pixel::Unreadable,
-                    dose: f64::NAN,
-                    disturbance: f64::NAN,
-                    spread: f64::NAN,
-                };
-                if raw.iter().any(|&v| v == 0 || v == u16::MAX) {
-                    return unreadable;
-                }
-                let lat = lateral.map_or([1.0; 3], |l| l[c]);
-                let x = [0, 1, 2].map(|k| f64::from(raw[k]) / 65535.0 * factors[k] * lat[k]);
-                let (dose, disturbance, spread) = if use_multichannel {
-                    match multichannel(x, &responses) {
-                        Some(mc) => (mc.dose, mc.disturbance, mc.spread),
-                        None => return unreadable,
-                    }
-                } else {
-                    (responses[0].dose(x[0]), 1.0, 0.0)
-                };
-                if !dose.is_finite() || dose < d_lo - margin || dose > d_hi + margin {
-                    return PixelDose {
-                        kind: Pixel::OutsideRange,
-                        ..unreadable
-                    };
-                }
-                PixelDose {
-                    kind: Pixel::Dose,
-                    dose: dose.max(0.0),
-                    disturbance,
-                    spread,
-                }
-            })
-        })
-        .collect();
+    let image = PixelImage::new(
+        m,
+        &place,
+        [a0 - h, a1 + h, b0 - h, b1 + h],
+        factors,
+        lateral.as_deref(),
+        use_multichannel,
+    );
+    let (c0, r0, width) = (image.c0, image.r0, image.width);
+    let pixels = &image.pixels;
     // Share of excluded pixels among the pixels within the region (for the metrics).
     let nodes = na * nb;
     let (mut n_in, mut n_outside, mut n_unreadable) = (0usize, 0usize, 0usize);
@@ -310,35 +399,6 @@ pub fn measure(
     let offsets: Vec<f64> = (0..per)
         .map(|k| ((k as f64 + 0.5) / per as f64 - 0.5) * spacing)
         .collect();
-    let height = r1 - r0 + 1;
-    let sample = |q: [f64; 2]| -> Option<Option<[f64; 3]>> {
-        let p = place.to_scan(q);
-        let (fc, fr) = (p[0] / px - c0 as f64, p[1] / py - r0 as f64);
-        if width < 2 || height < 2 || !(fc >= 0.0 && fr >= 0.0) {
-            return None;
-        }
-        if fc > (width - 1) as f64 || fr > (height - 1) as f64 {
-            return None;
-        }
-        let (i, j) = ((fc as usize).min(width - 2), (fr as usize).min(height - 2));
-        let (t, u) = (fc - i as f64, fr - j as f64);
-        let corners = [
-            (&pixels[j * width + i], (1.0 - t) * (1.0 - u)),
-            (&pixels[j * width + i + 1], t * (1.0 - u)),
-            (&pixels[(j + 1) * width + i], (1.0 - t) * u),
-            (&pixels[(j + 1) * width + i + 1], t * u),
-        ];
-        if corners.iter().any(|(p, _)| p.kind != Pixel::Dose) {
-            return Some(None);
-        }
-        let mut v = [0.0; 3];
-        for (p, w) in corners {
-            v[0] += w * p.dose;
-            v[1] += w * p.disturbance;
-            v[2] += w * p.spread;
-        }
-        Some(Some(v))
-    };
     let node_values: Vec<Result<Option<[f64; 3]>, usize>> = (0..nodes)
         .into_par_iter()
         .map(|n| {
@@ -346,7 +406,7 @@ pub fn measure(
             let (mut sum, mut count) = ([0.0; 3], 0usize);
             for dy in &offsets {
                 for dx in &offsets {
-                    match sample([ua[i] + dx, ub[j] + dy]) {
+                    match image.sample(&place, [ua[i] + dx, ub[j] + dy]) {
                         None => return Err(n),
                         Some(Some(v)) => {
                             for k in 0..3 {
@@ -503,9 +563,8 @@ pub fn measure(
     let fiducial_rows = m
         .fiducials
         .iter()
-        .zip(&from)
-        .map(|(f, p)| {
-            let q = place.to_plane(*p);
+        .map(|f| {
+            let q = place.to_plane([f.pixel[0] * px, f.pixel[1] * py]);
             let r = ((q[0] - f.position_mm[0]).powi(2) + (q[1] - f.position_mm[1]).powi(2)).sqrt();
             vec![
                 f.label.clone(),
@@ -532,8 +591,8 @@ pub fn measure(
         "Calibration `{}` (lot {}, {} to {} Gy); doses more than {} % of the top dose beyond that range are excluded, never extrapolated; doses below zero within that margin are set to zero.",
         cal.id,
         cal.lot,
-        fixed(d_lo, 2),
-        fixed(d_hi, 2),
+        fixed(cal.dose_range_gy[0], 2),
+        fixed(cal.dose_range_gy[1], 2),
         fixed(100.0 * RANGE_MARGIN, 0)
     ));
     notes.push(format!(
