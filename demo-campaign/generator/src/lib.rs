@@ -283,6 +283,31 @@ impl ScanSet<'_> {
     }
 }
 
+/// A scan set whose notes are the usual ones: "calculated NAME" and "water-tank scan NAME".
+#[allow(clippy::too_many_arguments)]
+fn tank_scan(
+    dir: &Path,
+    out: &mut Vec<PathBuf>,
+    noise: &mut Noise,
+    name: &str,
+    axis: &str,
+    positions: &[f64],
+    calc: impl Fn(f64) -> f64,
+    measured: impl Fn(&Machine, f64) -> f64,
+) -> Result<(), String> {
+    let (calc_note, meas_note) = (
+        format!("calculated {name}"),
+        format!("water-tank scan {name}"),
+    );
+    ScanSet {
+        name,
+        axis,
+        positions,
+        notes: (&calc_note, &meas_note),
+    }
+    .write(dir, out, noise, calc, measured)
+}
+
 /// A detector array's readings on a square grid of detector positions in the isocentre plane
 /// (IEC z = 0), written as `MACHINE/NAME.csv` with labels `{label}001`, ... in row order (y
 /// outer, x inner: the order in which `reading` is called, which fixes the noise sequence).
@@ -508,20 +533,13 @@ pub fn generate(dir: &Path) -> Result<Vec<PathBuf>, String> {
         for (name, axis, positions, f) in &scans {
             let slab = name.starts_with("slab");
             let asym = name.starts_with("asym");
-            let (calc_note, meas_note) = (
-                format!("calculated {name}"),
-                format!("water-tank scan {name}"),
-            );
-            ScanSet {
-                name,
-                axis,
-                positions,
-                notes: (&calc_note, &meas_note),
-            }
-            .write(
+            tank_scan(
                 dir,
                 &mut out,
                 &mut noise,
+                name,
+                axis,
+                positions,
                 |p| f(p, if slab { 0.32 } else { 0.0 }),
                 |m, p| {
                     let param = if slab {
@@ -949,17 +967,7 @@ fn pdd_scan(
         .fold(0.0, f64::max);
     let pdd = |d: f64| 100.0 * depth_factor_sized(d, side, fff) / max;
     let name = format!("pdd-{beam}-{:.0}x{:.0}", side / 10.0, side / 10.0);
-    let (calc_note, meas_note) = (
-        format!("calculated {name}"),
-        format!("water-tank scan {name}"),
-    );
-    ScanSet {
-        name: &name,
-        axis: "depth",
-        positions: &depths,
-        notes: (&calc_note, &meas_note),
-    }
-    .write(dir, out, noise, pdd, |_, d| pdd(d))
+    tank_scan(dir, out, noise, &name, "depth", &depths, pdd, |_, d| pdd(d))
 }
 
 /// A square field's depth dose (`pdd-BEAM-SIZE`) and crossplane profile at 10 cm depth
@@ -975,21 +983,13 @@ fn sized_field_scans(
     pdd_scan(dir, out, noise, (beam, fff), side)?;
     let size = format!("{:.0}x{:.0}", side / 10.0, side / 10.0);
     let half = side / 2.0;
-    let name = format!("profile-{beam}-{size}-x");
-    let (calc_note, meas_note) = (
-        format!("calculated {name}"),
-        format!("water-tank scan {name}"),
-    );
-    ScanSet {
-        name: &name,
-        axis: "x",
-        positions,
-        notes: (&calc_note, &meas_note),
-    }
-    .write(
+    tank_scan(
         dir,
         out,
         noise,
+        &format!("profile-{beam}-{size}-x"),
+        "x",
+        positions,
         |x| profile_percent(x, half, fff),
         |m, x| profile_percent(x / ((half + m.widen) / half), half, fff),
     )
@@ -1030,20 +1030,13 @@ fn depth_profile_scan(
         side / 10.0,
         side / 10.0
     );
-    let (calc_note, meas_note) = (
-        format!("calculated {name}"),
-        format!("water-tank scan {name}"),
-    );
-    ScanSet {
-        name: &name,
-        axis: "x",
-        positions,
-        notes: (&calc_note, &meas_note),
-    }
-    .write(
+    tank_scan(
         dir,
         out,
         noise,
+        &name,
+        "x",
+        positions,
         |x| depth_profile(x, side, depth, 0.0, fff),
         |m, x| depth_profile(x, side, depth, m.widen, fff),
     )
@@ -1063,19 +1056,13 @@ fn more_scans(dir: &Path, out: &mut Vec<PathBuf>, noise: &mut Noise) -> Result<(
             }
         }
     }
-    ScanSet {
-        name: "profile-10fff-5x5-x",
-        axis: "x",
-        positions: &xs,
-        notes: (
-            "calculated profile-10fff-5x5-x",
-            "water-tank scan profile-10fff-5x5-x",
-        ),
-    }
-    .write(
+    tank_scan(
         dir,
         out,
         noise,
+        "profile-10fff-5x5-x",
+        "x",
+        &xs,
         |x| profile_percent(x, 25.0, true),
         |m, x| profile_percent(x / ((25.0 + m.widen) / 25.0), 25.0, true),
     )
