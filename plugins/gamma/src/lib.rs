@@ -128,7 +128,7 @@ fn groups(crits: &[Criterion], thresholds: &[f64]) -> Groups {
 /// Gamma of every reference point for every criterion, row-major (`gammas[i * n + c]`).
 /// NaN where a point is not evaluated: outside the evaluated grid, below `thresholds[c]`, or
 /// with zero dose under a local criterion. Runs in parallel over points. Proportional criteria
-/// are searched once (see [`Groups`]); a member whose minimiser lies beyond its own search
+/// are searched once (see `Groups`); a member whose minimiser lies beyond its own search
 /// radius is searched on its own, so the values equal separate searches.
 pub fn compute(
     field: &Field,
