@@ -424,12 +424,16 @@ fn run_campaign(
         &record.to_json(),
         &record.product_files,
     )?;
-    let s = &record.summary;
     print_folder(io, "run folder", &out, &pdf);
+    print_summary(io, &format!("machine {}", m.id), "tests", &record.summary);
+    Ok(if record.is_go() { EXIT_GO } else { EXIT_NO_GO })
+}
+
+/// The counts, verdict, reasons and notes of a run, then the cautions.
+fn print_summary(io: &mut Io, heading: &str, counted: &str, s: &beamproof_engine::run::Summary) {
     outln!(
         io,
-        "machine {} · {} tests: {} pass, {} warn, {} fail, {} error",
-        m.id,
+        "{heading} · {} {counted}: {} pass, {} warn, {} fail, {} error",
         s.tests,
         s.pass,
         s.warn,
@@ -440,11 +444,13 @@ fn run_campaign(
     for r in &s.reasons {
         outln!(io, "  - {r}");
     }
+    for n in &s.notes {
+        outln!(io, "note: {n}");
+    }
     outln!(io, "");
     for caution in CAUTIONS {
         outln!(io, "caution: {caution}");
     }
-    Ok(if record.is_go() { EXIT_GO } else { EXIT_NO_GO })
 }
 
 fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8, Failure> {
@@ -646,27 +652,7 @@ fn compare(
     )?;
     let s = &c.record.summary;
     print_folder(io, "matching run folder", &out, &pdf);
-    outln!(
-        io,
-        "{} · {} tests compared: {} pass, {} warn, {} fail, {} error",
-        c.record.machine.description,
-        s.tests,
-        s.pass,
-        s.warn,
-        s.fail,
-        s.error
-    );
-    outln!(io, "verdict: {} (advisory)", s.verdict);
-    for r in &s.reasons {
-        outln!(io, "  - {r}");
-    }
-    for n in &s.notes {
-        outln!(io, "note: {n}");
-    }
-    outln!(io, "");
-    for caution in CAUTIONS {
-        outln!(io, "caution: {caution}");
-    }
+    print_summary(io, &c.record.machine.description, "tests compared", s);
     Ok(if s.verdict == beamproof_engine::compare::MATCHED {
         EXIT_GO
     } else {
