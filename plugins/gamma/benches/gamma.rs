@@ -13,6 +13,7 @@ use std::time::Instant;
 use beamproof_api::Grid;
 use beamproof_plugin_gamma::field::Field;
 use beamproof_plugin_gamma::search::{Criterion, Method};
+use beamproof_plugin_gamma::star::counters;
 use beamproof_plugin_gamma::{Positions, compute, stats};
 
 /// Deterministic normal deviates (64-bit LCG + Box-Muller), seeded.
@@ -121,6 +122,7 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
     };
     let mut best = f64::INFINITY;
     let mut out = Vec::new();
+    counters::reset();
     for _ in 0..repeats {
         let t = Instant::now();
         out = compute(
@@ -145,6 +147,9 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
         crits.len(),
         rayon::current_num_threads()
     );
+    if let Some(line) = counters::summary() {
+        println!("{:>14}  {line}", "");
+    }
 }
 
 /// Name, grid size, criteria (dose %, DTA mm) and repeats of one benchmark case.
@@ -155,7 +160,25 @@ fn main() {
         .skip(1)
         .filter(|a| !a.starts_with('-'))
         .collect();
-    let want = |n: &str| filter.is_empty() || filter.iter().any(|f| n.contains(f.as_str()));
+    // A case name selects that case; any other word every case whose name contains it.
+    let names = [
+        "1d-1000",
+        "2d-400",
+        "3d-128",
+        "3d-128-sweep",
+        "3d-128-six",
+        "3d-256",
+    ];
+    let want = |n: &str| {
+        filter.is_empty()
+            || filter.iter().any(|f| {
+                if names.contains(&f.as_str()) {
+                    n == f
+                } else {
+                    n.contains(f.as_str())
+                }
+            })
+    };
     let single = [(3.0, 2.0)];
     let sweep = [(3.0, 2.0), (4.0, 4.0), (3.0, 3.0), (2.0, 2.0), (1.0, 1.0)];
     // The sweep of the issue text: 4 %/4 mm, 3 %/3 mm, 3 %/2 mm, 2 %/2 mm, 2 %/1 mm, 1 %/1 mm.

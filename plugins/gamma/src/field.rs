@@ -99,6 +99,34 @@ impl Field {
         }
     }
 
+    /// Spacing of active axis `a` when its nodes are evenly spaced, mm.
+    pub fn even_spacing(&self, a: usize) -> Option<f64> {
+        self.even[a].map(|inv| 1.0 / inv)
+    }
+
+    /// Flat index step of each active axis in `dose`.
+    pub fn strides(&self) -> [usize; MAX_DIMS] {
+        self.strides
+    }
+
+    /// Local node indices of `u` when it lies on a node (to 1e-9 of the spacing) and every
+    /// active axis is evenly spaced.
+    #[inline]
+    pub fn node_at(&self, u: &[f64; MAX_DIMS]) -> Option<[usize; MAX_DIMS]> {
+        let mut idx = [0usize; MAX_DIMS];
+        for a in 0..self.k {
+            let inv = self.even[a]?;
+            let ax = &self.axes[a];
+            let t = (u[a] - ax[0]) * inv;
+            let i = t.round();
+            if !(i >= 0.0 && i < ax.len() as f64) || (t - i).abs() > 1e-9 {
+                return None;
+            }
+            idx[a] = i as usize;
+        }
+        Some(idx)
+    }
+
     /// Node dose at local node indices.
     #[inline]
     pub fn node(&self, idx: &[usize; MAX_DIMS]) -> f64 {

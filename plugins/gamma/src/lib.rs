@@ -17,6 +17,7 @@
 
 pub mod field;
 pub mod search;
+pub mod star;
 pub mod stats;
 
 use beamproof_api::{
@@ -27,7 +28,8 @@ use beamproof_api::{
 use rayon::prelude::*;
 
 use field::Field;
-use search::{Criterion, Method, Offsets, Scratch, gamma_at, gamma_sampled};
+use search::{Criterion, Method, Offsets, Plan, Scratch, gamma_at, gamma_sampled};
+use star::NodeTable;
 
 /// Plugin id used in campaign files.
 pub const NAME: &str = "gamma";
@@ -148,11 +150,29 @@ pub fn compute(
         ),
         _ => Offsets::default(),
     };
+    let table = match method {
+        Method::Exact => NodeTable::for_search(
+            field,
+            crits.iter().map(|c| c.max_search_mm).fold(0.0, f64::max),
+        ),
+        _ => None,
+    };
     let g = groups(crits, thresholds);
     let search = |list: &[Criterion], i: usize, scratch: &mut Scratch, buf: &mut [f64]| match method
     {
         Method::Sampled { .. } => gamma_sampled(field, list, &offsets, points.at(i), doses[i], buf),
-        _ => gamma_at(field, list, method, points.at(i), doses[i], scratch, buf),
+        _ => gamma_at(
+            field,
+            list,
+            Plan {
+                method,
+                table: table.as_ref(),
+            },
+            points.at(i),
+            doses[i],
+            scratch,
+            buf,
+        ),
     };
     out.par_chunks_mut(n.max(1)).enumerate().for_each_init(
         || {

@@ -14,6 +14,7 @@
 //! resolution rule of Low & Dempsey (Med Phys 2003;30:2455-2464).
 
 use crate::field::{Field, MAX_DIMS, kuhn_orders};
+use crate::star::{NodeTable, PointCriteria, search_node};
 
 /// How the evaluated distribution is searched.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -137,13 +138,21 @@ pub struct Scratch {
     cells: Vec<(f64, [usize; MAX_DIMS])>,
 }
 
+/// How a point is searched: the method and, for the exact method on an evenly spaced grid,
+/// the table of simplices around a node (built once per computation).
+#[derive(Debug, Clone, Copy)]
+pub struct Plan<'a> {
+    pub method: Method,
+    pub table: Option<&'a NodeTable>,
+}
+
 /// Compute gamma of one reference point for every criterion into `out`. Returns false when the
 /// point lies outside the evaluated grid (not evaluated). The caller guarantees a positive dose
 /// criterion (`delta_dose(d_ref) > 0`) for each criterion.
 pub fn gamma_at(
     field: &Field,
     crits: &[Criterion],
-    method: Method,
+    plan: Plan,
     pos: [f64; 3],
     d_ref: f64,
     scratch: &mut Scratch,
@@ -152,16 +161,16 @@ pub fn gamma_at(
     // One copy of the search per dimension, so that every loop over the axes has a constant
     // length and unrolls.
     match field.k {
-        1 => gamma_at_k::<1>(field, crits, method, pos, d_ref, scratch, out),
-        2 => gamma_at_k::<2>(field, crits, method, pos, d_ref, scratch, out),
-        _ => gamma_at_k::<3>(field, crits, method, pos, d_ref, scratch, out),
+        1 => gamma_at_k::<1>(field, crits, plan, pos, d_ref, scratch, out),
+        2 => gamma_at_k::<2>(field, crits, plan, pos, d_ref, scratch, out),
+        _ => gamma_at_k::<3>(field, crits, plan, pos, d_ref, scratch, out),
     }
 }
 
 fn gamma_at_k<const K: usize>(
     field: &Field,
     crits: &[Criterion],
-    method: Method,
+    plan: Plan,
     pos: [f64; 3],
     d_ref: f64,
     scratch: &mut Scratch,
@@ -170,6 +179,7 @@ fn gamma_at_k<const K: usize>(
     let Some(u) = field.local(pos) else {
         return false;
     };
+    let Plan { method, table } = plan;
     let k = K;
     let nc = crits.len();
     let mut dd = [0.0; 16];
@@ -220,9 +230,27 @@ fn gamma_at_k<const K: usize>(
             }
         }
     } else {
+        // A point on a node of an evenly spaced grid: the tabulated search, finished unless a
+        // search radius leaves the table; then its values seed the general search.
+        let mut seeded = false;
+        if method == Method::Exact
+            && let Some(t) = table
+            && let Some(node) = field.node_at(&u)
+        {
+            let pc = PointCriteria {
+                crits,
+                dd: &dd[..nc],
+                dt: &dt[..nc],
+            };
+            if search_node::<K>(field, t, &pc, node, d_ref, out) {
+                return true;
+            }
+            seeded = true;
+        }
         let d0 = field.interpolate(&u);
         for c in 0..nc {
-            out[c] = ((d0 - d_ref).abs() / dd[c]).min(descend(
+            let start = if seeded { out[c] } else { f64::INFINITY };
+            out[c] = start.min((d0 - d_ref).abs() / dd[c]).min(descend(
                 field,
                 &u,
                 d_ref,
@@ -509,27 +537,7 @@ fn gamma_at_k<const K: usize>(
                                 bary[j] = f[order[j - 1]] - f[order[j]];
                             }
                             bary[k] = f[order[k - 1]];
-                            let mut m = f64::INFINITY;
-                            for drop in 0..=k {
-                                if bary[drop] >= 0.0 {
-                                    continue;
-                                }
-                                let mut face = [[0.0; 4]; 3];
-                                let mut t = 0;
-                                for v in 0..=k {
-                                    if v != drop {
-                                        face[t] = w[v];
-                                        t += 1;
-                                    }
-                                }
-                                let dist = match t {
-                                    3 => triangle_sq(&face[0], &face[1], &face[2], k + 1),
-                                    2 => segment_sq(&face[0], &face[1], k + 1),
-                                    _ => dot(&face[0], &face[0], k + 1),
-                                };
-                                m = m.min(dist);
-                            }
-                            m
+                            face_minimum(&w, &bary, k)
                         };
                         if g2 < best2 {
                             out[c] = g2.max(0.0).sqrt();
@@ -579,6 +587,36 @@ fn descend(field: &Field, u: &[f64; MAX_DIMS], d_ref: f64, dd: f64, dt: f64, max
         }
     }
     best2.sqrt()
+}
+
+/// Squared distance from the origin to a simplex with vertices `w[0..=k]` in `k + 1`
+/// dimensions (normalised space and dose), when the foot of the perpendicular onto its
+/// hyperplane has barycentric coordinates `bary` with at least one negative: the minimum of a
+/// convex quadratic over the simplex then lies on a face opposite a vertex with a negative
+/// coordinate.
+#[inline]
+pub fn face_minimum(w: &[[f64; 4]; 4], bary: &[f64; 4], k: usize) -> f64 {
+    let mut m = f64::INFINITY;
+    for drop in 0..=k {
+        if bary[drop] >= 0.0 {
+            continue;
+        }
+        let mut face = [[0.0; 4]; 3];
+        let mut t = 0;
+        for v in 0..=k {
+            if v != drop {
+                face[t] = w[v];
+                t += 1;
+            }
+        }
+        let dist = match t {
+            3 => triangle_sq(&face[0], &face[1], &face[2], k + 1),
+            2 => segment_sq(&face[0], &face[1], k + 1),
+            _ => dot(&face[0], &face[0], k + 1),
+        };
+        m = m.min(dist);
+    }
+    m
 }
 
 #[inline]

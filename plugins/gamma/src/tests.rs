@@ -234,7 +234,7 @@ fn step_edge_pass_rate_and_gamma_values() {
     }
 }
 
-fn grid(xs: &[f64], ys: &[f64], zs: &[f64], f: impl Fn(f64, f64, f64) -> f64) -> Grid {
+fn grid(xs: &[f64], ys: &[f64], zs: &[f64], mut f: impl FnMut(f64, f64, f64) -> f64) -> Grid {
     let mut dose = Vec::new();
     for &z in zs {
         for &y in ys {
@@ -459,6 +459,74 @@ fn exact_search_agrees_with_exhaustive_search_in_2d_and_3d() {
                 pass_ref += usize::from(reference <= 1.0);
             }
             assert_eq!(pass_exact, pass_ref, "{dims}D pass counts of {n}");
+        }
+    }
+}
+
+#[test]
+fn tabulated_search_at_grid_nodes_agrees_with_exhaustive_search() {
+    // Reference points on the nodes of the evaluated grid take the tabulated walk
+    // (`star::search_node`); it must return what an exhaustive search over every simplex
+    // returns, at every node including the grid's faces and corners, on unequal spacings, for
+    // global and local criteria, and where the search radius leaves the table (4 mm DTA, 12 mm
+    // radius, table 3 cells) so that the general search continues. Rough noisy data make many
+    // minima fall on faces and edges rather than inside simplices.
+    for dims in [1usize, 2, 3] {
+        let xs = steps(-6.0, 6.0, 1.5);
+        let ys = if dims >= 2 {
+            steps(-5.0, 5.0, 2.5)
+        } else {
+            vec![0.0]
+        };
+        let zs = if dims == 3 {
+            steps(-3.0, 3.0, 1.0)
+        } else {
+            vec![0.0]
+        };
+        let f = blobs(11, dims);
+        let mut r = Lcg(5);
+        let eval = grid(&xs, &ys, &zs, |x, y, z| {
+            1.03 * f(x - 0.6, y + 0.3, z) + 6.0 * (r.next() - 0.5)
+        });
+        let field = Field::from_grid(&eval).expect("field");
+        assert!(crate::star::NodeTable::for_search(&field, 12.0).is_some());
+        let mut points = Vec::new();
+        let mut doses = Vec::new();
+        for &z in &zs {
+            for &y in &ys {
+                for &x in &xs {
+                    points.push([x, y, z]);
+                    // Up to 12 % off in places, and every fifth point above every evaluated
+                    // dose, so that some gamma values are large.
+                    let d = f(x, y, z) * (1.0 + 0.25 * (r.next() - 0.5).max(0.0));
+                    doses.push(if points.len() % 5 == 0 {
+                        1.5 * d + 20.0
+                    } else {
+                        d
+                    });
+                }
+            }
+        }
+        let crits = [
+            crit(3.0, 2.0, 100.0, false),
+            crit(2.0, 1.0, 100.0, true),
+            crit(2.0, 4.0, 100.0, false),
+        ];
+        let got = compute(&field, &points, &doses, &crits, &[0.0; 3], Method::Exact);
+        let mut beyond_table = 0;
+        for (i, (p, d)) in points.iter().zip(&doses).enumerate() {
+            for (c, cr) in crits.iter().enumerate() {
+                let want = exhaustive(&field, *p, *d, *cr);
+                let g = got[i * crits.len() + c];
+                assert!(
+                    (g - want).abs() <= 1e-9 * (1.0 + want),
+                    "{dims}D node {p:?}, criterion {c}: walk {g} vs exhaustive {want}"
+                );
+                beyond_table += usize::from(c == 2 && g * cr.dta_mm > 3.0 * 2.5);
+            }
+        }
+        if dims == 3 {
+            assert!(beyond_table > 0, "no point exercised the hand-over");
         }
     }
 }
