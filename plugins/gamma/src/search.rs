@@ -598,25 +598,30 @@ fn descend(field: &Field, u: &[f64; MAX_DIMS], d_ref: f64, dd: f64, dt: f64, max
 pub fn face_minimum(w: &[[f64; 4]; 4], bary: &[f64; 4], k: usize) -> f64 {
     let mut m = f64::INFINITY;
     for drop in 0..=k {
-        if bary[drop] >= 0.0 {
-            continue;
+        if bary[drop] < 0.0 {
+            m = m.min(face_sq(w, drop, k));
         }
-        let mut face = [[0.0; 4]; 3];
-        let mut t = 0;
-        for v in 0..=k {
-            if v != drop {
-                face[t] = w[v];
-                t += 1;
-            }
-        }
-        let dist = match t {
-            3 => triangle_sq(&face[0], &face[1], &face[2], k + 1),
-            2 => segment_sq(&face[0], &face[1], k + 1),
-            _ => dot(&face[0], &face[0], k + 1),
-        };
-        m = m.min(dist);
     }
     m
+}
+
+/// Squared distance from the origin to the face of the simplex `w[0..=k]` opposite vertex
+/// `drop`, in `k + 1` dimensions.
+#[inline]
+pub fn face_sq(w: &[[f64; 4]; 4], drop: usize, k: usize) -> f64 {
+    let mut face = [[0.0; 4]; 3];
+    let mut t = 0;
+    for v in 0..=k {
+        if v != drop {
+            face[t] = w[v];
+            t += 1;
+        }
+    }
+    match t {
+        3 => triangle_sq(&face[0], &face[1], &face[2], k + 1),
+        2 => segment_sq(&face[0], &face[1], k + 1),
+        _ => dot(&face[0], &face[0], k + 1),
+    }
 }
 
 #[inline]

@@ -15,7 +15,7 @@
 //! finish it; otherwise the general search continues from the value found.
 
 use crate::field::{Field, MAX_DIMS, kuhn_orders};
-use crate::search::{Criterion, face_minimum, min_norm_sq};
+use crate::search::{Criterion, face_sq, min_norm_sq};
 
 /// Simplices per block (the width the arithmetic is written for).
 const LANES: usize = 24;
@@ -413,39 +413,69 @@ pub fn search_node<const K: usize>(
                 if exact[l] < f64::INFINITY || lb2[l] >= best2 {
                     continue;
                 }
-                // A sharper in-plane bound first: moving a spatial distance t out of a violated
-                // coordinate's half-space within the simplex's plane costs
-                // t^2 / (dt^2 - dt^4 (n.g)^2 / den) in normalised space, n the half-space's unit
-                // normal (the form I/dt^2 + g g^T/dd^2 along n, inverted by Sherman-Morrison).
+                // Phase two in the simplex's hyperplane. Moving from the foot y by z costs
+                // z^T Q z in normalised space, Q = I/dt^2 + g g^T/dd^2; reaching the hull of
+                // the face opposite a vertex with coordinate b_j < 0 costs at least
+                // b_j^2 / M_jj, with M = grad(b)^T Q^-1 grad(b) and, by Sherman-Morrison,
+                // Q^-1 = dt^2 (I - dt^2 g g^T / den). That is the distance to the face's hull,
+                // exact when the nearest point of the hull lies inside the face (all other
+                // coordinates b_i - b_j M_ij / M_jj non-negative); otherwise the face itself
+                // is solved. The simplex's minimum lies on a face with a violated coordinate.
                 let mut bary = [0.0; 4];
-                let mut in2: f64 = 0.0;
+                let mut rate = [0.0; 4];
+                let mut m_diag = [0.0; 4];
+                let mut lb: f64 = 0.0;
                 for j in 0..=K {
-                    let rate = bary_rate::<K>(&sj, j, l);
-                    let b = blk.beta[j][l] - shift[l] * rate;
-                    bary[j] = b;
-                    if b < 0.0 {
-                        let t = b * blk.inv[j][l];
-                        let ng = rate * blk.inv[j][l];
-                        let q = dt2c - dt2c * dt2c * ng * ng / den[l];
-                        in2 = in2.max(t * t / q);
+                    rate[j] = bary_rate::<K>(&sj, j, l);
+                    bary[j] = blk.beta[j][l] - shift[l] * rate[j];
+                    m_diag[j] = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] / den[l]);
+                    if bary[j] < 0.0 {
+                        lb = lb.max(bary[j] * bary[j] / m_diag[j]);
                     }
                 }
-                if plane2[l] + in2 >= best2 {
+                if plane2[l] + lb >= best2 {
                     continue;
                 }
-                counters::count(counters::FACES);
-                let pos = &table.pos[bi * LANES + l];
-                let mut w = [[0.0; 4]; 4];
+                let mut m = best2;
+                let mut w: Option<[[f64; 4]; 4]> = None;
                 for j in 0..=K {
-                    for a in 0..K {
-                        w[j][a] = pos[j][a] / pc.dt[c];
+                    if bary[j] >= 0.0 {
+                        continue;
                     }
-                    w[j][K] = (v[j][l] - d_ref) / pc.dd[c];
+                    let hull = plane2[l] + bary[j] * bary[j] / m_diag[j];
+                    if hull >= m {
+                        continue;
+                    }
+                    let mut on_face = true;
+                    for i in 0..=K {
+                        if i != j {
+                            let m_ij = dt2c
+                                * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] / den[l]);
+                            on_face &= bary[i] - bary[j] * m_ij / m_diag[j] >= 0.0;
+                        }
+                    }
+                    let value = if on_face {
+                        hull
+                    } else {
+                        counters::count(counters::FACES);
+                        let w = w.get_or_insert_with(|| {
+                            let pos = &table.pos[bi * LANES + l];
+                            let mut w = [[0.0; 4]; 4];
+                            for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
+                                for a in 0..K {
+                                    wi[a] = pos[i][a] / pc.dt[c];
+                                }
+                                wi[K] = (v[i][l] - d_ref) / pc.dd[c];
+                            }
+                            w
+                        });
+                        face_sq(w, j, K)
+                    };
+                    m = m.min(value);
                 }
-                let g2 = face_minimum(&w, &bary, K);
-                if g2 < best2 {
+                if m < best2 {
                     counters::count(counters::IMPROVED);
-                    out[c] = g2.max(0.0).sqrt();
+                    out[c] = m.max(0.0).sqrt();
                 }
             }
         }
@@ -529,6 +559,20 @@ fn bary_rate<const K: usize>(sj: &[[f64; LANES]; MAX_DIMS], j: usize, l: usize) 
         sj[K - 1][l]
     } else {
         sj[j - 1][l] - sj[j][l]
+    }
+}
+
+/// grad(b_i) . grad(b_j) for the barycentric coordinates of lane `l`'s Kuhn simplex: each
+/// coordinate's gradient has components +-1/h along one or two axes, and neighbouring
+/// coordinates share the axis of the step between them.
+#[inline(always)]
+fn gram<const K: usize>(blk: &Block, l: usize, i: usize, j: usize) -> f64 {
+    if i == j {
+        1.0 / (blk.inv[j][l] * blk.inv[j][l])
+    } else if i + 1 == j || j + 1 == i {
+        -blk.ih2[i.min(j)][l]
+    } else {
+        0.0
     }
 }
 
