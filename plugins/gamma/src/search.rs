@@ -242,10 +242,11 @@ fn gamma_at_k<const K: usize>(
                 dd: &dd[..nc],
                 dt: &dt[..nc],
             };
-            if search_node::<K>(field, t, &pc, node, d_ref, out) {
-                return true;
+            match search_node::<K>(field, t, &pc, node, d_ref, out) {
+                Some(true) => return true,
+                Some(false) => seeded = true,
+                None => {}
             }
-            seeded = true;
         }
         let d0 = field.interpolate(&u);
         for c in 0..nc {

@@ -15,7 +15,9 @@
 //! finish it; otherwise the general search continues from the value found.
 
 use crate::field::{Field, MAX_DIMS, kuhn_orders};
-use crate::search::{Criterion, face_sq, min_norm_sq};
+use std::collections::BTreeMap;
+
+use crate::search::{Criterion, min_norm_sq, segment_sq};
 
 /// Simplices per block (the width the arithmetic is written for).
 const LANES: usize = 24;
@@ -44,8 +46,6 @@ struct Block {
     /// Reciprocal length of each barycentric coordinate's gradient, mm: a point whose
     /// coordinate b is negative lies at least -b times this from the simplex.
     inv: [[f64; LANES]; MAX_VERTS],
-    /// Lanes holding a simplex (the last block is padded).
-    used: usize,
 }
 
 /// One simplex while the table is built.
@@ -58,16 +58,38 @@ struct Entry {
     beta: [f64; MAX_VERTS],
     ih2: [f64; MAX_DIMS],
     inv: [f64; MAX_VERTS],
-    pos: [[f64; MAX_DIMS]; MAX_VERTS],
+    /// Vertex positions relative to the node, in nodes.
+    nodes: [[i64; MAX_DIMS]; MAX_VERTS],
+}
+
+/// One edge while the table is built.
+struct Edge {
+    ds2: f64,
+    cd2: f64,
+    nodes: ([i64; MAX_DIMS], [i64; MAX_DIMS]),
+    off: [isize; 2],
+    pos: [[f64; MAX_DIMS]; 2],
+}
+
+/// Edges around a node, one per lane, in structure-of-arrays form.
+#[derive(Debug, Clone)]
+struct EdgeBlock {
+    /// Squared distance from the node to the edge, mm^2 (rounded down a little).
+    ds2: [f64; LANES],
+    /// Squared distance from the node to the nearest cell the edge belongs to, mm^2.
+    cd2: [f64; LANES],
+    /// Flat offsets of the two end nodes' doses from the node's.
+    off: [[isize; LANES]; 2],
+    /// End positions relative to the node, mm.
+    pos: [[[f64; LANES]; MAX_DIMS]; 2],
 }
 
 /// The simplices around a node of an evenly spaced grid, sorted by distance from the node.
 #[derive(Debug, Clone)]
 pub struct NodeTable {
     blocks: Vec<Block>,
-    /// Vertex positions relative to the node (mm) of each lane of each block, for the exact
-    /// distances that only a few simplices need.
-    pos: Vec<[[f64; MAX_DIMS]; MAX_VERTS]>,
+    /// The edges of those simplices (each once), sorted by distance from the node.
+    edges: Vec<EdgeBlock>,
     /// Every simplex of every cell whose box lies within this distance of the node, mm.
     radius_mm: f64,
     /// Smallest and largest cell offset in the table along each axis.
@@ -126,13 +148,50 @@ impl NodeTable {
             }
         }
         let blocks = entries.chunks(LANES).map(block).collect();
-        let mut pos = vec![[[0.0; MAX_DIMS]; MAX_VERTS]; entries.len().div_ceil(LANES) * LANES];
-        for (p, e) in pos.iter_mut().zip(&entries) {
-            *p = e.pos;
+        // Every edge of every simplex, once, with the nearest of the cells it belongs to.
+        let mut edge_cells: BTreeMap<([i64; MAX_DIMS], [i64; MAX_DIMS]), f64> = BTreeMap::new();
+        for e in &entries {
+            for i in 0..=k {
+                for j in i + 1..=k {
+                    let key = (e.nodes[i], e.nodes[j]);
+                    let cd2 = edge_cells.entry(key).or_insert(e.cd2);
+                    *cd2 = cd2.min(e.cd2);
+                }
+            }
         }
+        let mut edge_list: Vec<Edge> = edge_cells
+            .into_iter()
+            .map(|((n0, n1), cd2)| {
+                let mut pos = [[0.0; MAX_DIMS]; 2];
+                let mut off = [0isize; 2];
+                let mut w = [[0.0; 4]; 4];
+                for (e, n) in [n0, n1].iter().enumerate() {
+                    for a in 0..k {
+                        pos[e][a] = n[a] as f64 * h[a];
+                        off[e] += n[a] as isize * strides[a] as isize;
+                        w[e][a] = pos[e][a];
+                    }
+                }
+                let ds2 = segment_sq(&w[0], &w[1], k);
+                Edge {
+                    ds2: rounded_down(ds2, h[0]),
+                    cd2,
+                    nodes: (n0, n1),
+                    off,
+                    pos,
+                }
+            })
+            .collect();
+        edge_list.sort_by(|p, q| {
+            p.ds2
+                .total_cmp(&q.ds2)
+                .then(p.cd2.total_cmp(&q.cd2))
+                .then(p.nodes.cmp(&q.nodes))
+        });
+        let edges = edge_list.chunks(LANES).map(edge_block).collect();
         Some(NodeTable {
             blocks,
-            pos,
+            edges,
             radius_mm,
             reach,
         })
@@ -148,6 +207,16 @@ impl NodeTable {
             _ => 3.0,
         };
         NodeTable::new(field, max_search_mm.min(cells * field.max_spacing()))
+    }
+
+    /// True when every cell of the table lies inside the grid seen from the node with local
+    /// indices `node`, so that the walk applies there.
+    pub fn covers(&self, field: &Field, node: &[usize; MAX_DIMS]) -> bool {
+        (0..field.k).all(|a| {
+            let n = node[a] as i64;
+            let last = field.axes[a].len() as i64 - 2;
+            n + self.reach[a].0 >= 0 && n + self.reach[a].1 <= last
+        })
     }
 
     /// Radius of the table, mm.
@@ -169,6 +238,7 @@ fn entry(
 ) -> Entry {
     let mut off = [0isize; MAX_VERTS];
     let mut pos = [[0.0; MAX_DIMS]; MAX_VERTS];
+    let mut nodes = [[0i64; MAX_DIMS]; MAX_VERTS];
     let mut bits = [0i64; MAX_DIMS];
     for j in 0..=k {
         if j > 0 {
@@ -176,6 +246,7 @@ fn entry(
         }
         for a in 0..k {
             let n = cell[a] + bits[a];
+            nodes[j][a] = n;
             pos[j][a] = n as f64 * h[a];
             off[j] += n as isize * strides[a] as isize;
         }
@@ -205,8 +276,7 @@ fn entry(
         w[j][..k].copy_from_slice(&pos[j][..k]);
     }
     let set: Vec<usize> = (0..=k).collect();
-    // Rounded down so that rounding can never stop the walk before a simplex that counts.
-    let ds2 = (min_norm_sq(&w, &set, k) * (1.0 - 1e-9) - 1e-12 * h[0] * h[0]).max(0.0);
+    let ds2 = rounded_down(min_norm_sq(&w, &set, k), h[0]);
     Entry {
         ds2,
         cd2,
@@ -216,8 +286,34 @@ fn entry(
         beta,
         ih2,
         inv,
-        pos,
+        nodes,
     }
+}
+
+/// A squared distance rounded down, so that rounding can never stop the walk before a simplex
+/// or edge that counts.
+fn rounded_down(d2: f64, h: f64) -> f64 {
+    (d2 * (1.0 - 1e-9) - 1e-12 * h * h).max(0.0)
+}
+
+fn edge_block(edges: &[Edge]) -> EdgeBlock {
+    let mut b = EdgeBlock {
+        ds2: [f64::INFINITY; LANES],
+        cd2: [f64::INFINITY; LANES],
+        off: [[0; LANES]; 2],
+        pos: [[[0.0; LANES]; MAX_DIMS]; 2],
+    };
+    for (l, e) in edges.iter().enumerate() {
+        b.ds2[l] = e.ds2;
+        b.cd2[l] = e.cd2;
+        for end in 0..2 {
+            b.off[end][l] = e.off[end];
+            for a in 0..MAX_DIMS {
+                b.pos[end][a][l] = e.pos[end][a];
+            }
+        }
+    }
+    b
 }
 
 fn block(entries: &[Entry]) -> Block {
@@ -229,7 +325,6 @@ fn block(entries: &[Entry]) -> Block {
         beta: [[0.0; LANES]; MAX_VERTS],
         ih2: [[0.0; LANES]; MAX_DIMS],
         inv: [[0.0; LANES]; MAX_VERTS],
-        used: entries.len(),
     };
     for (l, e) in entries.iter().enumerate() {
         b.ds2[l] = e.ds2;
@@ -257,10 +352,55 @@ pub struct PointCriteria<'a> {
     pub dt: &'a [f64],
 }
 
-/// Gamma at the node with local indices `node` for every criterion into `out`. Returns true
-/// when the values are final; false when some criterion's search radius leaves the table, in
-/// which case `out` holds attained values (upper bounds) to continue from.
+/// Gamma at the node with local indices `node` for every criterion into `out`. `None` when the
+/// table reaches past the grid's edge from this node (the general search applies); otherwise
+/// true when the values are final, false when some criterion's search radius leaves the table,
+/// in which case `out` holds attained values (upper bounds) to continue from.
+///
+/// The minimum over the interpolant lies inside a simplex, inside one of its faces, or on an
+/// edge (end nodes included). The walk takes edges and simplices in one order of distance:
+/// every edge's exact distance (cheap), every simplex whose foot lies inside it (its
+/// hyperplane distance), and every face whose nearest hull point lies inside it (its hull
+/// distance); a face whose nearest hull point lies outside has its minimum on its edges, which
+/// the walk covers, so no face needs solving.
 pub fn search_node<const K: usize>(
+    field: &Field,
+    table: &NodeTable,
+    pc: &PointCriteria,
+    node: [usize; MAX_DIMS],
+    d_ref: f64,
+    out: &mut [f64],
+) -> Option<bool> {
+    if !table.covers(field, &node) {
+        return None;
+    }
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: the processor supports AVX2, checked on the line above.
+        return Some(unsafe { walk_avx2::<K>(field, table, pc, node, d_ref, out) });
+    }
+    Some(walk::<K>(field, table, pc, node, d_ref, out))
+}
+
+/// `walk` compiled for processors with AVX2 (four lanes per vector instruction). The
+/// arithmetic is the same as the baseline's, operation for operation (Rust never contracts a
+/// multiply and an add into a fused one), so the results are identical to the last bit.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn walk_avx2<const K: usize>(
+    field: &Field,
+    table: &NodeTable,
+    pc: &PointCriteria,
+    node: [usize; MAX_DIMS],
+    d_ref: f64,
+    out: &mut [f64],
+) -> bool {
+    walk::<K>(field, table, pc, node, d_ref, out)
+}
+
+/// The walk itself (see `search_node`).
+#[inline(always)]
+fn walk<const K: usize>(
     field: &Field,
     table: &NodeTable,
     pc: &PointCriteria,
@@ -276,208 +416,38 @@ pub fn search_node<const K: usize>(
         flat += node[a] * strides[a];
     }
     let dose = &field.dose;
-    let v_node = dose[flat];
-    let mut dd2 = [0.0; 16];
-    let mut dt2 = [0.0; 16];
-    let mut max2 = [0.0; 16];
+    let mut k = Constants::default();
     for c in 0..nc {
-        dd2[c] = pc.dd[c] * pc.dd[c];
-        dt2[c] = pc.dt[c] * pc.dt[c];
+        k.dd2[c] = pc.dd[c] * pc.dd[c];
+        k.dt2[c] = pc.dt[c] * pc.dt[c];
+        k.idd[c] = 1.0 / pc.dd[c];
+        k.idt[c] = 1.0 / pc.dt[c];
         let r = pc.crits[c].max_search_mm * (1.0 + 1e-12);
-        max2[c] = r * r;
+        k.max2[c] = r * r;
         // The node itself: distance zero.
-        out[c] = (v_node - d_ref).abs() / pc.dd[c];
+        out[c] = (dose[flat] - d_ref).abs() / pc.dd[c];
     }
-    // Cells beyond the grid's edge are left out when the table reaches past it.
-    let mut last = [0i64; MAX_DIMS];
-    let mut edge = false;
-    for a in 0..K {
-        let n = node[a] as i64;
-        last[a] = field.axes[a].len() as i64 - 2;
-        edge |= n + table.reach[a].0 < 0 || n + table.reach[a].1 > last[a];
-    }
-    for (bi, blk) in table.blocks.iter().enumerate() {
-        // Sorted by distance: stop once distance alone reaches every criterion's best value.
-        if (0..nc).all(|c| blk.ds2[0] >= out[c] * out[c] * dt2[c]) {
+    // Edges and simplices in one order of distance; an edge before a simplex at equal distance
+    // (its exact value is cheap and tightens the simplices' bounds).
+    let (mut ti, mut ei) = (0, 0);
+    loop {
+        let next_t = table.blocks.get(ti).map_or(f64::INFINITY, |b| b.ds2[0]);
+        let next_e = table.edges.get(ei).map_or(f64::INFINITY, |b| b.ds2[0]);
+        let nearest = next_t.min(next_e);
+        if nearest == f64::INFINITY {
+            break;
+        }
+        // Stop once distance alone reaches every criterion's best value.
+        if (0..nc).all(|c| nearest >= out[c] * out[c] * k.dt2[c]) {
             return true;
         }
         counters::count(counters::BLOCKS);
-        let mut valid = [true; LANES];
-        for (l, v) in valid.iter_mut().enumerate() {
-            *v = l < blk.used;
-        }
-        if edge {
-            for l in 0..blk.used {
-                for a in 0..K {
-                    let ci = node[a] as i64 + blk.cell[a][l] as i64;
-                    if ci < 0 || ci > last[a] {
-                        valid[l] = false;
-                    }
-                }
-            }
-        }
-        // Vertex doses (a lane out of use reads the node's own dose, never used).
-        let mut v = [[0.0; LANES]; MAX_VERTS];
-        for j in 0..=K {
-            for l in 0..LANES {
-                let o = if valid[l] { blk.off[j][l] } else { 0 };
-                v[j][l] = dose[flat.wrapping_add_signed(o)];
-            }
-        }
-        // Each simplex's linear dose: its value at the node (minus d_ref), its steps along the
-        // Kuhn path (e_j; gradient e_j / h along step j's axis), squared gradient, dose range.
-        // Loops run over the lanes innermost, without branches, so that they compile to vector
-        // instructions.
-        let mut delta = [-d_ref; LANES];
-        let mut lo = v[0];
-        let mut hi = v[0];
-        for j in 0..=K {
-            for l in 0..LANES {
-                delta[l] += blk.beta[j][l] * v[j][l];
-                lo[l] = lesser(lo[l], v[j][l]);
-                hi[l] = greater(hi[l], v[j][l]);
-            }
-        }
-        // s_j = e_j / h^2: the barycentric coordinates change along the dose gradient g at
-        // g.grad(b_0) = -s_0, g.grad(b_j) = s_(j-1) - s_j, g.grad(b_k) = s_(k-1).
-        let mut sj = [[0.0; LANES]; MAX_DIMS];
-        let mut g_sq = [0.0; LANES];
-        let mut gap = [0.0; LANES];
-        for j in 0..K {
-            for l in 0..LANES {
-                let e = v[j + 1][l] - v[j][l];
-                sj[j][l] = e * blk.ih2[j][l];
-                g_sq[l] += e * sj[j][l];
-            }
-        }
-        for l in 0..LANES {
-            gap[l] = greater(greater(lo[l] - d_ref, d_ref - hi[l]), 0.0);
-        }
-        for c in 0..nc {
-            // Phase one: the hyperplane distance, the barycentric coordinates of its foot, the
-            // lower bounds, and the value of every simplex whose foot lies inside it (exact).
-            let (dd2c, dt2c) = (dd2[c], dt2[c]);
-            let mut plane2 = [0.0; LANES];
-            let mut den = [0.0; LANES];
-            let mut shift = [0.0; LANES];
-            for l in 0..LANES {
-                den[l] = dd2c + dt2c * g_sq[l];
-                plane2[l] = delta[l] * delta[l] / den[l];
-                shift[l] = dt2c * delta[l] / den[l];
-            }
-            // Largest violation of a barycentric coordinate, and the spatial distance it
-            // implies (the foot lies at least that far from the simplex).
-            let mut neg = [0.0; LANES];
-            let mut sl = [0.0; LANES];
-            for j in 0..=K {
-                for l in 0..LANES {
-                    let b = blk.beta[j][l] - shift[l] * bary_rate::<K>(&sj, j, l);
-                    neg[l] = greater(neg[l], -b);
-                    sl[l] = greater(sl[l], -b * blk.inv[j][l]);
-                }
-            }
-            // Lanes out of use or beyond this criterion's search radius count as infinitely far.
-            let mut lb2 = [0.0; LANES];
-            let mut exact = [0.0; LANES];
-            for l in 0..LANES {
-                let far = if valid[l] && blk.cd2[l] <= max2[c] {
-                    0.0
-                } else {
-                    f64::INFINITY
-                };
-                // Pythagoras in the hyperplane: the in-plane distance from the foot to the
-                // simplex is at least the spatial one over dt.
-                lb2[l] = far
-                    + greater(
-                        blk.ds2[l] / dt2c + gap[l] * gap[l] / dd2c,
-                        plane2[l] + sl[l] * sl[l] / dt2c,
-                    );
-                exact[l] = far
-                    + if neg[l] > 0.0 {
-                        f64::INFINITY
-                    } else {
-                        plane2[l]
-                    };
-            }
-            let mut best_in = f64::INFINITY;
-            for &e in &exact {
-                best_in = lesser(best_in, e);
-            }
-            if best_in < out[c] * out[c] {
-                out[c] = best_in.max(0.0).sqrt();
-            }
-            // Phase two: simplices whose foot lies outside and whose bounds do not rule them out
-            // need the distance to their faces.
-            for l in 0..LANES {
-                let best2 = out[c] * out[c];
-                if exact[l] < f64::INFINITY || lb2[l] >= best2 {
-                    continue;
-                }
-                // Phase two in the simplex's hyperplane. Moving from the foot y by z costs
-                // z^T Q z in normalised space, Q = I/dt^2 + g g^T/dd^2; reaching the hull of
-                // the face opposite a vertex with coordinate b_j < 0 costs at least
-                // b_j^2 / M_jj, with M = grad(b)^T Q^-1 grad(b) and, by Sherman-Morrison,
-                // Q^-1 = dt^2 (I - dt^2 g g^T / den). That is the distance to the face's hull,
-                // exact when the nearest point of the hull lies inside the face (all other
-                // coordinates b_i - b_j M_ij / M_jj non-negative); otherwise the face itself
-                // is solved. The simplex's minimum lies on a face with a violated coordinate.
-                let mut bary = [0.0; 4];
-                let mut rate = [0.0; 4];
-                let mut m_diag = [0.0; 4];
-                let mut lb: f64 = 0.0;
-                for j in 0..=K {
-                    rate[j] = bary_rate::<K>(&sj, j, l);
-                    bary[j] = blk.beta[j][l] - shift[l] * rate[j];
-                    m_diag[j] = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] / den[l]);
-                    if bary[j] < 0.0 {
-                        lb = lb.max(bary[j] * bary[j] / m_diag[j]);
-                    }
-                }
-                if plane2[l] + lb >= best2 {
-                    continue;
-                }
-                let mut m = best2;
-                let mut w: Option<[[f64; 4]; 4]> = None;
-                for j in 0..=K {
-                    if bary[j] >= 0.0 {
-                        continue;
-                    }
-                    let hull = plane2[l] + bary[j] * bary[j] / m_diag[j];
-                    if hull >= m {
-                        continue;
-                    }
-                    let mut on_face = true;
-                    for i in 0..=K {
-                        if i != j {
-                            let m_ij = dt2c
-                                * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] / den[l]);
-                            on_face &= bary[i] - bary[j] * m_ij / m_diag[j] >= 0.0;
-                        }
-                    }
-                    let value = if on_face {
-                        hull
-                    } else {
-                        counters::count(counters::FACES);
-                        let w = w.get_or_insert_with(|| {
-                            let pos = &table.pos[bi * LANES + l];
-                            let mut w = [[0.0; 4]; 4];
-                            for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
-                                for a in 0..K {
-                                    wi[a] = pos[i][a] / pc.dt[c];
-                                }
-                                wi[K] = (v[i][l] - d_ref) / pc.dd[c];
-                            }
-                            w
-                        });
-                        face_sq(w, j, K)
-                    };
-                    m = m.min(value);
-                }
-                if m < best2 {
-                    counters::count(counters::IMPROVED);
-                    out[c] = m.max(0.0).sqrt();
-                }
-            }
+        if next_e <= next_t {
+            edge_block_search::<K>(&table.edges[ei], dose, flat, d_ref, nc, &k, out);
+            ei += 1;
+        } else {
+            simplex_block_search::<K>(&table.blocks[ti], dose, flat, d_ref, nc, &k, out);
+            ti += 1;
         }
     }
     // The table is used up: final only if no criterion's radius reaches beyond it.
@@ -488,6 +458,222 @@ pub fn search_node<const K: usize>(
         counters::count(counters::LEFT);
     }
     done
+}
+
+/// Per-criterion constants of one point: squared criteria, reciprocals, squared radii.
+#[derive(Default)]
+struct Constants {
+    dd2: [f64; 16],
+    dt2: [f64; 16],
+    idd: [f64; 16],
+    idt: [f64; 16],
+    max2: [f64; 16],
+}
+
+/// Exact distances to a block of edges: the segment between the end nodes in normalised
+/// space, nearest point clamped to the segment.
+#[inline(always)]
+fn edge_block_search<const K: usize>(
+    blk: &EdgeBlock,
+    dose: &[f64],
+    flat: usize,
+    d_ref: f64,
+    nc: usize,
+    k: &Constants,
+    out: &mut [f64],
+) {
+    let mut v = [[0.0; LANES]; 2];
+    for end in 0..2 {
+        for l in 0..LANES {
+            v[end][l] = dose[flat.wrapping_add_signed(blk.off[end][l])] - d_ref;
+        }
+    }
+    for c in 0..nc {
+        let (idt, idd) = (k.idt[c], k.idd[c]);
+        let mut best = f64::INFINITY;
+        for l in 0..LANES {
+            // a = first end, ab = second minus first, in normalised space.
+            let mut a = [0.0; MAX_VERTS];
+            let mut ab = [0.0; MAX_VERTS];
+            for d in 0..K {
+                a[d] = blk.pos[0][d][l] * idt;
+                ab[d] = blk.pos[1][d][l] * idt - a[d];
+            }
+            a[K] = v[0][l] * idd;
+            ab[K] = v[1][l] * idd - a[K];
+            let (mut num, mut len2) = (0.0, 0.0);
+            for d in 0..=K {
+                num -= a[d] * ab[d];
+                len2 += ab[d] * ab[d];
+            }
+            let t = greater(lesser(num / len2, 1.0), 0.0);
+            let mut d2 = 0.0;
+            for d in 0..=K {
+                let p = a[d] + t * ab[d];
+                d2 += p * p;
+            }
+            let far = if blk.cd2[l] <= k.max2[c] {
+                0.0
+            } else {
+                f64::INFINITY
+            };
+            best = lesser(best, d2 + far);
+        }
+        if best < out[c] * out[c] {
+            out[c] = best.max(0.0).sqrt();
+        }
+    }
+}
+
+/// A block of simplices: the hyperplane distance of those whose foot lies inside, and the hull
+/// distance of faces whose nearest hull point lies inside them.
+#[inline(always)]
+fn simplex_block_search<const K: usize>(
+    blk: &Block,
+    dose: &[f64],
+    flat: usize,
+    d_ref: f64,
+    nc: usize,
+    k: &Constants,
+    out: &mut [f64],
+) {
+    // Vertex doses (a padding lane reads the node's own dose, never used).
+    let mut v = [[0.0; LANES]; MAX_VERTS];
+    for j in 0..=K {
+        for l in 0..LANES {
+            v[j][l] = dose[flat.wrapping_add_signed(blk.off[j][l])];
+        }
+    }
+    // Each simplex's linear dose: its value at the node (minus d_ref), its steps along the
+    // Kuhn path (e_j; gradient e_j / h along step j's axis), squared gradient, dose range.
+    // Loops run over the lanes innermost, without branches, so that they compile to vector
+    // instructions.
+    let mut delta = [-d_ref; LANES];
+    let mut lo = v[0];
+    let mut hi = v[0];
+    for j in 0..=K {
+        for l in 0..LANES {
+            delta[l] += blk.beta[j][l] * v[j][l];
+            lo[l] = lesser(lo[l], v[j][l]);
+            hi[l] = greater(hi[l], v[j][l]);
+        }
+    }
+    // s_j = e_j / h^2: the barycentric coordinates change along the dose gradient g at
+    // g.grad(b_0) = -s_0, g.grad(b_j) = s_(j-1) - s_j, g.grad(b_k) = s_(k-1).
+    let mut sj = [[0.0; LANES]; MAX_DIMS];
+    let mut g_sq = [0.0; LANES];
+    let mut gap = [0.0; LANES];
+    for j in 0..K {
+        for l in 0..LANES {
+            let e = v[j + 1][l] - v[j][l];
+            sj[j][l] = e * blk.ih2[j][l];
+            g_sq[l] += e * sj[j][l];
+        }
+    }
+    for l in 0..LANES {
+        gap[l] = greater(greater(lo[l] - d_ref, d_ref - hi[l]), 0.0);
+    }
+    for c in 0..nc {
+        // Phase one: the hyperplane distance, the barycentric coordinates of its foot, the
+        // lower bounds, and the value of every simplex whose foot lies inside it (exact).
+        let (dd2c, dt2c) = (k.dd2[c], k.dt2[c]);
+        let mut plane2 = [0.0; LANES];
+        let mut den = [0.0; LANES];
+        let mut shift = [0.0; LANES];
+        for l in 0..LANES {
+            den[l] = dd2c + dt2c * g_sq[l];
+            plane2[l] = delta[l] * delta[l] / den[l];
+            shift[l] = dt2c * delta[l] / den[l];
+        }
+        // Largest violation of a barycentric coordinate, and the spatial distance it implies
+        // (the foot lies at least that far from the simplex).
+        let mut neg = [0.0; LANES];
+        let mut sl = [0.0; LANES];
+        for j in 0..=K {
+            for l in 0..LANES {
+                let b = blk.beta[j][l] - shift[l] * bary_rate::<K>(&sj, j, l);
+                neg[l] = greater(neg[l], -b);
+                sl[l] = greater(sl[l], -b * blk.inv[j][l]);
+            }
+        }
+        // Padding lanes and simplices beyond this criterion's search radius count as
+        // infinitely far.
+        let mut lb2 = [0.0; LANES];
+        let mut exact = [0.0; LANES];
+        for l in 0..LANES {
+            let far = if blk.cd2[l] <= k.max2[c] {
+                0.0
+            } else {
+                f64::INFINITY
+            };
+            // Pythagoras in the hyperplane: the in-plane distance from the foot to the simplex
+            // is at least the spatial one over dt.
+            lb2[l] = far
+                + greater(
+                    blk.ds2[l] / dt2c + gap[l] * gap[l] / dd2c,
+                    plane2[l] + sl[l] * sl[l] / dt2c,
+                );
+            exact[l] = far
+                + if neg[l] > 0.0 {
+                    f64::INFINITY
+                } else {
+                    plane2[l]
+                };
+        }
+        let mut best_in = f64::INFINITY;
+        for &e in &exact {
+            best_in = lesser(best_in, e);
+        }
+        if best_in < out[c] * out[c] {
+            out[c] = best_in.max(0.0).sqrt();
+        }
+        // Phase two, faces, in the simplex's hyperplane. Moving from the foot y by z costs
+        // z^T Q z in normalised space, Q = I/dt^2 + g g^T/dd^2; reaching the hull of the face
+        // opposite a vertex with coordinate b_j < 0 costs b_j^2 / M_jj at least, with
+        // M = grad(b)^T Q^-1 grad(b) and, by Sherman-Morrison, Q^-1 = dt^2 (I - dt^2 g g^T /
+        // den). That is the distance to the face's hull; when the hull's nearest point lies
+        // inside the face (every other coordinate b_i - b_j M_ij / M_jj non-negative) it is the
+        // face's minimum, otherwise the face's minimum lies on its edges.
+        for l in 0..LANES {
+            let best2 = out[c] * out[c];
+            if exact[l] < f64::INFINITY || lb2[l] >= best2 {
+                continue;
+            }
+            let mut bary = [0.0; MAX_VERTS];
+            let mut rate = [0.0; MAX_VERTS];
+            for j in 0..=K {
+                rate[j] = bary_rate::<K>(&sj, j, l);
+                bary[j] = blk.beta[j][l] - shift[l] * rate[j];
+            }
+            let mut m = best2;
+            for j in 0..=K {
+                if bary[j] >= 0.0 {
+                    continue;
+                }
+                let m_jj = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] / den[l]);
+                let hull = plane2[l] + bary[j] * bary[j] / m_jj;
+                if hull >= m {
+                    continue;
+                }
+                let mut on_face = true;
+                for i in 0..=K {
+                    if i != j {
+                        let m_ij =
+                            dt2c * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] / den[l]);
+                        on_face &= bary[i] - bary[j] * m_ij / m_jj >= 0.0;
+                    }
+                }
+                if on_face {
+                    counters::count(counters::FACES);
+                    m = hull;
+                }
+            }
+            if m < best2 {
+                counters::count(counters::IMPROVED);
+                out[c] = m.max(0.0).sqrt();
+            }
+        }
+    }
 }
 
 /// Search counters per point for the benchmark (feature `counters`): how far the walk goes
@@ -586,4 +772,96 @@ fn lesser(a: f64, b: f64) -> f64 {
 #[inline(always)]
 fn greater(a: f64, b: f64) -> f64 {
     if a > b { a } else { b }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use beamproof_api::Grid;
+
+    #[cfg(target_arch = "x86_64")]
+    #[test]
+    fn vector_build_gives_the_baseline_bits() {
+        // The AVX2 copy of the walk must reproduce the baseline copy to the last bit
+        // (determinism across processors), on rough data with three criteria.
+        if !std::arch::is_x86_feature_detected!("avx2") {
+            eprintln!("no AVX2 on this processor: one build only, nothing to compare");
+            return;
+        }
+        let n = 16usize;
+        let axis: Vec<f64> = (0..n).map(|i| i as f64 * 1.25).collect();
+        let mut state = 77u64;
+        let mut next = || {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let dose: Vec<f64> = (0..n * n * n).map(|_| 50.0 + 20.0 * next()).collect();
+        let field = Field::from_grid(&Grid {
+            x_mm: axis.clone(),
+            y_mm: axis.clone(),
+            z_mm: axis,
+            dose,
+        })
+        .expect("field");
+        let crits = [
+            Criterion {
+                dose_fraction: 0.03,
+                dta_mm: 2.0,
+                local: false,
+                norm_dose: 70.0,
+                max_search_mm: 6.0,
+            },
+            Criterion {
+                dose_fraction: 0.02,
+                dta_mm: 1.0,
+                local: true,
+                norm_dose: 70.0,
+                max_search_mm: 3.0,
+            },
+            Criterion {
+                dose_fraction: 0.01,
+                dta_mm: 1.0,
+                local: false,
+                norm_dose: 70.0,
+                max_search_mm: 3.0,
+            },
+        ];
+        let table = NodeTable::for_search(&field, 6.0).expect("table");
+        let mut compared = 0;
+        for i in 0..n {
+            for j in 0..n {
+                for l in 0..n {
+                    let node = [i, j, l];
+                    if !table.covers(&field, &node) {
+                        continue;
+                    }
+                    let d_ref = 45.0 + 30.0 * next();
+                    let dd: Vec<f64> = crits.iter().map(|c| c.delta_dose(d_ref)).collect();
+                    let dt: Vec<f64> = crits.iter().map(|c| c.dta_mm).collect();
+                    let pc = PointCriteria {
+                        crits: &crits,
+                        dd: &dd,
+                        dt: &dt,
+                    };
+                    let (mut a, mut b) = ([0.0; 3], [0.0; 3]);
+                    let done_a = walk::<3>(&field, &table, &pc, node, d_ref, &mut a);
+                    // SAFETY: AVX2 support was checked at the start of the test.
+                    let done_b =
+                        unsafe { walk_avx2::<3>(&field, &table, &pc, node, d_ref, &mut b) };
+                    assert_eq!(done_a, done_b);
+                    for c in 0..3 {
+                        assert_eq!(
+                            a[c].to_bits(),
+                            b[c].to_bits(),
+                            "node {node:?}, criterion {c}"
+                        );
+                    }
+                    compared += 1;
+                }
+            }
+        }
+        assert!(compared >= 50, "only {compared} nodes compared");
+    }
 }
