@@ -20,7 +20,7 @@ use std::collections::BTreeMap;
 use crate::search::{Criterion, min_norm_sq, segment_sq};
 
 /// Simplices per block (the width the arithmetic is written for).
-const LANES: usize = 24;
+const LANES: usize = 8;
 /// Vertices of a simplex in the largest dimension.
 const MAX_VERTS: usize = MAX_DIMS + 1;
 
@@ -94,6 +94,8 @@ pub struct NodeTable {
     radius_mm: f64,
     /// Smallest and largest cell offset in the table along each axis.
     reach: [(i64, i64); MAX_DIMS],
+    /// Smallest and largest flat offset of a vertex from the node.
+    span: (isize, isize),
 }
 
 impl NodeTable {
@@ -189,11 +191,14 @@ impl NodeTable {
                 .then(p.nodes.cmp(&q.nodes))
         });
         let edges = edge_list.chunks(LANES).map(edge_block).collect();
+        let offsets = entries.iter().flat_map(|e| e.off[..=k].to_vec());
+        let span = offsets.fold((0, 0), |(lo, hi), o| (o.min(lo), o.max(hi)));
         Some(NodeTable {
             blocks,
             edges,
             radius_mm,
             reach,
+            span,
         })
     }
 
@@ -415,7 +420,11 @@ fn walk<const K: usize>(
     for a in 0..K {
         flat += node[a] * strides[a];
     }
-    let dose = &field.dose;
+    // The doses the table reaches from this node (all inside the grid: `covers`), indexed
+    // from the node's own at `flat`.
+    let first = flat.wrapping_add_signed(table.span.0);
+    let dose = &field.dose[first..=flat.wrapping_add_signed(table.span.1)];
+    let flat = flat - first;
     let mut k = Constants::default();
     for c in 0..nc {
         k.dd2[c] = pc.dd[c] * pc.dd[c];
@@ -485,7 +494,7 @@ fn edge_block_search<const K: usize>(
     let mut v = [[0.0; LANES]; 2];
     for end in 0..2 {
         for l in 0..LANES {
-            v[end][l] = dose[flat.wrapping_add_signed(blk.off[end][l])] - d_ref;
+            v[end][l] = at(dose, flat, blk.off[end][l]) - d_ref;
         }
     }
     for c in 0..nc {
@@ -541,7 +550,7 @@ fn simplex_block_search<const K: usize>(
     let mut v = [[0.0; LANES]; MAX_VERTS];
     for j in 0..=K {
         for l in 0..LANES {
-            v[j][l] = dose[flat.wrapping_add_signed(blk.off[j][l])];
+            v[j][l] = at(dose, flat, blk.off[j][l]);
         }
     }
     // Each simplex's linear dose: its value at the node (minus d_ref), its steps along the
@@ -634,11 +643,19 @@ fn simplex_block_search<const K: usize>(
         // den). That is the distance to the face's hull; when the hull's nearest point lies
         // inside the face (every other coordinate b_i - b_j M_ij / M_jj non-negative) it is the
         // face's minimum, otherwise the face's minimum lies on its edges.
+        let best2 = out[c] * out[c];
+        let mut open = 0u32;
         for l in 0..LANES {
+            open |= u32::from((exact[l] == f64::INFINITY) & (lb2[l] < best2)) << l;
+        }
+        while open != 0 {
+            let l = open.trailing_zeros() as usize;
+            open &= open - 1;
             let best2 = out[c] * out[c];
-            if exact[l] < f64::INFINITY || lb2[l] >= best2 {
+            if lb2[l] >= best2 {
                 continue;
             }
+            counters::count(counters::OPEN);
             let mut bary = [0.0; MAX_VERTS];
             let mut rate = [0.0; MAX_VERTS];
             for j in 0..=K {
@@ -692,10 +709,12 @@ pub mod counters {
     pub const IMPROVED: usize = 3;
     /// Points whose search radius left the table.
     pub const LEFT: usize = 4;
-    const NAMES: [&str; 5] = ["points", "blocks", "faces", "improved", "left table"];
+    /// Simplices whose faces needed a look after the vector bounds.
+    pub const OPEN: usize = 5;
+    const NAMES: [&str; 6] = ["points", "blocks", "faces", "improved", "left table", "open"];
 
     #[cfg(feature = "counters")]
-    static COUNTS: [AtomicU64; 5] = [const { AtomicU64::new(0) }; 5];
+    static COUNTS: [AtomicU64; 6] = [const { AtomicU64::new(0) }; 6];
 
     /// Count one event.
     #[inline(always)]
@@ -733,6 +752,13 @@ pub mod counters {
             None
         }
     }
+}
+
+/// The dose at offset `off` from index `flat` of `window`, which holds every dose the table
+/// reaches; clamped so that the access needs no bounds check (and so no branch).
+#[inline(always)]
+fn at(window: &[f64], flat: usize, off: isize) -> f64 {
+    window[flat.wrapping_add_signed(off).min(window.len() - 1)]
 }
 
 /// Rate of change of barycentric coordinate `j` along the dose gradient, from the scaled
