@@ -46,6 +46,8 @@ struct Block {
     /// Reciprocal length of each barycentric coordinate's gradient, mm: a point whose
     /// coordinate b is negative lies at least -b times this from the simplex.
     inv: [[f64; LANES]; MAX_VERTS],
+    /// Squared length of each barycentric coordinate's gradient, mm^-2.
+    gjj: [[f64; LANES]; MAX_VERTS],
 }
 
 /// One simplex while the table is built.
@@ -330,6 +332,7 @@ fn block(entries: &[Entry]) -> Block {
         beta: [[0.0; LANES]; MAX_VERTS],
         ih2: [[0.0; LANES]; MAX_DIMS],
         inv: [[0.0; LANES]; MAX_VERTS],
+        gjj: [[0.0; LANES]; MAX_VERTS],
     };
     for (l, e) in entries.iter().enumerate() {
         b.ds2[l] = e.ds2;
@@ -343,6 +346,7 @@ fn block(entries: &[Entry]) -> Block {
             b.off[j][l] = e.off[j];
             b.beta[j][l] = e.beta[j];
             b.inv[j][l] = e.inv[j];
+            b.gjj[j][l] = 1.0 / (e.inv[j] * e.inv[j]);
         }
     }
     b
@@ -499,34 +503,47 @@ fn edge_block_search<const K: usize>(
     }
     for c in 0..nc {
         let (idt, idd) = (k.idt[c], k.idd[c]);
-        let mut best = f64::INFINITY;
+        // Lane by lane, lanes innermost: first end a and direction ab in normalised space
+        // (space over dt, dose over dd), then the nearest point a + t ab with t in [0, 1].
+        let mut a = [[0.0; LANES]; MAX_VERTS];
+        let mut ab = [[0.0; LANES]; MAX_VERTS];
+        for d in 0..K {
+            for l in 0..LANES {
+                a[d][l] = blk.pos[0][d][l] * idt;
+                ab[d][l] = blk.pos[1][d][l] * idt - a[d][l];
+            }
+        }
         for l in 0..LANES {
-            // a = first end, ab = second minus first, in normalised space.
-            let mut a = [0.0; MAX_VERTS];
-            let mut ab = [0.0; MAX_VERTS];
-            for d in 0..K {
-                a[d] = blk.pos[0][d][l] * idt;
-                ab[d] = blk.pos[1][d][l] * idt - a[d];
+            a[K][l] = v[0][l] * idd;
+            ab[K][l] = v[1][l] * idd - a[K][l];
+        }
+        let mut num = [0.0; LANES];
+        let mut len2 = [0.0; LANES];
+        for d in 0..=K {
+            for l in 0..LANES {
+                num[l] -= a[d][l] * ab[d][l];
+                len2[l] += ab[d][l] * ab[d][l];
             }
-            a[K] = v[0][l] * idd;
-            ab[K] = v[1][l] * idd - a[K];
-            let (mut num, mut len2) = (0.0, 0.0);
-            for d in 0..=K {
-                num -= a[d] * ab[d];
-                len2 += ab[d] * ab[d];
+        }
+        let mut t = [0.0; LANES];
+        for l in 0..LANES {
+            t[l] = greater(lesser(num[l] / len2[l], 1.0), 0.0);
+        }
+        let mut d2 = [0.0; LANES];
+        for d in 0..=K {
+            for l in 0..LANES {
+                let p = a[d][l] + t[l] * ab[d][l];
+                d2[l] += p * p;
             }
-            let t = greater(lesser(num / len2, 1.0), 0.0);
-            let mut d2 = 0.0;
-            for d in 0..=K {
-                let p = a[d] + t * ab[d];
-                d2 += p * p;
+        }
+        for l in 0..LANES {
+            if blk.cd2[l] > k.max2[c] {
+                d2[l] = f64::INFINITY;
             }
-            let far = if blk.cd2[l] <= k.max2[c] {
-                0.0
-            } else {
-                f64::INFINITY
-            };
-            best = lesser(best, d2 + far);
+        }
+        let mut best = f64::INFINITY;
+        for &e in &d2 {
+            best = lesser(best, e);
         }
         if best < out[c] * out[c] {
             out[c] = best.max(0.0).sqrt();
@@ -587,12 +604,13 @@ fn simplex_block_search<const K: usize>(
         // lower bounds, and the value of every simplex whose foot lies inside it (exact).
         let (dd2c, dt2c) = (k.dd2[c], k.dt2[c]);
         let mut plane2 = [0.0; LANES];
-        let mut den = [0.0; LANES];
+        let mut inv_den = [0.0; LANES];
         let mut shift = [0.0; LANES];
+        let (idd2, idt2) = (k.idd[c] * k.idd[c], k.idt[c] * k.idt[c]);
         for l in 0..LANES {
-            den[l] = dd2c + dt2c * g_sq[l];
-            plane2[l] = delta[l] * delta[l] / den[l];
-            shift[l] = dt2c * delta[l] / den[l];
+            inv_den[l] = 1.0 / (dd2c + dt2c * g_sq[l]);
+            plane2[l] = delta[l] * delta[l] * inv_den[l];
+            shift[l] = dt2c * delta[l] * inv_den[l];
         }
         // Largest violation of a barycentric coordinate, and the spatial distance it implies
         // (the foot lies at least that far from the simplex).
@@ -619,8 +637,8 @@ fn simplex_block_search<const K: usize>(
             // is at least the spatial one over dt.
             lb2[l] = far
                 + greater(
-                    blk.ds2[l] / dt2c + gap[l] * gap[l] / dd2c,
-                    plane2[l] + sl[l] * sl[l] / dt2c,
+                    blk.ds2[l] * idt2 + gap[l] * gap[l] * idd2,
+                    plane2[l] + sl[l] * sl[l] * idt2,
                 );
             exact[l] = far
                 + if neg[l] > 0.0 {
@@ -667,17 +685,18 @@ fn simplex_block_search<const K: usize>(
                 if bary[j] >= 0.0 {
                     continue;
                 }
-                let m_jj = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] / den[l]);
-                let hull = plane2[l] + bary[j] * bary[j] / m_jj;
+                let m_jj = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] * inv_den[l]);
+                let inv_m = 1.0 / m_jj;
+                let hull = plane2[l] + bary[j] * bary[j] * inv_m;
                 if hull >= m {
                     continue;
                 }
                 let mut on_face = true;
                 for i in 0..=K {
                     if i != j {
-                        let m_ij =
-                            dt2c * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] / den[l]);
-                        on_face &= bary[i] - bary[j] * m_ij / m_jj >= 0.0;
+                        let m_ij = dt2c
+                            * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] * inv_den[l]);
+                        on_face &= bary[i] - bary[j] * m_ij * inv_m >= 0.0;
                     }
                 }
                 if on_face {
@@ -780,7 +799,7 @@ fn bary_rate<const K: usize>(sj: &[[f64; LANES]; MAX_DIMS], j: usize, l: usize) 
 #[inline(always)]
 fn gram<const K: usize>(blk: &Block, l: usize, i: usize, j: usize) -> f64 {
     if i == j {
-        1.0 / (blk.inv[j][l] * blk.inv[j][l])
+        blk.gjj[j][l]
     } else if i + 1 == j || j + 1 == i {
         -blk.ih2[i.min(j)][l]
     } else {
