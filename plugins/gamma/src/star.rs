@@ -20,7 +20,7 @@ use std::collections::BTreeMap;
 use crate::search::{Criterion, min_norm_sq, segment_sq};
 
 /// Simplices per block (the width the arithmetic is written for).
-const LANES: usize = 8;
+const LANES: usize = 4;
 /// Vertices of a simplex in the largest dimension.
 const MAX_VERTS: usize = MAX_DIMS + 1;
 
