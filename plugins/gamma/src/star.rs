@@ -50,6 +50,14 @@ struct Block {
     gjj: [[f64; LANES]; MAX_VERTS],
 }
 
+/// One step of the walk: a block of edges or of simplices, and its nearest distance (mm^2).
+#[derive(Debug, Clone, Copy)]
+struct Step {
+    ds2: f64,
+    edges: bool,
+    block: u32,
+}
+
 /// One simplex while the table is built.
 struct Entry {
     ds2: f64,
@@ -89,6 +97,10 @@ struct EdgeBlock {
 /// The simplices around a node of an evenly spaced grid, sorted by distance from the node.
 #[derive(Debug, Clone)]
 pub struct NodeTable {
+    /// The walk: blocks of edges and of simplices in one order of distance (an edge block
+    /// before a simplex block at equal distance: its exact values are cheap and tighten the
+    /// simplices' bounds).
+    steps: Vec<Step>,
     blocks: Vec<Block>,
     /// The edges of those simplices (each once), sorted by distance from the node.
     edges: Vec<EdgeBlock>,
@@ -151,7 +163,7 @@ impl NodeTable {
                 reach[a].1 = reach[a].1.max(e.cell[a]);
             }
         }
-        let blocks = entries.chunks(LANES).map(block).collect();
+        let blocks: Vec<Block> = entries.chunks(LANES).map(block).collect();
         // Every edge of every simplex, once, with the nearest of the cells it belongs to.
         let mut edge_cells: BTreeMap<([i64; MAX_DIMS], [i64; MAX_DIMS]), f64> = BTreeMap::new();
         for e in &entries {
@@ -192,10 +204,26 @@ impl NodeTable {
                 .then(p.cd2.total_cmp(&q.cd2))
                 .then(p.nodes.cmp(&q.nodes))
         });
-        let edges = edge_list.chunks(LANES).map(edge_block).collect();
+        let edges: Vec<EdgeBlock> = edge_list.chunks(LANES).map(edge_block).collect();
         let offsets = entries.iter().flat_map(|e| e.off[..=k].to_vec());
         let span = offsets.fold((0, 0), |(lo, hi), o| (o.min(lo), o.max(hi)));
+        let mut steps: Vec<Step> = (0..blocks.len())
+            .map(|i| (false, i, &blocks[i].ds2[0]))
+            .chain((0..edges.len()).map(|i| (true, i, &edges[i].ds2[0])))
+            .map(|(edges, i, &ds2)| Step {
+                ds2,
+                edges,
+                block: i as u32,
+            })
+            .collect();
+        steps.sort_by(|p, q| {
+            p.ds2
+                .total_cmp(&q.ds2)
+                .then(q.edges.cmp(&p.edges))
+                .then(p.block.cmp(&q.block))
+        });
         Some(NodeTable {
+            steps,
             blocks,
             edges,
             radius_mm,
@@ -442,25 +470,17 @@ fn walk<const K: usize>(
     }
     // Edges and simplices in one order of distance; an edge before a simplex at equal distance
     // (its exact value is cheap and tightens the simplices' bounds).
-    let (mut ti, mut ei) = (0, 0);
-    loop {
-        let next_t = table.blocks.get(ti).map_or(f64::INFINITY, |b| b.ds2[0]);
-        let next_e = table.edges.get(ei).map_or(f64::INFINITY, |b| b.ds2[0]);
-        let nearest = next_t.min(next_e);
-        if nearest == f64::INFINITY {
-            break;
-        }
+    for step in &table.steps {
         // Stop once distance alone reaches every criterion's best value.
-        if (0..nc).all(|c| nearest >= out[c] * out[c] * k.dt2[c]) {
+        if (0..nc).all(|c| step.ds2 >= out[c] * out[c] * k.dt2[c]) {
             return true;
         }
         counters::count(counters::BLOCKS);
-        if next_e <= next_t {
-            edge_block_search::<K>(&table.edges[ei], dose, flat, d_ref, nc, &k, out);
-            ei += 1;
+        let i = step.block as usize;
+        if step.edges {
+            edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, nc, &k, out);
         } else {
-            simplex_block_search::<K>(&table.blocks[ti], dose, flat, d_ref, nc, &k, out);
-            ti += 1;
+            simplex_block_search::<K>(&table.blocks[i], dose, flat, d_ref, nc, &k, out);
         }
     }
     // The table is used up: final only if no criterion's radius reaches beyond it.
