@@ -471,16 +471,21 @@ fn walk<const K: usize>(
     // Edges and simplices in one order of distance; an edge before a simplex at equal distance
     // (its exact value is cheap and tightens the simplices' bounds).
     for step in &table.steps {
-        // Stop once distance alone reaches every criterion's best value.
-        if (0..nc).all(|c| step.ds2 >= out[c] * out[c] * k.dt2[c]) {
+        // A criterion is done once distance alone reaches its best value; the walk once every
+        // criterion is.
+        let mut live = 0u32;
+        for c in 0..nc {
+            live |= u32::from(step.ds2 < out[c] * out[c] * k.dt2[c]) << c;
+        }
+        if live == 0 {
             return true;
         }
         counters::count(counters::BLOCKS);
         let i = step.block as usize;
         if step.edges {
-            edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, nc, &k, out);
+            edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, out);
         } else {
-            simplex_block_search::<K>(&table.blocks[i], dose, flat, d_ref, nc, &k, out);
+            simplex_block_search::<K>(&table.blocks[i], dose, flat, d_ref, live, &k, out);
         }
     }
     // The table is used up: final only if no criterion's radius reaches beyond it.
@@ -511,7 +516,7 @@ fn edge_block_search<const K: usize>(
     dose: &[f64],
     flat: usize,
     d_ref: f64,
-    nc: usize,
+    live: u32,
     k: &Constants,
     out: &mut [f64],
 ) {
@@ -521,7 +526,7 @@ fn edge_block_search<const K: usize>(
             v[end][l] = at(dose, flat, blk.off[end][l]) - d_ref;
         }
     }
-    for c in 0..nc {
+    for c in criteria(live) {
         let (idt, idd) = (k.idt[c], k.idd[c]);
         // Lane by lane, lanes innermost: first end a and direction ab in normalised space
         // (space over dt, dose over dd), then the nearest point a + t ab with t in [0, 1].
@@ -579,7 +584,7 @@ fn simplex_block_search<const K: usize>(
     dose: &[f64],
     flat: usize,
     d_ref: f64,
-    nc: usize,
+    live: u32,
     k: &Constants,
     out: &mut [f64],
 ) {
@@ -619,7 +624,7 @@ fn simplex_block_search<const K: usize>(
     for l in 0..LANES {
         gap[l] = greater(greater(lo[l] - d_ref, d_ref - hi[l]), 0.0);
     }
-    for c in 0..nc {
+    for c in criteria(live) {
         // Phase one: the hyperplane distance, the barycentric coordinates of its foot, the
         // lower bounds, and the value of every simplex whose foot lies inside it (exact).
         let (dd2c, dt2c) = (k.dd2[c], k.dt2[c]);
@@ -798,6 +803,18 @@ pub mod counters {
 #[inline(always)]
 fn at(window: &[f64], flat: usize, off: isize) -> f64 {
     window[flat.wrapping_add_signed(off).min(window.len() - 1)]
+}
+
+/// The criteria whose bits are set in `live`, in order.
+#[inline(always)]
+fn criteria(mut live: u32) -> impl Iterator<Item = usize> {
+    std::iter::from_fn(move || {
+        (live != 0).then(|| {
+            let c = live.trailing_zeros() as usize;
+            live &= live - 1;
+            c
+        })
+    })
 }
 
 /// Rate of change of barycentric coordinate `j` along the dose gradient, from the scaled
