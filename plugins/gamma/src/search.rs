@@ -242,11 +242,10 @@ fn gamma_at_k<const K: usize>(
                 dd: &dd[..nc],
                 dt: &dt[..nc],
             };
-            match search_node::<K>(field, t, &pc, node, d_ref, out) {
-                Some(true) => return true,
-                Some(false) => seeded = true,
-                None => {}
+            if search_node::<K>(field, t, &pc, node, d_ref, out) {
+                return true;
             }
+            seeded = true;
         }
         let d0 = field.interpolate(&u);
         for c in 0..nc {

@@ -17,7 +17,7 @@
 use crate::field::{Field, MAX_DIMS, kuhn_orders};
 use std::collections::BTreeMap;
 
-use crate::search::{Criterion, min_norm_sq, segment_sq};
+use crate::search::{Criterion, face_sq, min_norm_sq, segment_sq};
 
 /// Simplices per block (the width the arithmetic is written for).
 const LANES: usize = 4;
@@ -102,6 +102,9 @@ pub struct NodeTable {
     /// simplices' bounds).
     steps: Vec<Step>,
     blocks: Vec<Block>,
+    /// Vertex positions relative to the node (mm) of each lane of each block, for the face
+    /// distances that the walk near the grid's faces needs.
+    pos: Vec<[[f64; MAX_DIMS]; MAX_VERTS]>,
     /// The edges of those simplices (each once), sorted by distance from the node.
     edges: Vec<EdgeBlock>,
     /// Every simplex of every cell whose box lies within this distance of the node, mm.
@@ -222,9 +225,18 @@ impl NodeTable {
                 .then(q.edges.cmp(&p.edges))
                 .then(p.block.cmp(&q.block))
         });
+        let mut pos = vec![[[0.0; MAX_DIMS]; MAX_VERTS]; blocks.len() * LANES];
+        for (p, e) in pos.iter_mut().zip(&entries) {
+            for j in 0..=k {
+                for a in 0..k {
+                    p[j][a] = e.nodes[j][a] as f64 * h[a];
+                }
+            }
+        }
         Some(NodeTable {
             steps,
             blocks,
+            pos,
             edges,
             radius_mm,
             reach,
@@ -389,10 +401,9 @@ pub struct PointCriteria<'a> {
     pub dt: &'a [f64],
 }
 
-/// Gamma at the node with local indices `node` for every criterion into `out`. `None` when the
-/// table reaches past the grid's edge from this node (the general search applies); otherwise
-/// true when the values are final, false when some criterion's search radius leaves the table,
-/// in which case `out` holds attained values (upper bounds) to continue from.
+/// Gamma at the node with local indices `node` for every criterion into `out`: true when the
+/// values are final, false when some criterion's search radius leaves the table, in which case
+/// `out` holds attained values (upper bounds) to continue from.
 ///
 /// The minimum over the interpolant lies inside a simplex, inside one of its faces, or on an
 /// edge (end nodes included). The walk takes edges and simplices in one order of distance:
@@ -407,16 +418,27 @@ pub fn search_node<const K: usize>(
     node: [usize; MAX_DIMS],
     d_ref: f64,
     out: &mut [f64],
-) -> Option<bool> {
-    if !table.covers(field, &node) {
-        return None;
-    }
+) -> bool {
+    // Near the grid's faces some cells of the table do not exist; there the walk leaves them
+    // out lane by lane, takes no edges (an edge's nearest cell may be missing) and solves a
+    // face exactly where its hull's nearest point lies outside it.
+    let inside = table.covers(field, &node);
     #[cfg(target_arch = "x86_64")]
     if std::arch::is_x86_feature_detected!("avx2") {
         // SAFETY: the processor supports AVX2, checked on the line above.
-        return Some(unsafe { walk_avx2::<K>(field, table, pc, node, d_ref, out) });
+        return unsafe {
+            if inside {
+                walk_avx2::<K, true>(field, table, pc, node, d_ref, out)
+            } else {
+                walk_avx2::<K, false>(field, table, pc, node, d_ref, out)
+            }
+        };
     }
-    Some(walk::<K>(field, table, pc, node, d_ref, out))
+    if inside {
+        walk::<K, true>(field, table, pc, node, d_ref, out)
+    } else {
+        walk::<K, false>(field, table, pc, node, d_ref, out)
+    }
 }
 
 /// `walk` compiled for processors with AVX2 (four lanes per vector instruction). The
@@ -424,7 +446,7 @@ pub fn search_node<const K: usize>(
 /// multiply and an add into a fused one), so the results are identical to the last bit.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-fn walk_avx2<const K: usize>(
+fn walk_avx2<const K: usize, const INSIDE: bool>(
     field: &Field,
     table: &NodeTable,
     pc: &PointCriteria,
@@ -432,12 +454,13 @@ fn walk_avx2<const K: usize>(
     d_ref: f64,
     out: &mut [f64],
 ) -> bool {
-    walk::<K>(field, table, pc, node, d_ref, out)
+    walk::<K, INSIDE>(field, table, pc, node, d_ref, out)
 }
 
-/// The walk itself (see `search_node`).
+/// The walk itself (see `search_node`); `INSIDE` when every cell of the table lies inside the
+/// grid.
 #[inline(always)]
-fn walk<const K: usize>(
+fn walk<const K: usize, const INSIDE: bool>(
     field: &Field,
     table: &NodeTable,
     pc: &PointCriteria,
@@ -452,11 +475,23 @@ fn walk<const K: usize>(
     for a in 0..K {
         flat += node[a] * strides[a];
     }
-    // The doses the table reaches from this node (all inside the grid: `covers`), indexed
-    // from the node's own at `flat`.
-    let first = flat.wrapping_add_signed(table.span.0);
-    let dose = &field.dose[first..=flat.wrapping_add_signed(table.span.1)];
-    let flat = flat - first;
+    // The doses the table reaches from this node, indexed from the node's own at `flat`: a
+    // window when all lie inside the grid, else the whole grid (lanes of missing cells read
+    // a clamped index, never used).
+    let (dose, flat) = if INSIDE {
+        let first = flat.wrapping_add_signed(table.span.0);
+        (
+            &field.dose[first..=flat.wrapping_add_signed(table.span.1)],
+            flat - first,
+        )
+    } else {
+        (&field.dose[..], flat)
+    };
+    let mut bounds = Bounds::default();
+    for a in 0..K {
+        bounds.node[a] = node[a] as i32;
+        bounds.last[a] = field.axes[a].len() as i32 - 2;
+    }
     let mut k = Constants::default();
     for c in 0..nc {
         k.dd2[c] = pc.dd[c] * pc.dd[c];
@@ -483,9 +518,18 @@ fn walk<const K: usize>(
         counters::count(counters::BLOCKS);
         let i = step.block as usize;
         if step.edges {
-            edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, out);
+            if INSIDE {
+                edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, out);
+            }
         } else {
-            simplex_block_search::<K>(&table.blocks[i], dose, flat, d_ref, live, &k, out);
+            let at = Placement {
+                dose,
+                flat,
+                d_ref,
+                bounds: &bounds,
+                pos: &table.pos[i * LANES..(i + 1) * LANES],
+            };
+            simplex_block_search::<K, INSIDE>(&table.blocks[i], &at, live, &k, out);
         }
     }
     // The table is used up: final only if no criterion's radius reaches beyond it.
@@ -496,6 +540,24 @@ fn walk<const K: usize>(
         counters::count(counters::LEFT);
     }
     done
+}
+
+/// The node's place in the grid, for leaving out cells beyond the grid's faces.
+#[derive(Default)]
+struct Bounds {
+    node: [i32; MAX_DIMS],
+    /// Index of the last cell along each axis.
+    last: [i32; MAX_DIMS],
+}
+
+/// Where a block is evaluated: the doses around the node, the reference dose, the grid's
+/// bounds, and the vertex positions of the block's simplices (for face solves).
+struct Placement<'a> {
+    dose: &'a [f64],
+    flat: usize,
+    d_ref: f64,
+    bounds: &'a Bounds,
+    pos: &'a [[[f64; MAX_DIMS]; MAX_VERTS]],
 }
 
 /// Per-criterion constants of one point: squared criteria, reciprocals, squared radii.
@@ -579,20 +641,31 @@ fn edge_block_search<const K: usize>(
 /// A block of simplices: the hyperplane distance of those whose foot lies inside, and the hull
 /// distance of faces whose nearest hull point lies inside them.
 #[inline(always)]
-fn simplex_block_search<const K: usize>(
+fn simplex_block_search<const K: usize, const INSIDE: bool>(
     blk: &Block,
-    dose: &[f64],
-    flat: usize,
-    d_ref: f64,
+    place: &Placement,
     live: u32,
     k: &Constants,
     out: &mut [f64],
 ) {
+    let (dose, flat, d_ref) = (place.dose, place.flat, place.d_ref);
     // Vertex doses (a padding lane reads the node's own dose, never used).
     let mut v = [[0.0; LANES]; MAX_VERTS];
     for j in 0..=K {
         for l in 0..LANES {
             v[j][l] = at(dose, flat, blk.off[j][l]);
+        }
+    }
+    // Lanes whose cell lies beyond the grid's faces count as infinitely far.
+    let mut missing = [0.0; LANES];
+    if !INSIDE {
+        for l in 0..LANES {
+            for a in 0..K {
+                let n = place.bounds.node[a] + blk.cell[a][l];
+                if n < 0 || n > place.bounds.last[a] {
+                    missing[l] = f64::INFINITY;
+                }
+            }
         }
     }
     // Each simplex's linear dose: its value at the node (minus d_ref), its steps along the
@@ -653,11 +726,12 @@ fn simplex_block_search<const K: usize>(
         let mut lb2 = [0.0; LANES];
         let mut exact = [0.0; LANES];
         for l in 0..LANES {
-            let far = if blk.cd2[l] <= k.max2[c] {
-                0.0
-            } else {
-                f64::INFINITY
-            };
+            let far = missing[l]
+                + if blk.cd2[l] <= k.max2[c] {
+                    0.0
+                } else {
+                    f64::INFINITY
+                };
             // Pythagoras in the hyperplane: the in-plane distance from the foot to the simplex
             // is at least the spatial one over dt.
             lb2[l] = far
@@ -727,6 +801,17 @@ fn simplex_block_search<const K: usize>(
                 if on_face {
                     counters::count(counters::FACES);
                     m = hull;
+                } else if !INSIDE {
+                    // No edges in this walk: the face itself.
+                    let pos = &place.pos[l];
+                    let mut w = [[0.0; 4]; 4];
+                    for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
+                        for a in 0..K {
+                            wi[a] = pos[i][a] * k.idt[c];
+                        }
+                        wi[K] = (v[i][l] - d_ref) * k.idd[c];
+                    }
+                    m = m.min(face_sq(&w, j, K));
                 }
             }
             if m < best2 {
@@ -755,7 +840,14 @@ pub mod counters {
     pub const LEFT: usize = 4;
     /// Simplices whose faces needed a look after the vector bounds.
     pub const OPEN: usize = 5;
-    const NAMES: [&str; 6] = ["points", "blocks", "faces", "improved", "left table", "open"];
+    const NAMES: [&str; 6] = [
+        "points",
+        "blocks",
+        "faces",
+        "improved",
+        "left table",
+        "open",
+    ];
 
     #[cfg(feature = "counters")]
     static COUNTS: [AtomicU64; 6] = [const { AtomicU64::new(0) }; 6];
@@ -870,7 +962,7 @@ mod tests {
             eprintln!("no AVX2 on this processor: one build only, nothing to compare");
             return;
         }
-        let n = 16usize;
+        let n = 12usize;
         let axis: Vec<f64> = (0..n).map(|i| i as f64 * 1.25).collect();
         let mut state = 77u64;
         let mut next = || {
@@ -916,9 +1008,7 @@ mod tests {
             for j in 0..n {
                 for l in 0..n {
                     let node = [i, j, l];
-                    if !table.covers(&field, &node) {
-                        continue;
-                    }
+                    let inside = table.covers(&field, &node);
                     let d_ref = 45.0 + 30.0 * next();
                     let dd: Vec<f64> = crits.iter().map(|c| c.delta_dose(d_ref)).collect();
                     let dt: Vec<f64> = crits.iter().map(|c| c.dta_mm).collect();
@@ -928,10 +1018,22 @@ mod tests {
                         dt: &dt,
                     };
                     let (mut a, mut b) = ([0.0; 3], [0.0; 3]);
-                    let done_a = walk::<3>(&field, &table, &pc, node, d_ref, &mut a);
-                    // SAFETY: AVX2 support was checked at the start of the test.
-                    let done_b =
-                        unsafe { walk_avx2::<3>(&field, &table, &pc, node, d_ref, &mut b) };
+                    // SAFETY (both blocks): AVX2 support was checked at the start of the test.
+                    let (done_a, done_b) = if inside {
+                        (
+                            walk::<3, true>(&field, &table, &pc, node, d_ref, &mut a),
+                            unsafe {
+                                walk_avx2::<3, true>(&field, &table, &pc, node, d_ref, &mut b)
+                            },
+                        )
+                    } else {
+                        (
+                            walk::<3, false>(&field, &table, &pc, node, d_ref, &mut a),
+                            unsafe {
+                                walk_avx2::<3, false>(&field, &table, &pc, node, d_ref, &mut b)
+                            },
+                        )
+                    };
                     assert_eq!(done_a, done_b);
                     for c in 0..3 {
                         assert_eq!(
@@ -944,6 +1046,10 @@ mod tests {
                 }
             }
         }
-        assert!(compared >= 50, "only {compared} nodes compared");
+        assert_eq!(
+            compared,
+            n * n * n,
+            "every node compared, inside and near the faces"
+        );
     }
 }

@@ -466,11 +466,12 @@ fn exact_search_agrees_with_exhaustive_search_in_2d_and_3d() {
 #[test]
 fn tabulated_search_at_grid_nodes_agrees_with_exhaustive_search() {
     // Reference points on the nodes of the evaluated grid take the tabulated walk
-    // (`star::search_node`) where its table fits inside the grid, the general search near the
-    // grid's faces. Both must return what an exhaustive search over every simplex returns, on
-    // unequal spacings, for global and local criteria, and where the search radius leaves the
-    // table (3 cells in 3D) so that the general search continues from the walk's value. Rough
-    // noisy data put many minima on faces and edges rather than inside simplices.
+    // (`star::search_node`): with edges where its table fits inside the grid, with face
+    // solves and missing cells left out near the grid's faces. Both must return what an
+    // exhaustive search over every simplex returns, on unequal spacings, for global and local
+    // criteria, and where the search radius leaves the table (3 cells in 3D) so that the
+    // general search continues from the walk's value. Rough noisy data put many minima on
+    // faces and edges rather than inside simplices.
     for dims in [1usize, 2, 3] {
         let (xs, ys, zs) = match dims {
             1 => (steps(-70.0, 70.0, 0.7), vec![0.0], vec![0.0]),
@@ -498,8 +499,8 @@ fn tabulated_search_at_grid_nodes_agrees_with_exhaustive_search() {
             for (iy, &y) in ys.iter().enumerate() {
                 for (ix, &x) in xs.iter().enumerate() {
                     let covered = table.covers(&field, &[ix, iy, iz]);
-                    // Every covered node, and a sample of the others (the exhaustive search
-                    // is slow in the test profile).
+                    // Every node whose table fits, and a sample of the others (the
+                    // exhaustive search is slow in the test profile).
                     if !covered && (ix + 3 * iy + 5 * iz) % 13 != 0 {
                         continue;
                     }
