@@ -493,6 +493,8 @@ fn walk<const K: usize, const INSIDE: bool>(
         bounds.last[a] = field.axes[a].len() as i32 - 2;
     }
     let mut k = Constants::default();
+    // Squared best values; square roots once at the end.
+    let mut best2 = [0.0; 16];
     for c in 0..nc {
         k.dd2[c] = pc.dd[c] * pc.dd[c];
         k.dt2[c] = pc.dt[c] * pc.dt[c];
@@ -501,7 +503,8 @@ fn walk<const K: usize, const INSIDE: bool>(
         let r = pc.crits[c].max_search_mm * (1.0 + 1e-12);
         k.max2[c] = r * r;
         // The node itself: distance zero.
-        out[c] = (dose[flat] - d_ref).abs() / pc.dd[c];
+        let g = (dose[flat] - d_ref) / pc.dd[c];
+        best2[c] = g * g;
     }
     // Edges and simplices in one order of distance; an edge before a simplex at equal distance
     // (its exact value is cheap and tightens the simplices' bounds).
@@ -510,16 +513,17 @@ fn walk<const K: usize, const INSIDE: bool>(
         // criterion is.
         let mut live = 0u32;
         for c in 0..nc {
-            live |= u32::from(step.ds2 < out[c] * out[c] * k.dt2[c]) << c;
+            live |= u32::from(step.ds2 < best2[c] * k.dt2[c]) << c;
         }
         if live == 0 {
+            finish(&best2, out);
             return true;
         }
         counters::count(counters::BLOCKS);
         let i = step.block as usize;
         if step.edges {
             if INSIDE {
-                edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, out);
+                edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, &mut best2);
             }
         } else {
             let at = Placement {
@@ -529,10 +533,11 @@ fn walk<const K: usize, const INSIDE: bool>(
                 bounds: &bounds,
                 pos: &table.pos[i * LANES..(i + 1) * LANES],
             };
-            simplex_block_search::<K, INSIDE>(&table.blocks[i], &at, live, &k, out);
+            simplex_block_search::<K, INSIDE>(&table.blocks[i], &at, live, &k, &mut best2);
         }
     }
     // The table is used up: final only if no criterion's radius reaches beyond it.
+    finish(&best2, out);
     let done = (0..nc).all(|c| {
         (out[c] * pc.dt[c]).min(pc.crits[c].max_search_mm) <= table.radius_mm * (1.0 - 1e-12)
     });
@@ -540,6 +545,14 @@ fn walk<const K: usize, const INSIDE: bool>(
         counters::count(counters::LEFT);
     }
     done
+}
+
+/// Gamma values from their squares.
+#[inline(always)]
+fn finish(best2: &[f64; 16], out: &mut [f64]) {
+    for (o, b) in out.iter_mut().zip(best2) {
+        *o = b.max(0.0).sqrt();
+    }
 }
 
 /// The node's place in the grid, for leaving out cells beyond the grid's faces.
@@ -580,7 +593,7 @@ fn edge_block_search<const K: usize>(
     d_ref: f64,
     live: u32,
     k: &Constants,
-    out: &mut [f64],
+    best2: &mut [f64; 16],
 ) {
     let mut v = [[0.0; LANES]; 2];
     for end in 0..2 {
@@ -632,8 +645,8 @@ fn edge_block_search<const K: usize>(
         for &e in &d2 {
             best = lesser(best, e);
         }
-        if best < out[c] * out[c] {
-            out[c] = best.max(0.0).sqrt();
+        if best < best2[c] {
+            best2[c] = best;
         }
     }
 }
@@ -646,7 +659,7 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
     place: &Placement,
     live: u32,
     k: &Constants,
-    out: &mut [f64],
+    best2: &mut [f64; 16],
 ) {
     let (dose, flat, d_ref) = (place.dose, place.flat, place.d_ref);
     // Vertex doses (a padding lane reads the node's own dose, never used).
@@ -750,8 +763,8 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
         for &e in &exact {
             best_in = lesser(best_in, e);
         }
-        if best_in < out[c] * out[c] {
-            out[c] = best_in.max(0.0).sqrt();
+        if best_in < best2[c] {
+            best2[c] = best_in;
         }
         // Phase two, faces, in the simplex's hyperplane. Moving from the foot y by z costs
         // z^T Q z in normalised space, Q = I/dt^2 + g g^T/dd^2; reaching the hull of the face
@@ -760,16 +773,16 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
         // den). That is the distance to the face's hull; when the hull's nearest point lies
         // inside the face (every other coordinate b_i - b_j M_ij / M_jj non-negative) it is the
         // face's minimum, otherwise the face's minimum lies on its edges.
-        let best2 = out[c] * out[c];
+        let bound = best2[c];
         let mut open = 0u32;
         for l in 0..LANES {
-            open |= u32::from((exact[l] == f64::INFINITY) & (lb2[l] < best2)) << l;
+            open |= u32::from((exact[l] == f64::INFINITY) & (lb2[l] < bound)) << l;
         }
         while open != 0 {
             let l = open.trailing_zeros() as usize;
             open &= open - 1;
-            let best2 = out[c] * out[c];
-            if lb2[l] >= best2 {
+            let best = best2[c];
+            if lb2[l] >= best {
                 continue;
             }
             counters::count(counters::OPEN);
@@ -779,7 +792,7 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 rate[j] = bary_rate::<K>(&sj, j, l);
                 bary[j] = blk.beta[j][l] - shift[l] * rate[j];
             }
-            let mut m = best2;
+            let mut m = best;
             for j in 0..=K {
                 if bary[j] >= 0.0 {
                     continue;
@@ -814,9 +827,9 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                     m = m.min(face_sq(&w, j, K));
                 }
             }
-            if m < best2 {
+            if m < best {
                 counters::count(counters::IMPROVED);
-                out[c] = m.max(0.0).sqrt();
+                best2[c] = m;
             }
         }
     }
