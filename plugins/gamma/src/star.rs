@@ -35,7 +35,7 @@ struct Block {
     cd2: [f64; LANES],
     /// Flat offset of each vertex's dose from the node's, vertices in Kuhn order (each one
     /// step along one axis from the previous).
-    off: [[isize; LANES]; MAX_VERTS],
+    off: [[i32; LANES]; MAX_VERTS],
     /// Offset of the cell's lower corner from the node along each axis, in nodes.
     cell: [[i32; LANES]; MAX_DIMS],
     /// The node's barycentric coordinates (negative when the node lies outside the simplex).
@@ -89,7 +89,7 @@ struct EdgeBlock {
     /// Squared distance from the node to the nearest cell the edge belongs to, mm^2.
     cd2: [f64; LANES],
     /// Flat offsets of the two end nodes' doses from the node's.
-    off: [[isize; LANES]; 2],
+    off: [[i32; LANES]; 2],
     /// End positions relative to the node, mm.
     pos: [[[f64; LANES]; MAX_DIMS]; 2],
 }
@@ -210,6 +210,11 @@ impl NodeTable {
         let edges: Vec<EdgeBlock> = edge_list.chunks(LANES).map(edge_block).collect();
         let offsets = entries.iter().flat_map(|e| e.off[..=k].to_vec());
         let span = offsets.fold((0, 0), |(lo, hi), o| (o.min(lo), o.max(hi)));
+        // Offsets are stored in 32 bits (a smaller table); a grid too large for that takes the
+        // general search.
+        if i32::try_from(span.0).is_err() || i32::try_from(span.1).is_err() {
+            return None;
+        }
         let mut steps: Vec<Step> = (0..blocks.len())
             .map(|i| (false, i, &blocks[i].ds2[0]))
             .chain((0..edges.len()).map(|i| (true, i, &edges[i].ds2[0])))
@@ -354,7 +359,7 @@ fn edge_block(edges: &[Edge]) -> EdgeBlock {
         b.ds2[l] = e.ds2;
         b.cd2[l] = e.cd2;
         for end in 0..2 {
-            b.off[end][l] = e.off[end];
+            b.off[end][l] = e.off[end] as i32;
             for a in 0..MAX_DIMS {
                 b.pos[end][a][l] = e.pos[end][a];
             }
@@ -383,7 +388,7 @@ fn block(entries: &[Entry]) -> Block {
             b.ih2[a][l] = e.ih2[a];
         }
         for j in 0..MAX_VERTS {
-            b.off[j][l] = e.off[j];
+            b.off[j][l] = e.off[j] as i32;
             b.beta[j][l] = e.beta[j];
             b.inv[j][l] = e.inv[j];
             b.gjj[j][l] = 1.0 / (e.inv[j] * e.inv[j]);
@@ -906,8 +911,8 @@ pub mod counters {
 /// The dose at offset `off` from index `flat` of `window`, which holds every dose the table
 /// reaches; clamped so that the access needs no bounds check (and so no branch).
 #[inline(always)]
-fn at(window: &[f64], flat: usize, off: isize) -> f64 {
-    window[flat.wrapping_add_signed(off).min(window.len() - 1)]
+fn at(window: &[f64], flat: usize, off: i32) -> f64 {
+    window[flat.wrapping_add_signed(off as isize).min(window.len() - 1)]
 }
 
 /// The criteria whose bits are set in `live`, in order.
