@@ -803,11 +803,12 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                     continue;
                 }
                 let m_jj = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] * inv_den[l]);
-                let inv_m = 1.0 / m_jj;
-                let hull = plane2[l] + bary[j] * bary[j] * inv_m;
-                if hull >= m {
+                // hull = plane2 + b_j^2 / M_jj >= m, without the division.
+                if bary[j] * bary[j] >= (m - plane2[l]) * m_jj {
                     continue;
                 }
+                let inv_m = 1.0 / m_jj;
+                let hull = plane2[l] + bary[j] * bary[j] * inv_m;
                 let mut on_face = true;
                 for i in 0..=K {
                     if i != j {
@@ -818,7 +819,7 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 }
                 if on_face {
                     counters::count(counters::FACES);
-                    m = hull;
+                    m = m.min(hull);
                 } else if !INSIDE {
                     // No edges in this walk: the face itself.
                     let pos = &place.pos[l];
