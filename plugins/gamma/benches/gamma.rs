@@ -2,11 +2,12 @@
 //!
 //! Run: `cargo bench -p beamproof-plugin-gamma --bench gamma` (all cases) or add a case name:
 //! `cargo bench -p beamproof-plugin-gamma --bench gamma -- 3d-128`. Cases: 1d-1000, 2d-400,
-//! 3d-128, 3d-128-sweep (five criteria), 3d-128-six (the six of the issue text), 3d-256. Each
-//! prints wall time (best of the repeats), pass rate and points evaluated. Reference: an open field with error-function edges and depth
-//! attenuation on a 1 mm grid, covering 70 % of the grid; evaluated: the same shifted by 1 mm,
-//! scaled by 2 % and with 0.5 % Gaussian noise (seeded). Criteria 3 %/2 mm global, 10 %
-//! threshold.
+//! 3d-128, 3d-128-1mm (1 %/1 mm alone), 3d-128-sweep (five criteria), 3d-128-six (the six of
+//! the issue text), 3d-256. Each prints wall time (best of the repeats), pass rate and points
+//! evaluated; with `--features counters`, also the search's counts per point. Reference: an
+//! open field with error-function edges and depth attenuation on a 1 mm grid, covering 70 % of
+//! the grid; evaluated: the same shifted by 1 mm, scaled by 2 % and with 0.5 % Gaussian noise
+//! (seeded). Criteria 3 %/2 mm global, 10 % threshold.
 
 use std::time::Instant;
 
@@ -180,6 +181,7 @@ fn main() {
             })
     };
     let single = [(3.0, 2.0)];
+    let tight = [(1.0, 1.0)];
     let sweep = [(3.0, 2.0), (4.0, 4.0), (3.0, 3.0), (2.0, 2.0), (1.0, 1.0)];
     // The sweep of the issue text: 4 %/4 mm, 3 %/3 mm, 3 %/2 mm, 2 %/2 mm, 2 %/1 mm, 1 %/1 mm.
     let sweep6 = [
@@ -190,10 +192,11 @@ fn main() {
         (2.0, 1.0),
         (1.0, 1.0),
     ];
-    let cases: [Case; 6] = [
+    let cases: [Case; 7] = [
         ("1d-1000", [1000, 1, 1], &single, 50),
         ("2d-400", [400, 400, 1], &single, 5),
         ("3d-128", [128, 128, 128], &single, 3),
+        ("3d-128-1mm", [128, 128, 128], &tight, 3),
         ("3d-128-sweep", [128, 128, 128], &sweep, 3),
         ("3d-128-six", [128, 128, 128], &sweep6, 3),
         ("3d-256", [256, 256, 256], &single, 2),
