@@ -428,22 +428,39 @@ pub fn search_node<const K: usize>(
     // out lane by lane, takes no edges (an edge's nearest cell may be missing) and solves a
     // face exactly where its hull's nearest point lies outside it.
     let inside = table.covers(field, &node);
+    let at = NodePoint {
+        field,
+        table,
+        pc,
+        node,
+        d_ref,
+    };
     #[cfg(target_arch = "x86_64")]
     if std::arch::is_x86_feature_detected!("avx2") {
         // SAFETY: the processor supports AVX2, checked on the line above.
         return unsafe {
             if inside {
-                walk_avx2::<K, true>(field, table, pc, node, d_ref, out)
+                walk_avx2::<K, true>(&at, out)
             } else {
-                walk_avx2::<K, false>(field, table, pc, node, d_ref, out)
+                walk_avx2::<K, false>(&at, out)
             }
         };
     }
     if inside {
-        walk::<K, true>(field, table, pc, node, d_ref, out)
+        walk::<K, true>(&at, out)
     } else {
-        walk::<K, false>(field, table, pc, node, d_ref, out)
+        walk::<K, false>(&at, out)
     }
+}
+
+/// One reference point of the walk: the evaluated field, the table, the criteria, the node's
+/// local indices and the reference dose.
+struct NodePoint<'a> {
+    field: &'a Field,
+    table: &'a NodeTable,
+    pc: &'a PointCriteria<'a>,
+    node: [usize; MAX_DIMS],
+    d_ref: f64,
 }
 
 /// `walk` compiled for processors with AVX2 (four lanes per vector instruction). The
@@ -451,28 +468,21 @@ pub fn search_node<const K: usize>(
 /// multiply and an add into a fused one), so the results are identical to the last bit.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-fn walk_avx2<const K: usize, const INSIDE: bool>(
-    field: &Field,
-    table: &NodeTable,
-    pc: &PointCriteria,
-    node: [usize; MAX_DIMS],
-    d_ref: f64,
-    out: &mut [f64],
-) -> bool {
-    walk::<K, INSIDE>(field, table, pc, node, d_ref, out)
+fn walk_avx2<const K: usize, const INSIDE: bool>(at: &NodePoint, out: &mut [f64]) -> bool {
+    walk::<K, INSIDE>(at, out)
 }
 
 /// The walk itself (see `search_node`); `INSIDE` when every cell of the table lies inside the
 /// grid.
 #[inline(always)]
-fn walk<const K: usize, const INSIDE: bool>(
-    field: &Field,
-    table: &NodeTable,
-    pc: &PointCriteria,
-    node: [usize; MAX_DIMS],
-    d_ref: f64,
-    out: &mut [f64],
-) -> bool {
+fn walk<const K: usize, const INSIDE: bool>(at: &NodePoint, out: &mut [f64]) -> bool {
+    let NodePoint {
+        field,
+        table,
+        pc,
+        node,
+        d_ref,
+    } = *at;
     counters::count(counters::POINTS);
     let nc = pc.crits.len();
     let strides = field.strides();
@@ -1037,21 +1047,22 @@ mod tests {
                         dt: &dt,
                     };
                     let (mut a, mut b) = ([0.0; 3], [0.0; 3]);
+                    let point = NodePoint {
+                        field: &field,
+                        table: &table,
+                        pc: &pc,
+                        node,
+                        d_ref,
+                    };
                     // SAFETY (both blocks): AVX2 support was checked at the start of the test.
                     let (done_a, done_b) = if inside {
-                        (
-                            walk::<3, true>(&field, &table, &pc, node, d_ref, &mut a),
-                            unsafe {
-                                walk_avx2::<3, true>(&field, &table, &pc, node, d_ref, &mut b)
-                            },
-                        )
+                        (walk::<3, true>(&point, &mut a), unsafe {
+                            walk_avx2::<3, true>(&point, &mut b)
+                        })
                     } else {
-                        (
-                            walk::<3, false>(&field, &table, &pc, node, d_ref, &mut a),
-                            unsafe {
-                                walk_avx2::<3, false>(&field, &table, &pc, node, d_ref, &mut b)
-                            },
-                        )
+                        (walk::<3, false>(&point, &mut a), unsafe {
+                            walk_avx2::<3, false>(&point, &mut b)
+                        })
                     };
                     assert_eq!(done_a, done_b);
                     for c in 0..3 {
