@@ -90,8 +90,12 @@ struct EdgeBlock {
     cd2: [f64; LANES],
     /// Flat offsets of the two end nodes' doses from the node's.
     off: [[i32; LANES]; 2],
-    /// End positions relative to the node, mm.
-    pos: [[[f64; LANES]; MAX_DIMS]; 2],
+    /// Spatial products of the end positions p and q relative to the node, mm^2: p.p,
+    /// p.(q - p) and (q - p).(q - p). With them a criterion's segment distance needs no
+    /// coordinates.
+    pp: [f64; LANES],
+    pu: [f64; LANES],
+    uu: [f64; LANES],
 }
 
 /// The simplices around a node of an evenly spaced grid, sorted by distance from the node.
@@ -353,17 +357,26 @@ fn edge_block(edges: &[Edge]) -> EdgeBlock {
         ds2: [f64::INFINITY; LANES],
         cd2: [f64::INFINITY; LANES],
         off: [[0; LANES]; 2],
-        pos: [[[0.0; LANES]; MAX_DIMS]; 2],
+        pp: [0.0; LANES],
+        pu: [0.0; LANES],
+        // A padding lane: a unit segment, so that no division by zero arises (never used).
+        uu: [1.0; LANES],
     };
     for (l, e) in edges.iter().enumerate() {
         b.ds2[l] = e.ds2;
         b.cd2[l] = e.cd2;
         for end in 0..2 {
             b.off[end][l] = e.off[end] as i32;
-            for a in 0..MAX_DIMS {
-                b.pos[end][a][l] = e.pos[end][a];
-            }
         }
+        let [p, q] = e.pos;
+        let (mut pp, mut pu, mut uu) = (0.0, 0.0, 0.0);
+        for a in 0..MAX_DIMS {
+            let u = q[a] - p[a];
+            pp += p[a] * p[a];
+            pu += p[a] * u;
+            uu += u * u;
+        }
+        (b.pp[l], b.pu[l], b.uu[l]) = (pp, pu, uu);
     }
     b
 }
@@ -538,7 +551,7 @@ fn walk<const K: usize, const INSIDE: bool>(at: &NodePoint, out: &mut [f64]) -> 
         let i = step.block as usize;
         if step.edges {
             if INSIDE {
-                edge_block_search::<K>(&table.edges[i], dose, flat, d_ref, live, &k, &mut best2);
+                edge_block_search(&table.edges[i], dose, flat, d_ref, live, &k, &mut best2);
             }
         } else {
             let at = Placement {
@@ -599,9 +612,11 @@ struct Constants {
 }
 
 /// Exact distances to a block of edges: the segment between the end nodes in normalised
-/// space, nearest point clamped to the segment.
+/// space, nearest point clamped to the segment. With p the first end and u the step to the
+/// second (space over dt, dose over dd), the squared distance of p + t u from the origin is
+/// p.p + 2 t p.u + t^2 u.u, its spatial parts tabulated.
 #[inline(always)]
-fn edge_block_search<const K: usize>(
+fn edge_block_search(
     blk: &EdgeBlock,
     dose: &[f64],
     flat: usize,
@@ -610,55 +625,38 @@ fn edge_block_search<const K: usize>(
     k: &Constants,
     best2: &mut [f64; 16],
 ) {
-    let mut v = [[0.0; LANES]; 2];
-    for end in 0..2 {
-        for l in 0..LANES {
-            v[end][l] = at(dose, flat, blk.off[end][l]) - d_ref;
-        }
+    // Dose of the first end and the dose step to the second.
+    let mut v = [0.0; LANES];
+    let mut e = [0.0; LANES];
+    for l in 0..LANES {
+        v[l] = at(dose, flat, blk.off[0][l]) - d_ref;
+        e[l] = at(dose, flat, blk.off[1][l]) - d_ref - v[l];
+    }
+    let mut ve = [0.0; LANES];
+    let mut ee = [0.0; LANES];
+    let mut vv = [0.0; LANES];
+    for l in 0..LANES {
+        ve[l] = v[l] * e[l];
+        ee[l] = e[l] * e[l];
+        vv[l] = v[l] * v[l];
     }
     for c in criteria(live) {
-        let (idt, idd) = (k.idt[c], k.idd[c]);
-        // Lane by lane, lanes innermost: first end a and direction ab in normalised space
-        // (space over dt, dose over dd), then the nearest point a + t ab with t in [0, 1].
-        let mut a = [[0.0; LANES]; MAX_VERTS];
-        let mut ab = [[0.0; LANES]; MAX_VERTS];
-        for d in 0..K {
-            for l in 0..LANES {
-                a[d][l] = blk.pos[0][d][l] * idt;
-                ab[d][l] = blk.pos[1][d][l] * idt - a[d][l];
-            }
-        }
-        for l in 0..LANES {
-            a[K][l] = v[0][l] * idd;
-            ab[K][l] = v[1][l] * idd - a[K][l];
-        }
-        let mut num = [0.0; LANES];
-        let mut len2 = [0.0; LANES];
-        for d in 0..=K {
-            for l in 0..LANES {
-                num[l] -= a[d][l] * ab[d][l];
-                len2[l] += ab[d][l] * ab[d][l];
-            }
-        }
-        let mut t = [0.0; LANES];
-        for l in 0..LANES {
-            t[l] = greater(lesser(num[l] / len2[l], 1.0), 0.0);
-        }
+        let (idt2, idd2) = (k.idt[c] * k.idt[c], k.idd[c] * k.idd[c]);
         let mut d2 = [0.0; LANES];
-        for d in 0..=K {
-            for l in 0..LANES {
-                let p = a[d][l] + t[l] * ab[d][l];
-                d2[l] += p * p;
-            }
-        }
         for l in 0..LANES {
+            let pu = blk.pu[l] * idt2 + ve[l] * idd2;
+            let uu = blk.uu[l] * idt2 + ee[l] * idd2;
+            let t = greater(lesser(-pu / uu, 1.0), 0.0);
+            let pp = blk.pp[l] * idt2 + vv[l] * idd2;
+            // Never below zero, whatever the rounding.
+            d2[l] = greater(pp + t * (2.0 * pu + t * uu), 0.0);
             if blk.cd2[l] > k.max2[c] {
                 d2[l] = f64::INFINITY;
             }
         }
         let mut best = f64::INFINITY;
-        for &e in &d2 {
-            best = lesser(best, e);
+        for &d in &d2 {
+            best = lesser(best, d);
         }
         if best < best2[c] {
             best2[c] = best;
