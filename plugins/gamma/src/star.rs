@@ -48,6 +48,11 @@ struct Block {
     inv: [[f64; LANES]; MAX_VERTS],
     /// Squared length of each barycentric coordinate's gradient, mm^-2.
     gjj: [[f64; LANES]; MAX_VERTS],
+    /// `beta` times `inv`, mm.
+    beta_inv: [[f64; LANES]; MAX_VERTS],
+    /// The largest `cd2` of the block (infinite with a padding lane): a criterion whose
+    /// squared radius reaches it takes every lane.
+    max_cd2: f64,
 }
 
 /// One step of the walk: a block of edges or of simplices, and its nearest distance (mm^2).
@@ -96,6 +101,8 @@ struct EdgeBlock {
     pp: [f64; LANES],
     pu: [f64; LANES],
     uu: [f64; LANES],
+    /// The largest `cd2` of the block (infinite with a padding lane).
+    max_cd2: f64,
 }
 
 /// The simplices around a node of an evenly spaced grid, sorted by distance from the node.
@@ -361,6 +368,7 @@ fn edge_block(edges: &[Edge]) -> EdgeBlock {
         pu: [0.0; LANES],
         // A padding lane: a unit segment, so that no division by zero arises (never used).
         uu: [1.0; LANES],
+        max_cd2: f64::INFINITY,
     };
     for (l, e) in edges.iter().enumerate() {
         b.ds2[l] = e.ds2;
@@ -378,6 +386,7 @@ fn edge_block(edges: &[Edge]) -> EdgeBlock {
         }
         (b.pp[l], b.pu[l], b.uu[l]) = (pp, pu, uu);
     }
+    b.max_cd2 = b.cd2.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     b
 }
 
@@ -391,6 +400,8 @@ fn block(entries: &[Entry]) -> Block {
         ih2: [[0.0; LANES]; MAX_DIMS],
         inv: [[0.0; LANES]; MAX_VERTS],
         gjj: [[0.0; LANES]; MAX_VERTS],
+        beta_inv: [[0.0; LANES]; MAX_VERTS],
+        max_cd2: f64::INFINITY,
     };
     for (l, e) in entries.iter().enumerate() {
         b.ds2[l] = e.ds2;
@@ -405,8 +416,10 @@ fn block(entries: &[Entry]) -> Block {
             b.beta[j][l] = e.beta[j];
             b.inv[j][l] = e.inv[j];
             b.gjj[j][l] = 1.0 / (e.inv[j] * e.inv[j]);
+            b.beta_inv[j][l] = e.beta[j] * e.inv[j];
         }
     }
+    b.max_cd2 = b.cd2.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     b
 }
 
@@ -650,8 +663,12 @@ fn edge_block_search(
             let pp = blk.pp[l] * idt2 + vv[l] * idd2;
             // Never below zero, whatever the rounding.
             d2[l] = greater(pp + t * (2.0 * pu + t * uu), 0.0);
-            if blk.cd2[l] > k.max2[c] {
-                d2[l] = f64::INFINITY;
+        }
+        if k.max2[c] < blk.max_cd2 {
+            for l in 0..LANES {
+                if blk.cd2[l] > k.max2[c] {
+                    d2[l] = f64::INFINITY;
+                }
             }
         }
         let mut best = f64::INFINITY;
@@ -712,7 +729,6 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
     // g.grad(b_0) = -s_0, g.grad(b_j) = s_(j-1) - s_j, g.grad(b_k) = s_(k-1).
     let mut sj = [[0.0; LANES]; MAX_DIMS];
     let mut g_sq = [0.0; LANES];
-    let mut gap = [0.0; LANES];
     for j in 0..K {
         for l in 0..LANES {
             let e = v[j + 1][l] - v[j][l];
@@ -720,8 +736,20 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
             g_sq[l] += e * sj[j][l];
         }
     }
+    let mut gap2 = [0.0; LANES];
     for l in 0..LANES {
-        gap[l] = greater(greater(lo[l] - d_ref, d_ref - hi[l]), 0.0);
+        let gap = greater(greater(lo[l] - d_ref, d_ref - hi[l]), 0.0);
+        gap2[l] = gap * gap;
+    }
+    // The rate of each barycentric coordinate along the gradient, and that rate times the
+    // coordinate's reciprocal gradient length (the same for every criterion).
+    let mut rate = [[0.0; LANES]; MAX_VERTS];
+    let mut rate_inv = [[0.0; LANES]; MAX_VERTS];
+    for j in 0..=K {
+        for l in 0..LANES {
+            rate[j][l] = bary_rate::<K>(&sj, j, l);
+            rate_inv[j][l] = rate[j][l] * blk.inv[j][l];
+        }
     }
     for c in criteria(live) {
         // Phase one: the hyperplane distance, the barycentric coordinates of its foot, the
@@ -736,37 +764,37 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
             plane2[l] = delta[l] * delta[l] * inv_den[l];
             shift[l] = dt2c * delta[l] * inv_den[l];
         }
-        // Largest violation of a barycentric coordinate, and the spatial distance it implies
-        // (the foot lies at least that far from the simplex).
-        let mut neg = [0.0; LANES];
+        // The spatial distance implied by the largest violation of a barycentric coordinate
+        // b_j = beta_j - shift rate_j (the foot lies at least that far from the simplex);
+        // positive exactly when the foot lies outside.
         let mut sl = [0.0; LANES];
         for j in 0..=K {
             for l in 0..LANES {
-                let b = blk.beta[j][l] - shift[l] * bary_rate::<K>(&sj, j, l);
-                neg[l] = greater(neg[l], -b);
-                sl[l] = greater(sl[l], -b * blk.inv[j][l]);
+                sl[l] = greater(sl[l], shift[l] * rate_inv[j][l] - blk.beta_inv[j][l]);
             }
         }
         // Padding lanes and simplices beyond this criterion's search radius count as
         // infinitely far.
+        let mut far = missing;
+        if k.max2[c] < blk.max_cd2 {
+            for l in 0..LANES {
+                if blk.cd2[l] > k.max2[c] {
+                    far[l] = f64::INFINITY;
+                }
+            }
+        }
         let mut lb2 = [0.0; LANES];
         let mut exact = [0.0; LANES];
         for l in 0..LANES {
-            let far = missing[l]
-                + if blk.cd2[l] <= k.max2[c] {
-                    0.0
-                } else {
-                    f64::INFINITY
-                };
             // Pythagoras in the hyperplane: the in-plane distance from the foot to the simplex
             // is at least the spatial one over dt.
-            lb2[l] = far
+            lb2[l] = far[l]
                 + greater(
-                    blk.ds2[l] * idt2 + gap[l] * gap[l] * idd2,
+                    blk.ds2[l] * idt2 + gap2[l] * idd2,
                     plane2[l] + sl[l] * sl[l] * idt2,
                 );
-            exact[l] = far
-                + if neg[l] > 0.0 {
+            exact[l] = far[l]
+                + if sl[l] > 0.0 {
                     f64::INFINITY
                 } else {
                     plane2[l]
@@ -800,17 +828,24 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
             }
             counters::count(counters::OPEN);
             let mut bary = [0.0; MAX_VERTS];
-            let mut rate = [0.0; MAX_VERTS];
+            let mut rate_l = [0.0; MAX_VERTS];
             for j in 0..=K {
-                rate[j] = bary_rate::<K>(&sj, j, l);
-                bary[j] = blk.beta[j][l] - shift[l] * rate[j];
+                rate_l[j] = rate[j][l];
+                bary[j] = blk.beta[j][l] - shift[l] * rate_l[j];
             }
-            let mut m = best;
+            // Should rounding leave every coordinate non-negative here although the vector
+            // test found the foot outside, the foot is on the simplex: its value is exact.
+            let mut m = if bary.iter().take(K + 1).all(|&b| b >= 0.0) {
+                lesser(best, plane2[l])
+            } else {
+                best
+            };
             for j in 0..=K {
                 if bary[j] >= 0.0 {
                     continue;
                 }
-                let m_jj = dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate[j] * rate[j] * inv_den[l]);
+                let m_jj =
+                    dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate_l[j] * rate_l[j] * inv_den[l]);
                 // hull = plane2 + b_j^2 / M_jj >= m, without the division.
                 if bary[j] * bary[j] >= (m - plane2[l]) * m_jj {
                     continue;
@@ -821,7 +856,7 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 for i in 0..=K {
                     if i != j {
                         let m_ij = dt2c
-                            * (gram::<K>(blk, l, i, j) - dt2c * rate[i] * rate[j] * inv_den[l]);
+                            * (gram::<K>(blk, l, i, j) - dt2c * rate_l[i] * rate_l[j] * inv_den[l]);
                         on_face &= bary[i] - bary[j] * m_ij * inv_m >= 0.0;
                     }
                 }
