@@ -833,23 +833,20 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 rate_l[j] = rate[j][l];
                 bary[j] = blk.beta[j][l] - shift[l] * rate_l[j];
             }
-            // Should rounding leave every coordinate non-negative here although the vector
-            // test found the foot outside, the foot is on the simplex: its value is exact.
-            let mut m = if bary.iter().take(K + 1).all(|&b| b >= 0.0) {
-                lesser(best, plane2[l])
-            } else {
-                best
-            };
+            let mut m = best;
+            let mut outside = false;
             for j in 0..=K {
                 if bary[j] >= 0.0 {
                     continue;
                 }
+                outside = true;
                 let m_jj =
                     dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate_l[j] * rate_l[j] * inv_den[l]);
                 // hull = plane2 + b_j^2 / M_jj >= m, without the division.
                 if bary[j] * bary[j] >= (m - plane2[l]) * m_jj {
                     continue;
                 }
+                counters::count(counters::HULLS);
                 let inv_m = 1.0 / m_jj;
                 let hull = plane2[l] + bary[j] * bary[j] * inv_m;
                 let mut on_face = true;
@@ -875,6 +872,11 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                     }
                     m = m.min(face_sq(&w, j, K));
                 }
+            }
+            // Should rounding leave every coordinate non-negative here although the vector
+            // test found the foot outside, the foot is on the simplex: its value is exact.
+            if !outside {
+                m = lesser(m, plane2[l]);
             }
             if m < best {
                 counters::count(counters::IMPROVED);
@@ -902,17 +904,20 @@ pub mod counters {
     pub const LEFT: usize = 4;
     /// Simplices whose faces needed a look after the vector bounds.
     pub const OPEN: usize = 5;
-    const NAMES: [&str; 6] = [
+    /// Face hulls nearer than the best value (their faces are then checked).
+    pub const HULLS: usize = 6;
+    const NAMES: [&str; 7] = [
         "points",
         "blocks",
         "faces",
         "improved",
         "left table",
         "open",
+        "hulls",
     ];
 
     #[cfg(feature = "counters")]
-    static COUNTS: [AtomicU64; 6] = [const { AtomicU64::new(0) }; 6];
+    static COUNTS: [AtomicU64; 7] = [const { AtomicU64::new(0) }; 7];
 
     /// Count one event.
     #[inline(always)]
