@@ -833,6 +833,15 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 rate_l[j] = rate[j][l];
                 bary[j] = blk.beta[j][l] - shift[l] * rate_l[j];
             }
+            if INSIDE {
+                let m =
+                    faces_inside::<K>(blk, l, &bary, &rate_l, dt2c, inv_den[l], plane2[l], best);
+                if m < best {
+                    counters::count(counters::IMPROVED);
+                    best2[c] = m;
+                }
+                continue;
+            }
             let mut m = best;
             let mut outside = false;
             for j in 0..=K {
@@ -884,6 +893,52 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
             }
         }
     }
+}
+
+/// The smaller of `best` and the face values of lane `l`'s simplex whose foot lies outside it,
+/// computed for every face at once without branches (the walk inside the grid, where the edges
+/// cover every face whose hull's nearest point lies outside the face): face j counts when
+/// b_j < 0 and the hull's nearest point lies inside the face, at its hull distance
+/// plane2 + b_j^2 / M_jj (see `simplex_block_search`). Should rounding leave every coordinate
+/// non-negative, the foot lies on the simplex and `plane2` is its value.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn faces_inside<const K: usize>(
+    blk: &Block,
+    l: usize,
+    bary: &[f64; MAX_VERTS],
+    rate: &[f64; MAX_VERTS],
+    dt2c: f64,
+    inv_den: f64,
+    plane2: f64,
+    best: f64,
+) -> f64 {
+    let q = dt2c * inv_den;
+    let mut ratio = [0.0; MAX_VERTS];
+    let mut hull = [0.0; MAX_VERTS];
+    let mut outside = false;
+    for j in 0..=K {
+        let m_jj = dt2c * (gram::<K>(blk, l, j, j) - q * rate[j] * rate[j]);
+        let inv_m = 1.0 / m_jj;
+        ratio[j] = bary[j] * inv_m;
+        hull[j] = plane2 + bary[j] * ratio[j];
+        outside |= bary[j] < 0.0;
+    }
+    let mut m = if outside { best } else { lesser(best, plane2) };
+    for j in 0..=K {
+        let mut on_face = bary[j] < 0.0;
+        for i in 0..=K {
+            if i != j {
+                let m_ij = dt2c * (gram::<K>(blk, l, i, j) - q * rate[i] * rate[j]);
+                on_face &= bary[i] - ratio[j] * m_ij >= 0.0;
+            }
+        }
+        if on_face {
+            counters::count(counters::FACES);
+            m = lesser(m, hull[j]);
+        }
+    }
+    m
 }
 
 /// Search counters per point for the benchmark (feature `counters`): how far the walk goes
