@@ -642,8 +642,8 @@ fn edge_block_search(
     let mut v = [0.0; LANES];
     let mut e = [0.0; LANES];
     for l in 0..LANES {
-        v[l] = at(dose, flat, blk.off[0][l]) - d_ref;
-        e[l] = at(dose, flat, blk.off[1][l]) - d_ref - v[l];
+        v[l] = at::<true>(dose, flat, blk.off[0][l]) - d_ref;
+        e[l] = at::<true>(dose, flat, blk.off[1][l]) - d_ref - v[l];
     }
     let mut ve = [0.0; LANES];
     let mut ee = [0.0; LANES];
@@ -696,7 +696,7 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
     let mut v = [[0.0; LANES]; MAX_VERTS];
     for j in 0..=K {
         for l in 0..LANES {
-            v[j][l] = at(dose, flat, blk.off[j][l]);
+            v[j][l] = at::<INSIDE>(dose, flat, blk.off[j][l]);
         }
     }
     // Lanes whose cell lies beyond the grid's faces count as infinitely far.
@@ -1012,11 +1012,22 @@ pub mod counters {
     }
 }
 
-/// The dose at offset `off` from index `flat` of `window`, which holds every dose the table
-/// reaches; clamped so that the access needs no bounds check (and so no branch).
+/// The dose at offset `off` from index `flat` of `window`. `INSIDE`: `window` holds exactly
+/// the doses the table reaches from `flat` (`NodeTable::span`), so every table offset lies in
+/// it and the access needs no check. Otherwise the index is clamped (a lane of a missing cell
+/// reads some dose, never used), which needs no branch either.
 #[inline(always)]
-fn at(window: &[f64], flat: usize, off: i32) -> f64 {
-    window[flat.wrapping_add_signed(off as isize).min(window.len() - 1)]
+fn at<const INSIDE: bool>(window: &[f64], flat: usize, off: i32) -> f64 {
+    let i = flat.wrapping_add_signed(off as isize);
+    if INSIDE {
+        debug_assert!(i < window.len());
+        // SAFETY: the walk inside the grid cuts `window` to the table's span around `flat`
+        // (see `walk`), and every vertex and edge offset of the table lies within that span
+        // by construction (`NodeTable::new`), so `i < window.len()`.
+        unsafe { *window.get_unchecked(i) }
+    } else {
+        window[i.min(window.len() - 1)]
+    }
 }
 
 /// The criteria whose bits are set in `live`, in order.
