@@ -101,12 +101,9 @@ fn volumes(dims: [usize; 3]) -> (Grid, Grid) {
     )
 }
 
-fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
-    let (reference, evaluated) = volumes(dims);
-    let field = Field::from_grid(&evaluated).expect("field");
-    let norm = reference.dose.iter().copied().fold(0.0, f64::max);
-    let crits: Vec<Criterion> = crit_list
-        .iter()
+/// Global criteria (dose %, DTA mm) normalised to `norm`, search radius three DTAs.
+fn criteria(list: &[(f64, f64)], norm: f64) -> Vec<Criterion> {
+    list.iter()
         .map(|&(d, t)| Criterion {
             dose_fraction: d / 100.0,
             dta_mm: t,
@@ -114,27 +111,52 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
             norm_dose: norm,
             max_search_mm: 3.0 * t,
         })
-        .collect();
+        .collect()
+}
+
+/// One case; with `baseline`, each repeat also times those criteria just before, and the
+/// ratio of the two best times is printed (the machine's drift then cancels).
+fn run(
+    name: &str,
+    dims: [usize; 3],
+    crit_list: &[(f64, f64)],
+    repeats: usize,
+    baseline: Option<&[(f64, f64)]>,
+) {
+    let (reference, evaluated) = volumes(dims);
+    let field = Field::from_grid(&evaluated).expect("field");
+    let norm = reference.dose.iter().copied().fold(0.0, f64::max);
+    let crits = criteria(crit_list, norm);
+    let base = baseline.map(|b| criteria(b, norm));
     let thresholds = vec![0.1 * norm; crits.len()];
     let points = Positions::Grid {
         x: reference.x_mm.clone(),
         y: reference.y_mm.clone(),
         z: reference.z_mm.clone(),
     };
-    let mut best = f64::INFINITY;
-    let mut out = Vec::new();
-    counters::reset();
-    for _ in 0..repeats {
+    let timed = |crits: &[Criterion]| {
         let t = Instant::now();
-        out = compute(
+        let out = compute(
             &field,
             &points,
             &reference.dose,
-            &crits,
-            &thresholds,
+            crits,
+            &thresholds[..crits.len()],
             Method::Exact,
         );
-        best = best.min(t.elapsed().as_secs_f64());
+        (out, t.elapsed().as_secs_f64())
+    };
+    let mut best = f64::INFINITY;
+    let mut best_base = f64::INFINITY;
+    let mut out = Vec::new();
+    for _ in 0..repeats {
+        if let Some(b) = &base {
+            best_base = best_base.min(timed(b).1);
+        }
+        counters::reset();
+        let (o, t) = timed(&crits);
+        out = o;
+        best = best.min(t);
     }
     let s = stats::summarise(out.iter().step_by(crits.len()).copied());
     println!(
@@ -148,13 +170,30 @@ fn run(name: &str, dims: [usize; 3], crit_list: &[(f64, f64)], repeats: usize) {
         crits.len(),
         rayon::current_num_threads()
     );
+    if let Some(b) = baseline {
+        println!(
+            "{:>14}  {:.2} times {}%/{}mm ({:.3} ms), interleaved, best of {repeats} each",
+            "",
+            best / best_base,
+            b[0].0,
+            b[0].1,
+            best_base * 1e3
+        );
+    }
     if let Some(line) = counters::summary() {
         println!("{:>14}  {line}", "");
     }
 }
 
-/// Name, grid size, criteria (dose %, DTA mm) and repeats of one benchmark case.
-type Case<'a> = (&'a str, [usize; 3], &'a [(f64, f64)], usize);
+/// Name, grid size, criteria (dose %, DTA mm), repeats and the criteria timed alongside for a
+/// ratio, of one benchmark case.
+type Case<'a> = (
+    &'a str,
+    [usize; 3],
+    &'a [(f64, f64)],
+    usize,
+    Option<&'a [(f64, f64)]>,
+);
 
 fn main() {
     let filter: Vec<String> = std::env::args()
@@ -192,18 +231,20 @@ fn main() {
         (2.0, 1.0),
         (1.0, 1.0),
     ];
+    // The criteria sets that several criteria cost are also timed against 3 %/2 mm alone,
+    // interleaved, so that the ratio does not depend on the machine's drift.
     let cases: [Case; 7] = [
-        ("1d-1000", [1000, 1, 1], &single, 50),
-        ("2d-400", [400, 400, 1], &single, 5),
-        ("3d-128", [128, 128, 128], &single, 3),
-        ("3d-128-1mm", [128, 128, 128], &tight, 3),
-        ("3d-128-sweep", [128, 128, 128], &sweep, 3),
-        ("3d-128-six", [128, 128, 128], &sweep6, 3),
-        ("3d-256", [256, 256, 256], &single, 2),
+        ("1d-1000", [1000, 1, 1], &single, 50, None),
+        ("2d-400", [400, 400, 1], &single, 5, None),
+        ("3d-128", [128, 128, 128], &single, 3, None),
+        ("3d-128-1mm", [128, 128, 128], &tight, 5, Some(&single)),
+        ("3d-128-sweep", [128, 128, 128], &sweep, 5, Some(&single)),
+        ("3d-128-six", [128, 128, 128], &sweep6, 5, Some(&single)),
+        ("3d-256", [256, 256, 256], &single, 2, None),
     ];
-    for (name, dims, crits, repeats) in cases {
+    for (name, dims, crits, repeats, baseline) in cases {
         if want(name) {
-            run(name, dims, crits, repeats);
+            run(name, dims, crits, repeats, baseline);
         }
     }
 }
