@@ -2,13 +2,13 @@
 //! the usual case when both distributions share one grid.
 //!
 //! Around every node of such a grid the simplices of the Kuhn triangulation (Ju et al, Med Phys
-//! 2008;35:879-887) have the same shape: their distance from the node, the node's barycentric
-//! coordinates and the gradients of the barycentric coordinates do not depend on the node. They
-//! are tabulated once, sorted by distance from the node, in blocks of eight simplices, so that
-//! the per-point work is a walk along the table with the bounds of the general search
-//! (`search::gamma_at`) evaluated eight simplices at a time: it stops once distance alone
-//! reaches the best value found (Wendling et al, Med Phys 2007;34:1647-1654), and a simplex
-//! needs an exact distance only when neither its dose range nor its hyperplane rules it out.
+//! 2008;35:879-887) and their edges have the same shape: their distance from the node, the
+//! node's barycentric coordinates and the gradients of the barycentric coordinates do not
+//! depend on the node. They are tabulated once, sorted by distance from the node, in blocks of
+//! four (one AVX2 vector of doubles), so that the per-point work is a walk along the table with
+//! bounds evaluated four simplices at a time: it stops once distance alone reaches the best
+//! value found (Wendling et al, Med Phys 2007;34:1647-1654), and a simplex is looked at on its
+//! own only when neither its dose range nor its hyperplane rules it out.
 //!
 //! Every simplex of every cell whose box lies within the table's radius is in the table, so a
 //! point whose search radius stays inside it is finished exactly as the general search would
@@ -842,6 +842,8 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 }
                 continue;
             }
+            // Near the grid's faces: face by face, solving a face exactly where its hull's
+            // nearest point lies outside it.
             let mut m = best;
             let mut outside = false;
             for j in 0..=K {
@@ -869,8 +871,8 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 if on_face {
                     counters::count(counters::FACES);
                     m = m.min(hull);
-                } else if !INSIDE {
-                    // No edges in this walk: the face itself.
+                } else {
+                    // No edges in the walk near the grid's faces: the face itself.
                     let pos = &place.pos[l];
                     let mut w = [[0.0; 4]; 4];
                     for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
@@ -926,6 +928,9 @@ fn faces_inside<const K: usize>(
     }
     let mut m = if outside { best } else { lesser(best, plane2) };
     for j in 0..=K {
+        if bary[j] < 0.0 && hull[j] < best {
+            counters::count(counters::HULLS);
+        }
         let mut on_face = bary[j] < 0.0;
         for i in 0..=K {
             if i != j {
@@ -949,7 +954,7 @@ pub mod counters {
 
     /// Points searched with the table.
     pub const POINTS: usize = 0;
-    /// Blocks of eight simplices examined.
+    /// Blocks of four edges or simplices examined.
     pub const BLOCKS: usize = 1;
     /// Distances to faces computed.
     pub const FACES: usize = 2;
