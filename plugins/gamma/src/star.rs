@@ -834,8 +834,15 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 bary[j] = blk.beta[j][l] - shift[l] * rate_l[j];
             }
             if INSIDE {
-                let m =
-                    faces_inside::<K>(blk, l, &bary, &rate_l, dt2c, inv_den[l], plane2[l], best);
+                let lane = OpenLane {
+                    l,
+                    bary: &bary,
+                    rate: &rate_l,
+                    dt2c,
+                    inv_den: inv_den[l],
+                    plane2: plane2[l],
+                };
+                let m = faces_inside::<K>(blk, &lane, best);
                 if m < best {
                     counters::count(counters::IMPROVED);
                     best2[c] = m;
@@ -897,6 +904,17 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
     }
 }
 
+/// One open simplex of a block for one criterion: its lane, the barycentric coordinates of its
+/// foot and their rates along the gradient, dt^2, 1/den and the hyperplane distance.
+struct OpenLane<'a> {
+    l: usize,
+    bary: &'a [f64; MAX_VERTS],
+    rate: &'a [f64; MAX_VERTS],
+    dt2c: f64,
+    inv_den: f64,
+    plane2: f64,
+}
+
 /// The smaller of `best` and the face values of lane `l`'s simplex whose foot lies outside it,
 /// computed for every face at once without branches (the walk inside the grid, where the edges
 /// cover every face whose hull's nearest point lies outside the face): face j counts when
@@ -904,17 +922,15 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
 /// plane2 + b_j^2 / M_jj (see `simplex_block_search`). Should rounding leave every coordinate
 /// non-negative, the foot lies on the simplex and `plane2` is its value.
 #[inline(always)]
-#[allow(clippy::too_many_arguments)]
-fn faces_inside<const K: usize>(
-    blk: &Block,
-    l: usize,
-    bary: &[f64; MAX_VERTS],
-    rate: &[f64; MAX_VERTS],
-    dt2c: f64,
-    inv_den: f64,
-    plane2: f64,
-    best: f64,
-) -> f64 {
+fn faces_inside<const K: usize>(blk: &Block, lane: &OpenLane, best: f64) -> f64 {
+    let OpenLane {
+        l,
+        bary,
+        rate,
+        dt2c,
+        inv_den,
+        plane2,
+    } = *lane;
     let q = dt2c * inv_den;
     let mut ratio = [0.0; MAX_VERTS];
     let mut hull = [0.0; MAX_VERTS];
