@@ -833,68 +833,32 @@ fn simplex_block_search<const K: usize, const INSIDE: bool>(
                 rate_l[j] = rate[j][l];
                 bary[j] = blk.beta[j][l] - shift[l] * rate_l[j];
             }
-            if INSIDE {
-                let lane = OpenLane {
-                    l,
-                    bary: &bary,
-                    rate: &rate_l,
-                    dt2c,
-                    inv_den: inv_den[l],
-                    plane2: plane2[l],
-                };
-                let m = faces_inside::<K>(blk, &lane, best);
-                if m < best {
-                    counters::count(counters::IMPROVED);
-                    best2[c] = m;
-                }
-                continue;
-            }
-            // Near the grid's faces: face by face, solving a face exactly where its hull's
-            // nearest point lies outside it.
-            let mut m = best;
-            let mut outside = false;
-            for j in 0..=K {
-                if bary[j] >= 0.0 {
-                    continue;
-                }
-                outside = true;
-                let m_jj =
-                    dt2c * (gram::<K>(blk, l, j, j) - dt2c * rate_l[j] * rate_l[j] * inv_den[l]);
-                // hull = plane2 + b_j^2 / M_jj >= m, without the division.
-                if bary[j] * bary[j] >= (m - plane2[l]) * m_jj {
-                    continue;
-                }
-                counters::count(counters::HULLS);
-                let inv_m = 1.0 / m_jj;
-                let hull = plane2[l] + bary[j] * bary[j] * inv_m;
-                let mut on_face = true;
-                for i in 0..=K {
-                    if i != j {
-                        let m_ij = dt2c
-                            * (gram::<K>(blk, l, i, j) - dt2c * rate_l[i] * rate_l[j] * inv_den[l]);
-                        on_face &= bary[i] - bary[j] * m_ij * inv_m >= 0.0;
-                    }
-                }
-                if on_face {
-                    counters::count(counters::FACES);
-                    m = m.min(hull);
-                } else {
-                    // No edges in the walk near the grid's faces: the face itself.
-                    let pos = &place.pos[l];
-                    let mut w = [[0.0; 4]; 4];
-                    for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
-                        for a in 0..K {
-                            wi[a] = pos[i][a] * k.idt[c];
+            let lane = OpenLane {
+                l,
+                bary: &bary,
+                rate: &rate_l,
+                dt2c,
+                inv_den: inv_den[l],
+                plane2: plane2[l],
+            };
+            let (mut m, faces) = face_values::<K, INSIDE>(blk, &lane, best);
+            if !INSIDE {
+                // No edges in the walk near the grid's faces: a violated face whose hull's
+                // nearest point lies outside it, and whose hull is nearer than the best value,
+                // is solved exactly.
+                for j in 0..=K {
+                    if bary[j] < 0.0 && !faces.on_face[j] && faces.hull[j] < m {
+                        let pos = &place.pos[l];
+                        let mut w = [[0.0; 4]; 4];
+                        for (i, wi) in w.iter_mut().enumerate().take(K + 1) {
+                            for a in 0..K {
+                                wi[a] = pos[i][a] * k.idt[c];
+                            }
+                            wi[K] = (v[i][l] - d_ref) * k.idd[c];
                         }
-                        wi[K] = (v[i][l] - d_ref) * k.idd[c];
+                        m = m.min(face_sq(&w, j, K));
                     }
-                    m = m.min(face_sq(&w, j, K));
                 }
-            }
-            // Should rounding leave every coordinate non-negative here although the vector
-            // test found the foot outside, the foot is on the simplex: its value is exact.
-            if !outside {
-                m = lesser(m, plane2[l]);
             }
             if m < best {
                 counters::count(counters::IMPROVED);
@@ -915,14 +879,26 @@ struct OpenLane<'a> {
     plane2: f64,
 }
 
-/// The smaller of `best` and the face values of lane `l`'s simplex whose foot lies outside it,
-/// computed for every face at once without branches (the walk inside the grid, where the edges
-/// cover every face whose hull's nearest point lies outside the face): face j counts when
-/// b_j < 0 and the hull's nearest point lies inside the face, at its hull distance
-/// plane2 + b_j^2 / M_jj (see `simplex_block_search`). Should rounding leave every coordinate
-/// non-negative, the foot lies on the simplex and `plane2` is its value.
+/// Each face's hull distance plane2 + b_j^2 / M_jj, and whether the hull's nearest point lies
+/// inside the face (b_j < 0 and b_i - b_j M_ij / M_jj >= 0 for every other i).
+struct Faces {
+    hull: [f64; MAX_VERTS],
+    on_face: [bool; MAX_VERTS],
+}
+
+/// The smaller of `best` and the face values of an open simplex (foot outside it), computed for
+/// every face at once without branches: a face counts when the hull's nearest point lies inside
+/// it, at its hull distance (see `simplex_block_search`). Inside the grid the edges cover every
+/// other face; near the grid's faces (`!INSIDE`) the caller solves those from the returned
+/// `Faces`, which the walk inside the grid leaves unfilled. Should
+/// rounding leave every coordinate non-negative, the foot lies on the simplex and `plane2` is
+/// its value.
 #[inline(always)]
-fn faces_inside<const K: usize>(blk: &Block, lane: &OpenLane, best: f64) -> f64 {
+fn face_values<const K: usize, const INSIDE: bool>(
+    blk: &Block,
+    lane: &OpenLane,
+    best: f64,
+) -> (f64, Faces) {
     let OpenLane {
         l,
         bary,
@@ -934,6 +910,11 @@ fn faces_inside<const K: usize>(blk: &Block, lane: &OpenLane, best: f64) -> f64 
     let q = dt2c * inv_den;
     let mut ratio = [0.0; MAX_VERTS];
     let mut hull = [0.0; MAX_VERTS];
+    // Filled only for the walk near the grid's faces, which needs them.
+    let mut f = Faces {
+        hull: [f64::INFINITY; MAX_VERTS],
+        on_face: [false; MAX_VERTS],
+    };
     let mut outside = false;
     for j in 0..=K {
         let m_jj = dt2c * (gram::<K>(blk, l, j, j) - q * rate[j] * rate[j]);
@@ -958,8 +939,12 @@ fn faces_inside<const K: usize>(blk: &Block, lane: &OpenLane, best: f64) -> f64 
             counters::count(counters::FACES);
             m = lesser(m, hull[j]);
         }
+        if !INSIDE {
+            f.hull[j] = hull[j];
+            f.on_face[j] = on_face;
+        }
     }
-    m
+    (m, f)
 }
 
 /// Search counters per point for the benchmark (feature `counters`): how far the walk goes
