@@ -7,7 +7,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 
 use beamproof_api::{
-    AnalysisInput, CriteriaSet, GammaCriterion, Normalisation, TestInfo, TestKind,
+    AnalysisInput, AnalysisOutput, CriteriaSet, GammaCriterion, Normalisation, TestInfo, TestKind,
 };
 use beamproof_engine::readers::read_dataset;
 
@@ -17,14 +17,15 @@ fn fixture(name: &str) -> std::path::PathBuf {
     root().join("tests/fixtures/gamma").join(name)
 }
 
+/// The gamma analysis of two fixture files for the criteria (dose %, DTA mm), global, 10 %
+/// threshold, with the plugin's default statistics.
 fn run(
     reference: &Path,
     evaluated: &Path,
-    dose_percent: f64,
-    dta_mm: f64,
+    criteria: &[(f64, f64)],
     method: &str,
     step_dta: f64,
-) -> beamproof_plugin_gamma::PointGammas {
+) -> (AnalysisOutput, beamproof_plugin_gamma::PointGammas) {
     let read = |p: &Path| {
         read_dataset(p, &p.display().to_string(), None)
             .unwrap_or_else(|d| panic!("{}", d.render(None)))
@@ -47,15 +48,18 @@ fn run(
         criteria: CriteriaSet {
             name: "c".into(),
             dose_difference_percent: None,
-            gamma: vec![GammaCriterion {
-                dose_percent,
-                dta_mm,
-                threshold_percent: 10.0,
-                normalisation: Normalisation::Global,
-                normalisation_dose_gy: None,
-                tolerance_pass_percent: 95.0,
-                action_pass_percent: 90.0,
-            }],
+            gamma: criteria
+                .iter()
+                .map(|&(dose_percent, dta_mm)| GammaCriterion {
+                    dose_percent,
+                    dta_mm,
+                    threshold_percent: 10.0,
+                    normalisation: Normalisation::Global,
+                    normalisation_dose_gy: None,
+                    tolerance_pass_percent: 95.0,
+                    action_pass_percent: 90.0,
+                })
+                .collect(),
             metrics: BTreeMap::new(),
         },
         measured: Some(read(reference)),
@@ -63,9 +67,15 @@ fn run(
         mu: None,
         film: None,
     };
-    beamproof_plugin_gamma::analyse_with_points(&input)
-        .expect("gamma runs")
-        .1
+    beamproof_plugin_gamma::analyse_with_points(&input).expect("gamma runs")
+}
+
+/// The numpy cases of `case` in expected.json.
+fn expected(case: &str) -> Vec<serde_json::Value> {
+    let all: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(fixture("expected.json")).expect("expected"))
+            .expect("json");
+    all[case].as_array().expect("cases").clone()
 }
 
 fn compare(
@@ -76,19 +86,15 @@ fn compare(
     step_dta: f64,
     per_point_tol: f64,
 ) {
-    let expected: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(fixture("expected.json")).expect("expected"))
-            .expect("json");
-    for c in expected[case].as_array().expect("cases") {
+    for c in expected(case) {
         let (dp, dta) = (
             c["dose_percent"].as_f64().expect("dose"),
             c["dta_mm"].as_f64().expect("dta"),
         );
-        let got = run(
+        let (_, got) = run(
             &fixture(reference),
             &fixture(evaluated),
-            dp,
-            dta,
+            &[(dp, dta)],
             method,
             step_dta,
         );
@@ -159,4 +165,42 @@ fn plane_node_search_matches_numpy_on_another_grid() {
         0.1,
         1e-9,
     );
+}
+
+#[test]
+fn one_sweep_gives_the_numpy_pass_rates_of_every_criterion() {
+    // All criteria of the profile case in one analysis with the default statistics: the first
+    // (3 %/2 mm) searched to its minima, 2 %/2 mm and 1 %/1 mm (one proportional search) only
+    // to each point's pass or fail. Every pass rate must be numpy's (within 0.1 pp, less than
+    // one of the 109 points), and only the first criterion's statistics are shown.
+    let cases = expected("profile");
+    let criteria: Vec<(f64, f64)> = cases
+        .iter()
+        .map(|c| {
+            (
+                c["dose_percent"].as_f64().expect("dose"),
+                c["dta_mm"].as_f64().expect("dta"),
+            )
+        })
+        .collect();
+    let (out, _) = run(
+        &fixture("profile_reference.csv"),
+        &fixture("profile_evaluated.csv"),
+        &criteria,
+        "exact",
+        0.1,
+    );
+    for (c, &(dp, dta)) in cases.iter().zip(&criteria) {
+        let id = format!("pass-rate:{dp}%/{dta}mm-global");
+        let got = out
+            .metrics
+            .iter()
+            .find(|m| m.id == id)
+            .unwrap_or_else(|| panic!("no metric {id}"))
+            .value;
+        let want = c["pass_rate_percent"].as_f64().expect("rate");
+        assert!((got - want).abs() <= 0.1, "{id}: {got} vs numpy {want}");
+    }
+    let shown: Vec<bool> = out.tables[0].rows.iter().map(|r| r[8] != "—").collect();
+    assert_eq!(shown, [true, false, false]);
 }

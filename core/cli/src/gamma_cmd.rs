@@ -46,6 +46,10 @@ pub struct GammaArgs {
     /// Normalise both distributions to their own maximum
     #[arg(long)]
     pub relative: bool,
+    /// With several criteria: every statistic for the first criterion and exact pass rates
+    /// for the others (first-criterion), or every statistic for each (every-criterion, slower)
+    #[arg(long, default_value = "first-criterion", value_parser = ["first-criterion", "every-criterion"])]
+    pub statistics: String,
 }
 
 fn usage(msg: String, help: &str) -> Failure {
@@ -174,6 +178,7 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
             ("method".to_string(), serde_json::json!(a.method)),
             ("relative".to_string(), serde_json::json!(a.relative)),
             ("sample-step-dta".to_string(), serde_json::json!(0.1)),
+            ("statistics".to_string(), serde_json::json!(a.statistics)),
         ]),
         criteria: CriteriaSet {
             name: "command line".into(),

@@ -127,11 +127,72 @@ fn groups(crits: &[Criterion], thresholds: &[f64]) -> Groups {
     Groups { searched, leaders }
 }
 
+/// Which criteria need their gamma values rather than only each point's pass or fail.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Values {
+    /// Every criterion's gamma values are minima (every statistic can be taken).
+    Every,
+    /// The first criterion's values, and those of criteria searched with it (see `Groups`),
+    /// are minima; for the others the search only settles each point's pass or fail, and
+    /// their values lie on the same side of 1 as the minima: their pass rates are exact,
+    /// their other statistics are not computed.
+    First,
+}
+
+/// For each criterion, the pass/fail marks its search stops at (see
+/// `star::PointCriteria::marks`); empty for a criterion searched to its minimum. Only a group
+/// leader not searched with the first criterion gets marks under `Values::First`, and only
+/// when each member's search radius reaches its DTA (so that a pass lies within it).
+fn pass_marks(crits: &[Criterion], g: &Groups, values: Values) -> Vec<Vec<f64>> {
+    let mut marks = vec![Vec::new(); crits.len()];
+    if values == Values::Every || crits.is_empty() {
+        return marks;
+    }
+    let first = g.searched[0];
+    for &lead in &g.leaders {
+        let members: Vec<usize> = (0..crits.len())
+            .filter(|&m| g.searched[m] == lead)
+            .collect();
+        if lead == first
+            || members
+                .iter()
+                .any(|&m| crits[m].max_search_mm < crits[m].dta_mm)
+        {
+            continue;
+        }
+        // Member m passes when gamma_lead * dta_lead / dta_m <= 1 + LIMIT_SLACK. A mark a
+        // hair below that (relative 1e-12) leaves a value that rounds onto it unsettled, so
+        // that the walk goes on past it (see `star::settle`).
+        let mut m: Vec<f64> = members
+            .iter()
+            .map(|&m| {
+                let t = (1.0 + beamproof_api::LIMIT_SLACK) * crits[m].dta_mm / crits[lead].dta_mm;
+                t * t * (1.0 - 1e-12)
+            })
+            .collect();
+        m.sort_by(|a, b| b.total_cmp(a));
+        m.dedup();
+        marks[lead] = m;
+    }
+    marks
+}
+
+/// For each criterion, whether `compute` returns minima for it (see `Values`).
+pub fn minima(crits: &[Criterion], thresholds: &[f64], values: Values) -> Vec<bool> {
+    let g = groups(crits, thresholds);
+    let marks = pass_marks(crits, &g, values);
+    (0..crits.len())
+        .map(|c| marks[g.searched[c]].is_empty())
+        .collect()
+}
+
 /// Gamma of every reference point for every criterion, row-major (`gammas[i * n + c]`).
 /// NaN where a point is not evaluated: outside the evaluated grid, below `thresholds[c]`, or
 /// with zero dose under a local criterion. Runs in parallel over points. Proportional criteria
 /// are searched once (see `Groups`); a member whose minimiser lies beyond its own search
-/// radius is searched on its own, so the values equal separate searches.
+/// radius is searched on its own, so the values equal separate searches. With
+/// `Values::First`, criteria not searched with the first stop at pass or fail (see `Values`;
+/// `minima` tells which).
 pub fn compute(
     field: &Field,
     points: &Positions,
@@ -139,6 +200,7 @@ pub fn compute(
     crits: &[Criterion],
     thresholds: &[f64],
     method: Method,
+    values: Values,
 ) -> Vec<f64> {
     let n = crits.len();
     let mut out = vec![f64::NAN; points.len() * n];
@@ -158,8 +220,12 @@ pub fn compute(
         _ => None,
     };
     let g = groups(crits, thresholds);
-    let search = |list: &[Criterion], i: usize, scratch: &mut Scratch, buf: &mut [f64]| match method
-    {
+    let marks = pass_marks(crits, &g, values);
+    let search = |list: &[Criterion],
+                  list_marks: &[&[f64]],
+                  i: usize,
+                  scratch: &mut Scratch,
+                  buf: &mut [f64]| match method {
         Method::Sampled { .. } => gamma_sampled(field, list, &offsets, points.at(i), doses[i], buf),
         _ => gamma_at(
             field,
@@ -167,6 +233,7 @@ pub fn compute(
             Plan {
                 method,
                 table: table.as_ref(),
+                marks: list_marks,
             },
             points.at(i),
             doses[i],
@@ -180,22 +247,25 @@ pub fn compute(
                 Scratch::default(),
                 Vec::<Criterion>::with_capacity(n),
                 Vec::<usize>::with_capacity(n),
+                Vec::<&[f64]>::with_capacity(n),
                 [0.0; MAX_CRITERIA],
             )
         },
-        |(scratch, active, which, buf), (i, row)| {
+        |(scratch, active, which, active_marks, buf), (i, row)| {
             active.clear();
             which.clear();
+            active_marks.clear();
             for &c in &g.leaders {
                 if doses[i] >= thresholds[c] && crits[c].delta_dose(doses[i]) > 0.0 {
                     active.push(crits[c]);
                     which.push(c);
+                    active_marks.push(&marks[c]);
                 }
             }
             if active.is_empty() {
                 return;
             }
-            if !search(active, i, scratch, &mut buf[..active.len()]) {
+            if !search(active, active_marks, i, scratch, &mut buf[..active.len()]) {
                 return;
             }
             for (j, &lead) in which.iter().enumerate() {
@@ -208,12 +278,16 @@ pub fn compute(
                 }
                 let (l, m) = (&crits[lead], &crits[c]);
                 // The minimiser lies at distance gamma_lead * dta_lead; within the member's
-                // radius the member's value is the scaled one, else search it alone.
-                if row[lead] * l.dta_mm <= m.max_search_mm * (1.0 + 1e-12) {
+                // radius the member's value is the scaled one, else search it alone. A
+                // member of a pass/fail group (whose radius reaches its DTA) fails there
+                // either way: its scaled value exceeds 1, as its own search's would.
+                if row[lead] * l.dta_mm <= m.max_search_mm * (1.0 + 1e-12)
+                    || !marks[lead].is_empty()
+                {
                     row[c] = row[lead] * l.dta_mm / m.dta_mm;
                 } else {
                     let mut one = [0.0];
-                    if search(&[*m], i, scratch, &mut one) {
+                    if search(&[*m], &[&[]], i, scratch, &mut one) {
                         row[c] = one[0];
                     }
                 }
@@ -283,6 +357,13 @@ impl Analysis for Gamma {
                     default: None,
                     unit: "mm".into(),
                     description: "Largest search distance (default 3 x DTA of each criterion); larger gamma values are upper bounds".into(),
+                },
+                ParamSpec {
+                    name: "statistics".into(),
+                    kind: ParamType::Choice { choices: vec!["first-criterion".into(), "every-criterion".into()] },
+                    default: Some("first-criterion".into()),
+                    unit: String::new(),
+                    description: "first-criterion: every statistic for the first criterion (and criteria proportional to it), exact pass rates for the others, whose search stops once each point's pass or fail is certain; every-criterion: every statistic for every criterion (each search runs to its minimum; slower)".into(),
                 },
                 ParamSpec {
                     name: "relative".into(),
@@ -435,10 +516,29 @@ pub fn analyse_with_points(
             reference.source, evaluated.source
         )));
     }
-    let gammas = compute(&field, &points, &ref_dose, &crits, &thresholds, method);
+    let values = if input
+        .params
+        .get("statistics")
+        .and_then(serde_json::Value::as_str)
+        == Some("every-criterion")
+    {
+        Values::Every
+    } else {
+        Values::First
+    };
+    let gammas = compute(
+        &field,
+        &points,
+        &ref_dose,
+        &crits,
+        &thresholds,
+        method,
+        values,
+    );
     let out = build_output(&BuildInput {
         spec,
         crits: &crits,
+        minima: &minima(&crits, &thresholds, values),
         gammas: &gammas,
         points: &points,
         ref_dose: &ref_dose,
@@ -610,6 +710,8 @@ fn check_doses(source: &str, dose: &[f64]) -> Result<(), AnalysisError> {
 struct BuildInput<'a> {
     spec: &'a [GammaCriterion],
     crits: &'a [Criterion],
+    /// Per criterion, whether its gamma values are minima (else only pass/fail is exact).
+    minima: &'a [bool],
     gammas: &'a [f64],
     points: &'a Positions,
     ref_dose: &'a [f64],
@@ -643,6 +745,9 @@ fn trim(v: f64) -> String {
     s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
+/// Table entry of a statistic that is not computed (see `Values::First`).
+const NOT_COMPUTED: &str = "—";
+
 fn build_output(b: &BuildInput) -> AnalysisOutput {
     let n = b.crits.len();
     let column = |c: usize| b.gammas.iter().skip(c).step_by(n).copied();
@@ -673,16 +778,24 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
             }),
             status: Some(status),
         });
+        // Statistics of values that are only upper bounds are not shown.
+        let stat = |v: f64| {
+            if b.minima[c] {
+                num(v, 2)
+            } else {
+                NOT_COMPUTED.to_string()
+            }
+        };
         rows.push(vec![
             label(g),
             format!("{}", trim(g.threshold_percent)),
             s.n_evaluated.to_string(),
             num(s.pass_rate_percent, 1),
-            num(s.mean, 2),
-            num(s.median, 2),
-            num(s.p95, 2),
-            num(s.p99, 2),
-            num(s.max, 2),
+            stat(s.mean),
+            stat(s.median),
+            stat(s.p95),
+            stat(s.p99),
+            stat(s.max),
             status.word().to_string(),
         ]);
     }
@@ -795,6 +908,9 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         },
         format!("Global dose criteria are relative to {} {}.", trim_dose(b.crits[0].norm_dose), unit),
     ];
+    if b.minima.iter().any(|&m| !m) {
+        notes.push(format!("Criteria marked {NOT_COMPUTED} in the table: exact pass rates only; their search stops once each point's pass or fail is certain, so their other statistics are not computed (parameter `statistics: every-criterion` computes them)."));
+    }
     if b.n_outside > 0 {
         notes.push(format!("Reference points outside the evaluated grid, not evaluated (only the overlap is analysed): {}.", b.n_outside));
     }

@@ -144,6 +144,10 @@ pub struct Scratch {
 pub struct Plan<'a> {
     pub method: Method,
     pub table: Option<&'a NodeTable>,
+    /// Per criterion, the pass/fail marks of `star::PointCriteria::marks` (empty: the minimum
+    /// is wanted). Only the tabulated walk stops early for them; every other search returns
+    /// minima, which settle every mark too.
+    pub marks: &'a [&'a [f64]],
 }
 
 /// Compute gamma of one reference point for every criterion into `out`. Returns false when the
@@ -179,7 +183,11 @@ fn gamma_at_k<const K: usize>(
     let Some(u) = field.local(pos) else {
         return false;
     };
-    let Plan { method, table } = plan;
+    let Plan {
+        method,
+        table,
+        marks,
+    } = plan;
     let k = K;
     let nc = crits.len();
     let mut dd = [0.0; 16];
@@ -241,6 +249,7 @@ fn gamma_at_k<const K: usize>(
                 crits,
                 dd: &dd[..nc],
                 dt: &dt[..nc],
+                marks,
             };
             if search_node::<K>(field, t, &pc, node, d_ref, out) {
                 return true;

@@ -430,6 +430,12 @@ pub struct PointCriteria<'a> {
     pub dd: &'a [f64],
     /// Distance criterion of each criterion, mm.
     pub dt: &'a [f64],
+    /// For each criterion, empty when its minimum is wanted; otherwise the squared gamma
+    /// values (in this criterion's units) at which a point's pass or fail changes for some
+    /// member of its group, largest first: the walk then only settles on which side of each
+    /// mark the minimum lies, and the value it returns lies on that side of every mark (see
+    /// `settle`).
+    pub marks: &'a [&'a [f64]],
 }
 
 /// Gamma at the node with local indices `node` for every criterion into `out`: true when the
@@ -547,15 +553,32 @@ fn walk<const K: usize, const INSIDE: bool>(at: &NodePoint, out: &mut [f64]) -> 
         let g = (dose[flat] - d_ref) / pc.dd[c];
         best2[c] = g * g;
     }
+    // Criteria of which only pass or fail is wanted (see `settle`): their position in their
+    // marks, and those whose every mark is settled.
+    let mut decide = 0u32;
+    let mut next_mark = [0usize; 16];
+    let mut settled = 0u32;
+    for c in 0..nc {
+        decide |= u32::from(!pc.marks[c].is_empty()) << c;
+    }
     // Edges and simplices in one order of distance; an edge before a simplex at equal distance
     // (its exact value is cheap and tightens the simplices' bounds).
     for step in &table.steps {
-        // A criterion is done once distance alone reaches its best value; the walk once every
-        // criterion is.
+        if decide != 0 {
+            for c in criteria(decide & !settled) {
+                match settle(pc.marks[c], &mut next_mark[c], best2[c]) {
+                    Some(b) => best2[c] = b,
+                    None => settled |= 1 << c,
+                }
+            }
+        }
+        // A criterion is done once distance alone reaches its best value (or every mark is
+        // settled); the walk once every criterion is.
         let mut live = 0u32;
         for c in 0..nc {
             live |= u32::from(step.ds2 < best2[c] * k.dt2[c]) << c;
         }
+        live &= !settled;
         if live == 0 {
             finish(&best2, out);
             return true;
@@ -586,6 +609,22 @@ fn walk<const K: usize, const INSIDE: bool>(at: &NodePoint, out: &mut [f64]) -> 
         counters::count(counters::LEFT);
     }
     done
+}
+
+/// The working best value of a criterion with pass/fail `marks` (squared gamma, largest
+/// first), given its best squared value so far: marks at or above it are settled (a value on
+/// their pass side was found); the largest one below it is the next to settle, so the value
+/// is lowered to a hair above that mark (relative 1e-9, far beyond rounding). Every bound and
+/// the walk's end then use it: a simplex matters only if it could pass that mark. Once the
+/// walk is through, either a value at or below the mark was found or none exists, and the
+/// value left lies on the same side of every mark as the minimum. `None` once every mark is
+/// settled; `next` remembers the position in `marks`, as the value only falls.
+#[inline(always)]
+fn settle(marks: &[f64], next: &mut usize, best2: f64) -> Option<f64> {
+    while *next < marks.len() && marks[*next] >= best2 {
+        *next += 1;
+    }
+    marks.get(*next).map(|&m| best2.min(m * (1.0 + 1e-9)))
 }
 
 /// Gamma values from their squares.
@@ -1155,6 +1194,8 @@ mod tests {
                         crits: &crits,
                         dd: &dd,
                         dt: &dt,
+                        // The third only settles pass/fail marks (see `settle`).
+                        marks: &[&[], &[], &[4.0, 1.0, 0.25]],
                     };
                     let (mut a, mut b) = ([0.0; 3], [0.0; 3]);
                     let point = NodePoint {

@@ -22,6 +22,7 @@ fn compute(
         crits,
         thresholds,
         method,
+        Values::Every,
     )
 }
 
@@ -543,6 +544,142 @@ fn tabulated_search_at_grid_nodes_agrees_with_exhaustive_search() {
 }
 
 #[test]
+fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
+    // With `Values::First` a sweep's criteria that are not searched with the first only
+    // settle each point's pass or fail. At the nodes of noisy 2D and 3D grids of unequal
+    // spacing (the walk inside the grid, near its faces, and in 3D handed over to the general
+    // search beyond its table), every point must pass or fail as the exhaustive minimum does
+    // (the exhaustive search above, from the definition of Low et al 1998), and the first
+    // criterion's values must be the minima. A value within the DTA's distance decides a pass,
+    // so the exhaustive search of a pass/fail criterion is cut there.
+    for dims in [2usize, 3] {
+        let (xs, ys, zs) = match dims {
+            2 => (steps(-12.0, 12.0, 1.0), steps(-12.0, 12.0, 1.5), vec![0.0]),
+            _ => (
+                steps(-4.8, 4.8, 1.2),
+                steps(-4.5, 4.5, 1.5),
+                steps(-4.0, 4.0, 1.0),
+            ),
+        };
+        let f = blobs(7, dims);
+        let mut r = Lcg(3);
+        let eval = grid(&xs, &ys, &zs, |x, y, z| {
+            1.02 * f(x - 0.7, y, z) + 3.0 * (r.next() - 0.5)
+        });
+        let field = Field::from_grid(&eval).expect("field");
+        let mut points = Vec::new();
+        let mut doses = Vec::new();
+        for &z in &zs {
+            for &y in &ys {
+                for &x in &xs {
+                    // Every seventh point far above, so that every criterion fails somewhere.
+                    let d = f(x, y, z) * (1.0 + 0.08 * (r.next() - 0.5));
+                    doses.push(if points.len() % 7 == 0 {
+                        1.25 * d + 6.0
+                    } else {
+                        d
+                    });
+                    points.push([x, y, z]);
+                }
+            }
+        }
+        // The first criterion, four proportional ones (one search) and one of its own.
+        let crits = [
+            crit(3.0, 2.0, 100.0, false),
+            crit(4.0, 4.0, 100.0, false),
+            crit(3.0, 3.0, 100.0, false),
+            crit(2.0, 2.0, 100.0, false),
+            crit(1.0, 1.0, 100.0, false),
+            crit(2.0, 1.0, 100.0, false),
+        ];
+        let th = [0.0; 6];
+        assert_eq!(
+            minima(&crits, &th, Values::First),
+            [true, false, false, false, false, false]
+        );
+        let got = super::compute(
+            &field,
+            &Positions::List(points.clone()),
+            &doses,
+            &crits,
+            &th,
+            Method::Exact,
+            Values::First,
+        );
+        let pass = |g: f64| g <= 1.0 + beamproof_api::LIMIT_SLACK;
+        let mut seen = [[0usize; 2]; 6];
+        for (i, (p, d)) in points.iter().zip(&doses).enumerate() {
+            // In 3D every third point (the exhaustive search is slow in the test profile).
+            if dims == 3 && i % 3 != 0 {
+                continue;
+            }
+            for (c, cr) in crits.iter().enumerate() {
+                let g = got[i * crits.len() + c];
+                if c == 0 {
+                    let want = exhaustive(&field, *p, *d, *cr);
+                    assert!(
+                        (g - want).abs() <= 1e-9 * (1.0 + want),
+                        "{dims}D {p:?}: first criterion {g} vs exhaustive {want}"
+                    );
+                    continue;
+                }
+                let mut near = *cr;
+                near.max_search_mm = cr.dta_mm * (1.0 + 1e-6);
+                let want = exhaustive(&field, *p, *d, near);
+                assert_eq!(
+                    pass(g),
+                    pass(want),
+                    "{dims}D {p:?}, criterion {c}: value {g}, exhaustive within the DTA {want}"
+                );
+                seen[c][usize::from(pass(g))] += 1;
+            }
+        }
+        // Each pass/fail criterion both passes and fails somewhere, or the check is idle.
+        for (c, s) in seen.iter().enumerate().skip(1) {
+            assert!(s[0] > 0 && s[1] > 0, "{dims}D criterion {c}: {s:?}");
+        }
+    }
+}
+
+#[test]
+fn a_uniform_scaling_passes_pass_only_criteria_at_exactly_one() {
+    // A uniform field scaled by 2 % (REFERENCES 1.7: gamma = 2 / dD in a flat region): under
+    // 2 %/2 mm and 2 %/1 mm gamma is 1 to rounding, a pass; under 1 %/1 mm it is 2, a fail;
+    // under 4 %/4 mm 0.5. The pass/fail-only search must land on the same side of 1.
+    let xs = steps(-8.0, 8.0, 1.0);
+    let reference = grid(&xs, &xs, &xs, |_, _, _| 2.0);
+    let eval = grid(&xs, &xs, &xs, |_, _, _| 2.04);
+    let field = Field::from_grid(&eval).expect("field");
+    let crits = [
+        crit(3.0, 2.0, 2.0, false),
+        crit(2.0, 2.0, 2.0, false),
+        crit(1.0, 1.0, 2.0, false),
+        crit(4.0, 4.0, 2.0, false),
+        crit(2.0, 1.0, 2.0, false),
+    ];
+    let pts = Positions::Grid {
+        x: xs.clone(),
+        y: xs.clone(),
+        z: xs.clone(),
+    };
+    let th = [0.0; 5];
+    let got = super::compute(
+        &field,
+        &pts,
+        &reference.dose,
+        &crits,
+        &th,
+        Method::Exact,
+        Values::First,
+    );
+    for (c, want_rate) in [(0, 100.0), (1, 100.0), (2, 0.0), (3, 100.0), (4, 100.0)] {
+        let s = stats::summarise(got.iter().skip(c).step_by(crits.len()).copied());
+        assert_eq!(s.n_evaluated, pts.len());
+        assert_eq!(s.pass_rate_percent, want_rate, "criterion {c}");
+    }
+}
+
+#[test]
 fn identical_distributions_give_zero_everywhere() {
     let xs = steps(-10.0, 10.0, 2.0);
     let g = grid(&xs, &xs, &[0.0], blobs(3, 2));
@@ -767,6 +904,58 @@ mod plugin {
         assert_eq!(metric(&out, "pass-rate:3%/2mm-global"), 0.0);
         assert_eq!(metric(&out, "pass-rate:4%/2mm-global"), 100.0);
         assert_eq!(out.status, Some(Status::Fail));
+    }
+
+    #[test]
+    fn a_sweep_shows_every_statistic_only_when_asked() {
+        // Flat 2.00 Gy against 2.07 Gy (REFERENCES 1.7: gamma = 0.07 Gy / dD in a flat
+        // field, dD a percentage of 2.00 Gy): 3 %/2 mm 1.17, 2 %/2 mm 1.75, 1 %/1 mm 3.5,
+        // 4 %/4 mm 0.875. By default the criteria proportional to each other but not to the
+        // first get exact pass rates and no other statistics; `every-criterion` gives them all.
+        let crits = vec![
+            tg218(3.0, 2.0),
+            tg218(2.0, 2.0),
+            tg218(1.0, 1.0),
+            tg218(4.0, 4.0),
+        ];
+        let mut runs = Vec::new();
+        for every in [false, true] {
+            let mut inp = input(flat_grid(2.0), flat_grid(2.07), "measured", crits.clone());
+            if every {
+                inp.params
+                    .insert("statistics".into(), serde_json::json!("every-criterion"));
+            }
+            runs.push(Gamma.analyse(&inp).expect("runs"));
+        }
+        let (first, every) = (&runs[0], &runs[1]);
+        for (c, id, rate) in [
+            (0, "pass-rate:3%/2mm-global", 0.0),
+            (1, "pass-rate:2%/2mm-global", 0.0),
+            (2, "pass-rate:1%/1mm-global", 0.0),
+            (3, "pass-rate:4%/4mm-global", 100.0),
+        ] {
+            assert_eq!(metric(first, id), rate, "{id}");
+            assert_eq!(metric(every, id), rate, "{id}");
+            let row = &first.tables[0].rows[c];
+            // Columns 4..9: mean, median, P95, P99, max.
+            let shown = row[4..9].iter().all(|v| v != NOT_COMPUTED);
+            assert_eq!(shown, c == 0, "row {c}: {row:?}");
+        }
+        assert_eq!(first.tables[0].rows[0][8], "1.17");
+        assert_eq!(every.tables[0].rows[1][8], "1.75");
+        assert_eq!(every.tables[0].rows[2][8], "3.50");
+        assert!(
+            first
+                .notes
+                .iter()
+                .any(|n| n.contains("exact pass rates only"))
+        );
+        assert!(
+            !every
+                .notes
+                .iter()
+                .any(|n| n.contains("exact pass rates only"))
+        );
     }
 
     #[test]
