@@ -141,11 +141,12 @@ pub enum Values {
 
 /// For each criterion, the pass/fail marks its search stops at (see
 /// `star::PointCriteria::marks`); empty for a criterion searched to its minimum. Only a group
-/// leader not searched with the first criterion gets marks under `Values::First`, and only
-/// when each member's search radius reaches its DTA (so that a pass lies within it).
-fn pass_marks(crits: &[Criterion], g: &Groups, values: Values) -> Vec<Vec<f64>> {
+/// leader not searched with the first criterion gets marks, under `Values::First` with the
+/// exact method (the only one that stops early), and only when each member's search radius
+/// reaches its DTA (so that a pass lies within it).
+fn pass_marks(crits: &[Criterion], g: &Groups, values: Values, method: Method) -> Vec<Vec<f64>> {
     let mut marks = vec![Vec::new(); crits.len()];
-    if values == Values::Every || crits.is_empty() {
+    if values == Values::Every || method != Method::Exact || crits.is_empty() {
         return marks;
     }
     let first = g.searched[0];
@@ -178,9 +179,14 @@ fn pass_marks(crits: &[Criterion], g: &Groups, values: Values) -> Vec<Vec<f64>> 
 }
 
 /// For each criterion, whether `compute` returns minima for it (see `Values`).
-pub fn minima(crits: &[Criterion], thresholds: &[f64], values: Values) -> Vec<bool> {
+pub fn minima(
+    crits: &[Criterion],
+    thresholds: &[f64],
+    method: Method,
+    values: Values,
+) -> Vec<bool> {
     let g = groups(crits, thresholds);
-    let marks = pass_marks(crits, &g, values);
+    let marks = pass_marks(crits, &g, values, method);
     (0..crits.len())
         .map(|c| marks[g.searched[c]].is_empty())
         .collect()
@@ -220,7 +226,7 @@ pub fn compute(
         _ => None,
     };
     let g = groups(crits, thresholds);
-    let marks = pass_marks(crits, &g, values);
+    let marks = pass_marks(crits, &g, values, method);
     let search = |list: &[Criterion],
                   list_marks: &[&[f64]],
                   i: usize,
@@ -363,7 +369,7 @@ impl Analysis for Gamma {
                     kind: ParamType::Choice { choices: vec!["first-criterion".into(), "every-criterion".into()] },
                     default: Some("first-criterion".into()),
                     unit: String::new(),
-                    description: "first-criterion: every statistic for the first criterion (and criteria proportional to it), exact pass rates for the others, whose search stops once each point's pass or fail is certain; every-criterion: every statistic for every criterion (each search runs to its minimum; slower)".into(),
+                    description: "With the exact method, first-criterion: every statistic for the first criterion (and criteria proportional to it), exact pass rates for the others, whose search stops once each point's pass or fail is certain; every-criterion: every statistic for every criterion (each search runs to its minimum; slower)".into(),
                 },
                 ParamSpec {
                     name: "relative".into(),
@@ -538,7 +544,7 @@ pub fn analyse_with_points(
     let out = build_output(&BuildInput {
         spec,
         crits: &crits,
-        minima: &minima(&crits, &thresholds, values),
+        minima: &minima(&crits, &thresholds, method, values),
         gammas: &gammas,
         points: &points,
         ref_dose: &ref_dose,

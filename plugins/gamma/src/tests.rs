@@ -594,8 +594,13 @@ fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
         ];
         let th = [0.0; 6];
         assert_eq!(
-            minima(&crits, &th, Values::First),
+            minima(&crits, &th, Method::Exact, Values::First),
             [true, false, false, false, false, false]
+        );
+        assert!(
+            minima(&crits, &th, Method::Nodes, Values::First)
+                .iter()
+                .all(|&m| m)
         );
         let got = super::compute(
             &field,
