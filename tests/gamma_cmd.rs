@@ -59,6 +59,50 @@ fn flat_curves_give_the_dose_difference_over_the_criterion() {
 }
 
 #[test]
+fn several_criteria_give_pass_rates_and_every_statistic_when_asked() {
+    // Flat 100 % against 102 %: gamma = 2 / dD (Low et al 1998, flat region), so 3 %/2 mm
+    // gives 0.67, 1 %/1 mm 2.00 and 4 %/4 mm 0.50. By default the criteria after the first
+    // (here one proportional pair, searched apart from 3 %/2 mm) get exact pass rates only.
+    let dir = scratch("gamma-cmd-sweep");
+    let r = flat_curve(&dir, "r.csv", 100.0);
+    let e = flat_curve(&dir, "e.csv", 102.0);
+    let args = |extra: &[&'static str]| {
+        let mut v = vec![
+            "gamma".to_string(),
+            r.to_str().expect("utf8").to_string(),
+            e.to_str().expect("utf8").to_string(),
+        ];
+        for c in ["3%/2mm", "1%/1mm", "4%/4mm"] {
+            v.push("--criteria".into());
+            v.push(c.into());
+        }
+        v.extend(extra.iter().map(|s| s.to_string()));
+        v
+    };
+    let run = |a: Vec<String>| {
+        let a: Vec<&str> = a.iter().map(String::as_str).collect();
+        cli(&a)
+    };
+    let o = run(args(&[]));
+    assert_eq!(o.code, 1, "{}", o.stderr);
+    for row in [
+        "\n3%/2mm global | 10 | 81 | 100.0 | 0.67 | 0.67 | 0.67 | 0.67 | 0.67 | PASS\n",
+        "\n1%/1mm global | 10 | 81 | 0.0 | — | — | — | — | — | FAIL\n",
+        "\n4%/4mm global | 10 | 81 | 100.0 | — | — | — | — | — | PASS\n",
+    ] {
+        assert!(o.stdout.contains(row), "{row}: {}", o.stdout);
+    }
+    let o = run(args(&["--statistics", "every-criterion"]));
+    assert_eq!(o.code, 1, "{}", o.stderr);
+    for row in [
+        "\n1%/1mm global | 10 | 81 | 0.0 | 2.00 | 2.00 | 2.00 | 2.00 | 2.00 | FAIL\n",
+        "\n4%/4mm global | 10 | 81 | 100.0 | 0.50 | 0.50 | 0.50 | 0.50 | 0.50 | PASS\n",
+    ] {
+        assert!(o.stdout.contains(row), "{row}: {}", o.stdout);
+    }
+}
+
+#[test]
 fn a_failing_comparison_exits_with_one() {
     // Flat 104.5 % against 100 %: gamma = 4.5/3 = 1.5 everywhere, no point passes.
     let dir = scratch("gamma-cmd-fail");
