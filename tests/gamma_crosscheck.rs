@@ -7,7 +7,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 
 use beamproof_api::{
-    AnalysisInput, AnalysisOutput, CriteriaSet, GammaCriterion, Normalisation, TestInfo, TestKind,
+    AnalysisInput, AnalysisOutput, CriteriaSet, GammaCriterion, TestInfo, TestKind,
 };
 use beamproof_engine::readers::read_dataset;
 
@@ -50,15 +50,7 @@ fn run(
             dose_difference_percent: None,
             gamma: criteria
                 .iter()
-                .map(|&(dose_percent, dta_mm)| GammaCriterion {
-                    dose_percent,
-                    dta_mm,
-                    threshold_percent: 10.0,
-                    normalisation: Normalisation::Global,
-                    normalisation_dose_gy: None,
-                    tolerance_pass_percent: 95.0,
-                    action_pass_percent: 90.0,
-                })
+                .map(|&(d, t)| GammaCriterion::tg218(d, t))
                 .collect(),
             metrics: BTreeMap::new(),
         },

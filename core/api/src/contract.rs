@@ -116,6 +116,22 @@ pub struct GammaCriterion {
     pub action_pass_percent: f64,
 }
 
+impl GammaCriterion {
+    /// `dose_percent` %/`dta_mm` mm with the AAPM TG-218 defaults (Miften et al 2018): global
+    /// to the reference maximum, 10 % threshold, tolerance 95 % and action 90 % passing.
+    pub fn tg218(dose_percent: f64, dta_mm: f64) -> GammaCriterion {
+        GammaCriterion {
+            dose_percent,
+            dta_mm,
+            threshold_percent: 10.0,
+            normalisation: Normalisation::Global,
+            normalisation_dose_gy: None,
+            tolerance_pass_percent: 95.0,
+            action_pass_percent: 90.0,
+        }
+    }
+}
+
 /// Tolerance and action level for a magnitude-type quantity.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Levels {

@@ -151,17 +151,13 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
     let gamma = criteria
         .iter()
         .map(|&(dose_percent, dta_mm)| GammaCriterion {
-            dose_percent,
-            dta_mm,
             threshold_percent: a.threshold,
             normalisation: if a.local {
                 Normalisation::Local
             } else {
                 Normalisation::Global
             },
-            normalisation_dose_gy: None,
-            tolerance_pass_percent: 95.0,
-            action_pass_percent: 90.0,
+            ..GammaCriterion::tg218(dose_percent, dta_mm)
         })
         .collect();
     let input = AnalysisInput {

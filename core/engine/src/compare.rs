@@ -12,7 +12,7 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-use beamproof_api::{CriteriaSet, GammaCriterion, Levels, Normalisation, TestKind};
+use beamproof_api::{CriteriaSet, GammaCriterion, Levels, TestKind};
 
 use crate::campaign::Campaign;
 use crate::checksum::{sha256_hex, verify_run};
@@ -59,15 +59,7 @@ pub fn default_matching_criteria() -> CriteriaSet {
     CriteriaSet {
         name: "matching (built-in)".into(),
         dose_difference_percent: Some(l(1.0, 2.0)),
-        gamma: vec![GammaCriterion {
-            dose_percent: 1.0,
-            dta_mm: 1.0,
-            threshold_percent: 10.0,
-            normalisation: Normalisation::Global,
-            normalisation_dose_gy: None,
-            tolerance_pass_percent: 95.0,
-            action_pass_percent: 90.0,
-        }],
+        gamma: vec![GammaCriterion::tg218(1.0, 1.0)],
         metrics,
     }
 }

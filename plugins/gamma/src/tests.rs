@@ -802,8 +802,7 @@ fn proportional_criteria_share_one_search_and_fall_back_beyond_their_radius() {
 mod plugin {
     use super::*;
     use beamproof_api::{
-        CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, Normalisation, PointSet,
-        TestInfo,
+        CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, PointSet, TestInfo,
     };
     use std::collections::BTreeMap;
 
@@ -850,15 +849,7 @@ mod plugin {
     }
 
     fn tg218(dose_percent: f64, dta_mm: f64) -> GammaCriterion {
-        GammaCriterion {
-            dose_percent,
-            dta_mm,
-            threshold_percent: 10.0,
-            normalisation: Normalisation::Global,
-            normalisation_dose_gy: None,
-            tolerance_pass_percent: 95.0,
-            action_pass_percent: 90.0,
-        }
+        GammaCriterion::tg218(dose_percent, dta_mm)
     }
 
     fn metric(out: &AnalysisOutput, id: &str) -> f64 {
@@ -1197,9 +1188,7 @@ mod plugin {
 #[test]
 fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
     // Every reference dose below a 99 % threshold except none: nothing is evaluated.
-    use beamproof_api::{
-        CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, Normalisation, TestInfo,
-    };
+    use beamproof_api::{CriteriaSet, Dataset, DatasetData, DoseUnit, GammaCriterion, TestInfo};
     let xs = steps(-5.0, 5.0, 1.0);
     let r = grid(&xs, &xs, &[0.0], |x, _, _| 1.0 + 0.01 * x);
     let e = grid(&xs, &xs, &[0.0], |_, _, _| 1.0);
@@ -1220,13 +1209,9 @@ fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
             name: "c".into(),
             dose_difference_percent: None,
             gamma: vec![GammaCriterion {
-                dose_percent: 3.0,
-                dta_mm: 2.0,
                 threshold_percent: 99.0,
-                normalisation: Normalisation::Global,
                 normalisation_dose_gy: Some(2.0),
-                tolerance_pass_percent: 95.0,
-                action_pass_percent: 90.0,
+                ..GammaCriterion::tg218(3.0, 2.0)
             }],
             metrics: std::collections::BTreeMap::new(),
         },
