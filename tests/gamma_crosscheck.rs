@@ -31,14 +31,7 @@ fn run(
             .unwrap_or_else(|d| panic!("{}", d.render(None)))
     };
     let input = AnalysisInput {
-        test: TestInfo {
-            site: "s".into(),
-            id: "t".into(),
-            name: "t".into(),
-            kind: TestKind::Plane,
-            machine: "m".into(),
-            beam: None,
-        },
+        test: TestInfo::standalone(TestKind::Plane),
         params: BTreeMap::from([
             ("reference".to_string(), serde_json::json!("measured")),
             ("method".to_string(), serde_json::json!(method)),

@@ -170,6 +170,21 @@ pub struct TestInfo {
     pub beam: Option<BeamInfo>,
 }
 
+impl TestInfo {
+    /// A test of `kind` outside any campaign: site, id, name and machine are the placeholders
+    /// `s`, `t`, `t` and `m`, no beam (for analyses run on their own, such as unit tests).
+    pub fn standalone(kind: TestKind) -> TestInfo {
+        TestInfo {
+            site: "s".into(),
+            id: "t".into(),
+            name: "t".into(),
+            kind,
+            machine: "m".into(),
+            beam: None,
+        }
+    }
+}
+
 /// Everything an analysis receives. Parameters have been validated against the plugin's
 /// [`ParamSpec`]s and completed with defaults.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

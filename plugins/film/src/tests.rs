@@ -176,14 +176,7 @@ fn measurement(scan: RgbScan) -> FilmMeasurement {
 
 fn input(film: FilmInput, method: &str) -> AnalysisInput {
     AnalysisInput {
-        test: TestInfo {
-            site: "s".into(),
-            id: "t".into(),
-            name: "t".into(),
-            kind: TestKind::Plane,
-            machine: "m".into(),
-            beam: None,
-        },
+        test: TestInfo::standalone(TestKind::Plane),
         params: [
             ("method".to_string(), serde_json::json!(method)),
             ("spacing-mm".to_string(), serde_json::json!(1.0)),

@@ -822,14 +822,7 @@ mod plugin {
         gamma: Vec<GammaCriterion>,
     ) -> AnalysisInput {
         AnalysisInput {
-            test: TestInfo {
-                site: "s".into(),
-                id: "t".into(),
-                name: "t".into(),
-                kind: TestKind::Plane,
-                machine: "m".into(),
-                beam: None,
-            },
+            test: TestInfo::standalone(TestKind::Plane),
             params: BTreeMap::from([
                 ("reference".to_string(), serde_json::json!(reference)),
                 ("method".to_string(), serde_json::json!("exact")),
@@ -1193,14 +1186,7 @@ fn a_criterion_with_no_point_above_threshold_is_an_error_not_a_pass() {
     let r = grid(&xs, &xs, &[0.0], |x, _, _| 1.0 + 0.01 * x);
     let e = grid(&xs, &xs, &[0.0], |_, _, _| 1.0);
     let input = AnalysisInput {
-        test: TestInfo {
-            site: "s".into(),
-            id: "t".into(),
-            name: "t".into(),
-            kind: TestKind::Plane,
-            machine: "m".into(),
-            beam: None,
-        },
+        test: TestInfo::standalone(TestKind::Plane),
         params: std::collections::BTreeMap::from([
             ("reference".to_string(), serde_json::json!("measured")),
             ("method".to_string(), serde_json::json!("exact")),

@@ -348,14 +348,7 @@ mod tests {
             p.insert(k.to_string(), v.clone());
         }
         AnalysisInput {
-            test: TestInfo {
-                site: "s".into(),
-                id: "t".into(),
-                name: "t".into(),
-                kind: TestKind::PointDose,
-                machine: "m".into(),
-                beam: None,
-            },
+            test: TestInfo::standalone(TestKind::PointDose),
             params: p,
             criteria: CriteriaSet {
                 name: "c".into(),
