@@ -583,19 +583,20 @@ fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
                 }
             }
         }
-        // The first criterion, four proportional ones (one search) and one of its own.
+        // The first criterion, five proportional ones (one search) and one of its own.
         let crits = [
             crit(3.0, 2.0, 100.0, false),
+            crit(5.0, 5.0, 100.0, false),
             crit(4.0, 4.0, 100.0, false),
             crit(3.0, 3.0, 100.0, false),
             crit(2.0, 2.0, 100.0, false),
             crit(1.0, 1.0, 100.0, false),
             crit(2.0, 1.0, 100.0, false),
         ];
-        let th = [0.0; 6];
+        let th = [0.0; 7];
         assert_eq!(
             minima(&crits, &th, Method::Exact, Values::First),
-            [true, false, false, false, false, false]
+            [true, false, false, false, false, false, false]
         );
         assert!(
             minima(&crits, &th, Method::Nodes, Values::First)
@@ -612,7 +613,7 @@ fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
             Values::First,
         );
         let pass = |g: f64| g <= 1.0 + beamproof_api::LIMIT_SLACK;
-        let mut seen = [[0usize; 2]; 6];
+        let mut seen = [[0usize; 2]; 7];
         for (i, (p, d)) in points.iter().zip(&doses).enumerate() {
             // In 3D every third point (the exhaustive search is slow in the test profile).
             if dims == 3 && i % 3 != 0 {
@@ -642,6 +643,16 @@ fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
         // Each pass/fail criterion both passes and fails somewhere, or the check is idle.
         for (c, s) in seen.iter().enumerate().skip(1) {
             assert!(s[0] > 0 && s[1] > 0, "{dims}D criterion {c}: {s:?}");
+        }
+        if dims == 3 {
+            // A fail of 5 %/5 mm is only certain 5 mm out, beyond the table: those walks
+            // handed over to the general search.
+            let table = crate::star::NodeTable::for_search(&field, 15.0).expect("evenly spaced");
+            assert!(
+                table.radius_mm() < 5.0,
+                "table radius {}",
+                table.radius_mm()
+            );
         }
     }
 }
