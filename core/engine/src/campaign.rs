@@ -862,10 +862,12 @@ impl<'f> Decoder<'f> {
         let f = self.fields(n, "a gamma criterion", GAMMA_KEYS)?;
         let dose_percent = self.req_number(&f, "dose-percent", 0.01, 100.0, "%");
         let dta_mm = self.req_number(&f, "dta-mm", 0.01, 100.0, "mm");
-        // Defaults follow AAPM TG-218 (Miften et al 2018): 10 % threshold, global, 95 % / 90 %.
+        // Defaults follow AAPM TG-218 (Miften et al 2018): 10 % threshold, global, 95 % / 90 %
+        // (only the defaults of this criterion are used).
+        let tg218 = GammaCriterion::tg218(0.0, 0.0);
         let threshold_percent = self
             .opt_number(&f, "threshold-percent", 0.0, 99.0, "%")
-            .unwrap_or(10.0);
+            .unwrap_or(tg218.threshold_percent);
         let normalisation = match f.get("normalisation") {
             Some(nn) => match nn.scalar() {
                 Some("global") => Normalisation::Global,
@@ -879,15 +881,15 @@ impl<'f> Decoder<'f> {
                     return None;
                 }
             },
-            None => Normalisation::Global,
+            None => tg218.normalisation,
         };
         let normalisation_dose_gy = self.opt_number(&f, "normalisation-dose-gy", 1e-6, 1e4, "Gy");
         let tolerance_pass_percent = self
             .opt_number(&f, "tolerance-pass-percent", 0.0, 100.0, "%")
-            .unwrap_or(95.0);
+            .unwrap_or(tg218.tolerance_pass_percent);
         let action_pass_percent = self
             .opt_number(&f, "action-pass-percent", 0.0, 100.0, "%")
-            .unwrap_or(90.0);
+            .unwrap_or(tg218.action_pass_percent);
         if action_pass_percent > tolerance_pass_percent {
             self.report(n, format!("action pass rate {action_pass_percent} % is above tolerance pass rate {tolerance_pass_percent} %"), "the action pass rate must not exceed the tolerance pass rate");
             return None;
