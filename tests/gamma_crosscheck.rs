@@ -27,8 +27,13 @@ fn run(
     step_dta: f64,
 ) -> (AnalysisOutput, beamproof_plugin_gamma::PointGammas) {
     let read = |p: &Path| {
-        read_dataset(p, &p.display().to_string(), None)
-            .unwrap_or_else(|d| panic!("{}", d.render(None)))
+        read_dataset(
+            p,
+            &std::fs::read(p).expect("fixture"),
+            &p.display().to_string(),
+            None,
+        )
+        .unwrap_or_else(|d| panic!("{}", d.render(None)))
     };
     let input = AnalysisInput {
         test: TestInfo::standalone(TestKind::Plane),

@@ -5,6 +5,7 @@ mod campaign_errors;
 mod compare;
 mod demo_data;
 mod dynamic_plugins;
+mod evidence;
 mod film;
 mod film_scan_reader;
 mod gamma_cmd;

@@ -3,9 +3,16 @@
 
 use std::path::PathBuf;
 
-use beamproof_engine::readers::rtdose::read_raw;
+use beamproof_engine::diag::Diagnostic;
+use beamproof_engine::readers::rtdose::RawDoseGrid;
 
 use crate::support::root;
+
+/// The reader on a file's bytes, as the input store hands them over.
+fn read_raw(path: &std::path::Path) -> Result<RawDoseGrid, Diagnostic> {
+    let bytes = std::fs::read(path).expect("fixture");
+    beamproof_engine::readers::rtdose::read_raw(path, &bytes)
+}
 
 fn fixture(name: &str) -> PathBuf {
     root().join("tests/fixtures/rtdose").join(name)

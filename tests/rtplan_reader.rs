@@ -1,9 +1,16 @@
 //! The RT Plan reader against fixtures written and read back by pydicom
 //! (tests/fixtures/rtplan/make_fixtures.py).
 
-use beamproof_engine::readers::rtplan::read_plan;
+use beamproof_engine::diag::Diagnostic;
+use beamproof_engine::readers::rtplan::Plan;
 
 use crate::support::root;
+
+/// The reader on a file's bytes, as the input store hands them over.
+fn read_plan(path: &std::path::Path) -> Result<Plan, Diagnostic> {
+    let bytes = std::fs::read(path).expect("fixture");
+    beamproof_engine::readers::rtplan::read_plan(path, &bytes)
+}
 
 #[test]
 fn two_beams_match_pydicom() {

@@ -11,7 +11,7 @@ use beamproof_api::{
 };
 use beamproof_engine::campaign::{DicomPlacement, PatientPosition};
 use beamproof_engine::diag::Diagnostic;
-use beamproof_engine::readers::read_dataset;
+use beamproof_engine::readers::{read_dataset, read_file};
 
 use crate::{EXIT_CANNOT_RUN, EXIT_GO, EXIT_NO_GO, Failure, Io};
 
@@ -125,7 +125,9 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
         } else {
             None
         };
-        read_dataset(p, &p.display().to_string(), pl).map_err(|d: Diagnostic| Failure::from(d))
+        let bytes = read_file(p).map_err(Failure::from)?;
+        read_dataset(p, &bytes, &p.display().to_string(), pl)
+            .map_err(|d: Diagnostic| Failure::from(d))
     };
     let reference = read(&a.reference)?;
     let evaluated = read(&a.evaluated)?;

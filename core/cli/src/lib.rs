@@ -53,9 +53,8 @@ enum Command {
         /// Check only this machine (default: every machine of the campaign)
         #[arg(long)]
         machine: Option<String>,
-        /// Extra folder of dynamic plugins (repeatable)
-        #[arg(long = "plugin-dir")]
-        plugin_dirs: Vec<PathBuf>,
+        #[command(flatten)]
+        inputs: InputArgs,
     },
     /// Run a campaign for one machine and write a run folder with results, report and manifest
     Run {
@@ -69,9 +68,8 @@ enum Command {
         /// Run date YYYY-MM-DD recorded in the results (default: the campaign's `date`)
         #[arg(long)]
         date: Option<String>,
-        /// Extra folder of dynamic plugins (repeatable)
-        #[arg(long = "plugin-dir")]
-        plugin_dirs: Vec<PathBuf>,
+        #[command(flatten)]
+        inputs: InputArgs,
     },
     /// Re-compute every checksum of a run folder's manifest and check its signatures
     Verify {
@@ -139,6 +137,26 @@ enum Command {
         plugin_dirs: Vec<PathBuf>,
     },
 }
+
+/// Where plugins come from and how large an input may be, for the commands that read a campaign.
+#[derive(clap::Args)]
+struct InputArgs {
+    /// Extra folder of dynamic plugins (repeatable)
+    #[arg(long = "plugin-dir")]
+    plugin_dirs: Vec<PathBuf>,
+    /// Largest input file read, in MiB; a larger file is refused before it is read
+    #[arg(long = "max-input-mb", default_value_t = DEFAULT_MAX_INPUT_MB, value_parser = clap::value_parser!(u64).range(1..=1_048_576))]
+    max_input_mb: u64,
+}
+
+impl InputArgs {
+    fn max_input_bytes(&self) -> u64 {
+        self.max_input_mb << 20
+    }
+}
+
+/// Default of `--max-input-mb` (the engine's default input limit, 1 GiB).
+const DEFAULT_MAX_INPUT_MB: u64 = beamproof_engine::input_store::DEFAULT_MAX_INPUT_BYTES >> 20;
 
 #[derive(Subcommand)]
 enum ArchiveCommand {
@@ -223,15 +241,15 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
         Command::Check {
             campaign,
             machine,
-            plugin_dirs,
-        } => check(io, &campaign, machine.as_deref(), &plugin_dirs),
+            inputs,
+        } => check(io, &campaign, machine.as_deref(), &inputs),
         Command::Run {
             campaign,
             machine,
             out,
             date,
-            plugin_dirs,
-        } => run_campaign(io, &campaign, machine.as_deref(), out, date, &plugin_dirs),
+            inputs,
+        } => run_campaign(io, &campaign, machine.as_deref(), out, date, &inputs),
         Command::Verify {
             run_dir,
             trusted_keys,
@@ -278,8 +296,9 @@ enum Machines<'a> {
 fn gather(
     campaign: &Path,
     machines: Machines,
-    extra_dirs: &[PathBuf],
+    inputs: &InputArgs,
 ) -> Result<(Campaign, Registry, Vec<Prepared>), Failure> {
+    let extra_dirs = &inputs.plugin_dirs;
     let (c, mut diags) = Campaign::load_partial(campaign);
     let Some(c) = c else {
         return Err(diags.into());
@@ -300,7 +319,7 @@ fn gather(
     };
     let mut prepared = Vec::new();
     for m in &chosen {
-        match prepare(&c, &registry, m) {
+        match prepare(&c, &registry, m, inputs.max_input_bytes()) {
             Ok(p) => prepared.push(p),
             Err(ds) => {
                 for d in ds {
@@ -322,14 +341,14 @@ fn check(
     io: &mut Io,
     campaign: &Path,
     machine: Option<&str>,
-    plugin_dirs: &[PathBuf],
+    inputs: &InputArgs,
 ) -> Result<u8, Failure> {
     let which = if machine.is_some() {
         Machines::One(machine)
     } else {
         Machines::All
     };
-    let (c, registry, prepared) = gather(campaign, which, plugin_dirs)?;
+    let (c, registry, prepared) = gather(campaign, which, inputs)?;
     // A campaign's own report template is compiled too, on results without tests, so that its
     // mistakes show now and not at the end of a run.
     if let Some(p) = prepared.first().filter(|p| p.templates.is_some()) {
@@ -358,9 +377,9 @@ fn run_campaign(
     machine: Option<&str>,
     out: Option<PathBuf>,
     date: Option<String>,
-    plugin_dirs: &[PathBuf],
+    inputs: &InputArgs,
 ) -> Result<u8, Failure> {
-    let (c, registry, mut prepared) = gather(campaign, Machines::One(machine), plugin_dirs)?;
+    let (c, registry, mut prepared) = gather(campaign, Machines::One(machine), inputs)?;
     let Some(prepared) = prepared.pop() else {
         return Err(Diagnostic::file(campaign, "no machine to run").into());
     };
@@ -557,15 +576,22 @@ fn render_reports(
     json: &[u8],
 ) -> Result<(Vec<u8>, String), Failure> {
     let template_help = "fix the template, or remove `report: templates:` to use the built-in one";
-    let templates = prepared.templates.as_ref().map(|p| campaign.dir.join(p));
-    let pdf = beamproof_report::render_pdf(json, templates.as_deref()).map_err(|e| {
+    let folder = prepared.template_files();
+    let name = folder
+        .as_ref()
+        .map(|(dir, _)| campaign.dir.join(dir).display().to_string());
+    let templates = match (&folder, &name) {
+        (Some((_, files)), Some(name)) => Some(beamproof_report::TemplateFolder { name, files }),
+        _ => None,
+    };
+    let pdf = beamproof_report::render_pdf(json, templates).map_err(|e| {
         cannot_run(
             "the report could not be made: ",
             e.to_string(),
             template_help,
         )
     })?;
-    let html = beamproof_report::render_html(json, templates.as_deref()).map_err(|e| {
+    let html = beamproof_report::render_html(json, templates).map_err(|e| {
         cannot_run(
             "the HTML summary could not be made: ",
             e.to_string(),
@@ -863,7 +889,13 @@ fn sign(
 
 fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Result<u8, Failure> {
     let registry = match campaign {
-        Some(c) => gather(c, Machines::All, plugin_dirs)?.1,
+        Some(c) => {
+            let inputs = InputArgs {
+                plugin_dirs: plugin_dirs.to_vec(),
+                max_input_mb: DEFAULT_MAX_INPUT_MB,
+            };
+            gather(c, Machines::All, &inputs)?.1
+        }
         None => Registry::with_dirs(plugin_dirs)?,
     };
     for p in registry.plugins() {

@@ -268,6 +268,9 @@ impl TestSpec {
     }
 }
 
+/// Largest campaign file read (16 MiB): a campaign of thousands of tests is a few hundred KB.
+pub const MAX_CAMPAIGN_BYTES: u64 = 16 << 20;
+
 impl Campaign {
     /// Read and decode a campaign file, reporting every structural problem at once.
     pub fn load(path: &Path) -> Result<Campaign, Vec<Diagnostic>> {
@@ -288,11 +291,14 @@ impl Campaign {
     }
 
     fn decode(path: &Path) -> Result<(Option<Campaign>, Vec<Diagnostic>), Vec<Diagnostic>> {
-        let bytes = std::fs::read(path).map_err(|e| {
-            vec![
-                Diagnostic::file(path, format!("cannot read the campaign file: {e}"))
-                    .help("check the path; it is relative to the current folder"),
-            ]
+        let bytes = crate::input_store::read_regular(path, MAX_CAMPAIGN_BYTES).map_err(|e| {
+            let help = match e {
+                crate::input_store::ReadError::NotFound => {
+                    "check the path; it is relative to the current folder"
+                }
+                _ => e.help(),
+            };
+            vec![Diagnostic::file(path, format!("cannot read the campaign file: {e}")).help(help)]
         })?;
         let text = std::str::from_utf8(&bytes).map_err(|e| {
             vec![

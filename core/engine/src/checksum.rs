@@ -57,6 +57,35 @@ pub struct Verification {
     pub uncovered: Vec<String>,
 }
 
+/// The manifest's entries (path to SHA-256); an error names the first malformed line.
+pub fn parse_manifest(bytes: &[u8]) -> Result<std::collections::BTreeMap<String, String>, String> {
+    let text =
+        std::str::from_utf8(bytes).map_err(|_| "the manifest is not UTF-8 text".to_string())?;
+    let mut out = std::collections::BTreeMap::new();
+    for (i, line) in text.lines().enumerate() {
+        match line.split_once("  ") {
+            Some((hash, rel))
+                if hash.len() == 64
+                    && hash.chars().all(|c| c.is_ascii_hexdigit())
+                    && safe_relative(rel) =>
+            {
+                out.insert(rel.to_string(), hash.to_ascii_lowercase());
+            }
+            _ => return Err(format!("manifest line {} is malformed", i + 1)),
+        }
+    }
+    Ok(out)
+}
+
+/// Read and parse the manifest of run folder `dir`.
+pub fn read_manifest(dir: &Path) -> Result<std::collections::BTreeMap<String, String>, String> {
+    let path = dir.join(MANIFEST);
+    let bytes =
+        crate::input_store::read_regular(&path, crate::input_store::DEFAULT_MAX_INPUT_BYTES)
+            .map_err(|e| format!("cannot read {}: {e}", path.display()))?;
+    parse_manifest(&bytes)
+}
+
 /// Re-hash every file the manifest lists. Errors only when the manifest itself is unreadable.
 pub fn verify_run(dir: &Path) -> Result<Verification, String> {
     let manifest_path = dir.join(MANIFEST);

@@ -70,6 +70,11 @@ struct Side {
     campaign: Campaign,
     prepared: Prepared,
     results: serde_json::Value,
+    /// The bytes of `results.json` and `manifest.sha256` as read (and checked) once.
+    results_bytes: Vec<u8>,
+    manifest_bytes: Vec<u8>,
+    /// Film tests' derived dose planes (`derived/ID.csv`), as read and checked once.
+    derived: BTreeMap<String, Vec<u8>>,
 }
 
 fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
@@ -88,14 +93,46 @@ fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
             "restore the run folder from its archive (`beamproof archive export`)",
         ));
     }
-    let results: serde_json::Value = std::fs::read(dir.join("results.json"))
+    // Every file used below is read once and must carry the checksum the manifest lists for
+    // it, so what is compared is what was verified, even if the folder changes meanwhile.
+    let listed = crate::checksum::read_manifest(dir)
+        .map_err(|e| refuse(e, "give a run folder made by `beamproof run`"))?;
+    let checked = |rel: &str, bytes: &[u8]| -> Result<(), Vec<Diagnostic>> {
+        match listed.get(rel) {
+            Some(sha) if *sha == sha256_hex(bytes) => Ok(()),
+            _ => Err(refuse(
+                format!(
+                    "`{rel}` changed after the run folder was verified, or is not in its manifest"
+                ),
+                "compare run folders that nothing is writing to",
+            )),
+        }
+    };
+    let read_checked = |rel: &str| -> Result<Vec<u8>, Vec<Diagnostic>> {
+        let bytes = crate::readers::read_file(&dir.join(rel)).map_err(|d| vec![d])?;
+        checked(rel, &bytes)?;
+        Ok(bytes)
+    };
+    let results_bytes = read_checked("results.json")?;
+    let manifest_bytes =
+        crate::readers::read_file(&dir.join(crate::checksum::MANIFEST)).map_err(|d| vec![d])?;
+    if crate::checksum::parse_manifest(&manifest_bytes)
         .ok()
-        .and_then(|b| serde_json::from_slice(&b).ok())
-        .ok_or_else(|| refuse("results.json is unreadable".into(), "give a run folder"))?;
+        .as_ref()
+        != Some(&listed)
+    {
+        return Err(refuse(
+            "the manifest changed while the run folder was read".into(),
+            "compare run folders that nothing is writing to",
+        ));
+    }
+    let results: serde_json::Value = serde_json::from_slice(&results_bytes)
+        .map_err(|_| refuse("results.json is unreadable".into(), "give a run folder"))?;
     let file = results["campaign"]["file"]
         .as_str()
         .unwrap_or("inputs/campaign.yaml");
     let campaign = Campaign::load(&dir.join(file))?;
+    checked(file, &campaign.bytes)?;
     let machine_id = results["machine"]["id"].as_str().unwrap_or_default();
     let machine = campaign
         .machine(machine_id)
@@ -106,12 +143,30 @@ fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
             )
         })?
         .clone();
-    let prepared = prepare(&campaign, registry, &machine)?;
+    let prepared = prepare(
+        &campaign,
+        registry,
+        &machine,
+        crate::input_store::DEFAULT_MAX_INPUT_BYTES,
+    )?;
+    for f in &prepared.inputs {
+        checked(&format!("{}/{}", crate::run::INPUTS_DIR, f.rel), &f.bytes)?;
+    }
+    let mut derived = BTreeMap::new();
+    for t in prepared.tests.iter().filter(|t| t.film.is_some()) {
+        let rel = format!("{DERIVED_DIR}/{}.csv", t.spec.id);
+        if listed.contains_key(&rel) {
+            derived.insert(rel.clone(), read_checked(&rel)?);
+        }
+    }
     Ok(Side {
         dir: dir.to_path_buf(),
         campaign,
         prepared,
         results,
+        results_bytes,
+        manifest_bytes,
+        derived,
     })
 }
 
@@ -141,9 +196,8 @@ fn renamed(side: &str, i: &PreparedInput) -> PreparedInput {
 fn measured(side: &Side, t: &PreparedTest) -> Option<(PreparedInput, Vec<u8>)> {
     if t.film.is_some() {
         let rel = format!("{DERIVED_DIR}/{}.csv", t.spec.id);
-        let path = side.dir.join(&rel);
-        let bytes = std::fs::read(&path).ok()?;
-        let dataset = read_dataset(&path, &rel, None).ok()?;
+        let bytes = side.derived.get(&rel)?.clone();
+        let dataset = read_dataset(&side.dir.join(&rel), &bytes, &rel, None).ok()?;
         return Some((
             PreparedInput {
                 sha256: sha256_hex(&bytes),
@@ -154,7 +208,13 @@ fn measured(side: &Side, t: &PreparedTest) -> Option<(PreparedInput, Vec<u8>)> {
         ));
     }
     let m = t.measured.clone()?;
-    let bytes = std::fs::read(side.campaign.dir.join(&m.rel)).unwrap_or_default();
+    let bytes = side
+        .prepared
+        .inputs
+        .iter()
+        .find(|f| f.rel == m.rel)?
+        .bytes
+        .to_vec();
     Some((m, bytes))
 }
 
@@ -245,16 +305,12 @@ pub fn compare(
         files.entry(rel.clone()).or_insert_with(|| InputFile {
             sha256: sha256_hex(&bytes),
             rel,
-            bytes,
+            bytes: bytes.into(),
         });
     };
     for (side, s) in [("a", &a), ("b", &b)] {
-        for f in ["results.json", "manifest.sha256"] {
-            add_file(
-                format!("{side}/{f}"),
-                std::fs::read(s.dir.join(f)).unwrap_or_default(),
-            );
-        }
+        add_file(format!("{side}/results.json"), s.results_bytes.clone());
+        add_file(format!("{side}/manifest.sha256"), s.manifest_bytes.clone());
     }
     add_file("b/campaign.yaml".into(), b.campaign.bytes.clone());
     let mut tests = Vec::new();

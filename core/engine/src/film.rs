@@ -17,7 +17,8 @@ use crate::campaign::{Campaign, InputSpec, Machine, Pos, TestSpec};
 use crate::campaign_film::FilmSpec;
 use crate::checksum::sha256_hex;
 use crate::diag::Diagnostic;
-use crate::prepare::{InputFile, input_bytes, register};
+use crate::input_store::InputStore;
+use crate::prepare::input_bytes;
 use crate::readers::film_scan;
 
 /// Format tag of a calibration file.
@@ -173,15 +174,12 @@ fn read_scan(
     machine: &Machine,
     spec: &InputSpec,
     pixel_mm: Option<f64>,
-    files: &mut BTreeMap<String, InputFile>,
+    files: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
 ) -> Option<(RgbScan, String, String)> {
-    let (rel, path, bytes) = input_bytes(campaign, machine, spec, diags)?;
-    match film_scan::read(&path, &bytes, &rel, pixel_mm) {
-        Ok(s) => {
-            let sha = register(files, &rel, bytes);
-            Some((s, rel, sha))
-        }
+    let (rel, path, file) = input_bytes(campaign, machine, spec, files, diags)?;
+    match film_scan::read(&path, &file.bytes, &rel, pixel_mm) {
+        Ok(s) => Some((s, rel, file.sha256)),
         Err(d) => {
             diags.push(d);
             None
@@ -202,7 +200,7 @@ pub fn prepare_film(
     spec: &TestSpec,
     film: &FilmSpec,
     calibration_lots: &BTreeMap<String, String>,
-    files: &mut BTreeMap<String, InputFile>,
+    files: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
 ) -> Option<PreparedFilm> {
     let at = |pos: Pos, msg: String| Diagnostic::at(&campaign.path, pos.line, pos.column, msg);
@@ -279,8 +277,8 @@ pub fn prepare_film(
                 }
             },
             (None, Some(cf)) => {
-                let (rel, _, bytes) = input_bytes(campaign, machine, cf, diags)?;
-                let c = match read_calibration(&bytes) {
+                let (rel, _, file) = input_bytes(campaign, machine, cf, files, diags)?;
+                let c = match read_calibration(&file.bytes) {
                     Ok(c) => c,
                     Err(e) => {
                         diags.push(at(cf.pos, format!("calibration file `{rel}`: {e}")));
@@ -294,8 +292,7 @@ pub fn prepare_film(
                     );
                     return None;
                 }
-                let sha = register(files, &rel, bytes);
-                used.push(("film calibration", rel, sha));
+                used.push(("film calibration", rel, file.sha256));
                 CalibrationSource::File(Box::new(c))
             }
             // The decoder requires one of the two.

@@ -8,6 +8,7 @@ pub mod checksum;
 pub mod compare;
 pub mod diag;
 pub mod film;
+pub mod input_store;
 pub mod mu_input;
 pub mod output;
 pub mod prepare;

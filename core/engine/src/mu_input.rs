@@ -11,7 +11,6 @@
 //! x_b = x_g cos c + y_g sin c, y_b = -x_g sin c + y_g cos c, projected to the isocentre plane
 //! by SAD / SPD.
 
-use std::collections::BTreeMap;
 use std::path::Path;
 
 use beamproof_api::mu::{BeamData, Leaves, MuBeam, MuInput, MuSetup};
@@ -19,7 +18,8 @@ use beamproof_api::{BeamInfo, DatasetData};
 
 use crate::campaign::{Campaign, InputSpec, Machine, MuSpec};
 use crate::diag::Diagnostic;
-use crate::prepare::{InputFile, clean_relative};
+use crate::input_store::{InputFile, InputStore};
+use crate::prepare::input_at;
 use crate::readers::rtplan::{Plan, PlanBeam, read_plan};
 use crate::readers::{beam_data, read_dataset};
 
@@ -35,35 +35,21 @@ pub struct PreparedMu {
     pub files: Vec<(&'static str, String, String)>,
 }
 
-/// Resolve and read one file of the `mu:` block: relative path inside the campaign folder.
+/// Read one file of the `mu:` block through the store (once, whichever test names it).
 fn file(
     campaign: &Campaign,
     machine: &Machine,
     spec: &InputSpec,
     extra: &[(&str, String)],
     what: &str,
+    store: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
-) -> Option<(String, std::path::PathBuf)> {
+) -> Option<(String, std::path::PathBuf, InputFile)> {
     let mut written = spec.path_for(&machine.id);
     for (k, v) in extra {
         written = written.replace(k, v);
     }
-    let at = |m: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, m);
-    let Some(rel) = clean_relative(&written) else {
-        diags.push(at(format!("{what} path `{written}` leaves the campaign folder")).help(
-            "give paths relative to the campaign file, without `..`, so the run folder can keep a copy",
-        ));
-        return None;
-    };
-    let path = campaign.resolve(&rel);
-    if !path.is_file() {
-        diags.push(
-            at(format!("{what} `{rel}` cannot be read: it does not exist"))
-                .help(format!("expected at {}", path.display())),
-        );
-        return None;
-    }
-    Some((rel, path))
+    input_at(campaign, machine, spec, &written, what, store, diags)
 }
 
 /// Prepare the `mu:` block of a test for one machine; problems go to `diags`.
@@ -72,19 +58,20 @@ pub fn prepare_mu(
     machine: &Machine,
     spec: &MuSpec,
     beam: Option<&BeamInfo>,
-    files: &mut BTreeMap<String, InputFile>,
+    files: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
 ) -> Option<PreparedMu> {
     let mut read_files = Vec::new();
-    let (rel, path) = file(
+    let (rel, _, beam_data_file) = file(
         campaign,
         machine,
         &spec.beam_data,
         &[],
         "beam-data file",
+        files,
         diags,
     )?;
-    let loaded = match beam_data::read(&path, &rel) {
+    let loaded = match beam_data::read(files, &rel) {
         Ok(b) => b,
         Err(mut e) => {
             diags.append(&mut e);
@@ -137,34 +124,24 @@ pub fn prepare_mu(
         );
         return None;
     }
-    let bytes = std::fs::read(&path).unwrap_or_default();
-    read_files.push((
-        "beam-data",
-        rel.clone(),
-        crate::prepare::register(files, &rel, bytes),
-    ));
-    for (t_rel, t_bytes) in loaded.tables {
-        let sha = crate::prepare::register(files, &t_rel, t_bytes);
+    read_files.push(("beam-data", rel.clone(), beam_data_file.sha256));
+    for (t_rel, sha) in loaded.tables {
         read_files.push(("beam-data table", t_rel, sha));
     }
     let data = loaded.data;
     let (beams, plan_label) = match &spec.plan {
         None => (written_beams(spec, &data), None),
         Some(plan_spec) => {
-            let (prel, ppath) = file(campaign, machine, plan_spec, &[], "plan", diags)?;
-            let plan = match read_plan(&ppath) {
+            let (prel, ppath, plan_file) =
+                file(campaign, machine, plan_spec, &[], "plan", files, diags)?;
+            let plan = match read_plan(&ppath, &plan_file.bytes) {
                 Ok(p) => p,
                 Err(d) => {
                     diags.push(d);
                     return None;
                 }
             };
-            let bytes = std::fs::read(&ppath).unwrap_or_default();
-            read_files.push((
-                "plan",
-                prel.clone(),
-                crate::prepare::register(files, &prel, bytes),
-            ));
+            read_files.push(("plan", prel.clone(), plan_file.sha256));
             let mut beams = match plan_beams(&plan, &prel, spec.point_mm, &data) {
                 Ok(b) => b,
                 Err(m) => {
@@ -183,15 +160,21 @@ pub fn prepare_mu(
             if let Some(ds) = &spec.beam_doses {
                 for (b, pb) in beams.iter_mut().zip(&plan.beams) {
                     let number = pb.number.to_string();
-                    let (drel, dpath) = file(
+                    let (drel, dpath, dose_file) = file(
                         campaign,
                         machine,
                         ds,
                         &[("{beam}", number.clone())],
                         "beam dose",
+                        files,
                         diags,
                     )?;
-                    let dataset = match read_dataset(&dpath, &drel, ds.placement.as_ref()) {
+                    let dataset = match read_dataset(
+                        &dpath,
+                        &dose_file.bytes,
+                        &drel,
+                        ds.placement.as_ref(),
+                    ) {
                         Ok(d) => d,
                         Err(d) => {
                             diags.push(d);
@@ -225,12 +208,7 @@ pub fn prepare_mu(
                             return None;
                         }
                     }
-                    let bytes = std::fs::read(&dpath).unwrap_or_default();
-                    read_files.push((
-                        "beam dose",
-                        drel.clone(),
-                        crate::prepare::register(files, &drel, bytes),
-                    ));
+                    read_files.push(("beam dose", drel.clone(), dose_file.sha256));
                 }
             }
             (beams, Some(plan.label.clone()))
@@ -418,8 +396,11 @@ pub fn standalone(
             .map(|n| n.to_string_lossy().into_owned())
             .unwrap_or_default()
     };
-    let data = beam_data::read(beam_data_path, &name(beam_data_path))?.data;
-    let plan = read_plan(plan_path).map_err(|d| vec![d])?;
+    let folder = beam_data_path.parent().unwrap_or(Path::new(""));
+    let mut store = InputStore::new(folder, crate::input_store::DEFAULT_MAX_INPUT_BYTES);
+    let data = beam_data::read(&mut store, &name(beam_data_path))?.data;
+    let plan_bytes = crate::readers::read_file(plan_path).map_err(|d| vec![d])?;
+    let plan = read_plan(plan_path, &plan_bytes).map_err(|d| vec![d])?;
     let beams = plan_beams(&plan, &name(plan_path), point_mm, &data).map_err(|m| {
         vec![Diagnostic::file(plan_path, m).help(
             "check only static photon beams; dynamic and electron beams are outside this check",

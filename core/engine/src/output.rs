@@ -91,7 +91,7 @@ fn fill(
         prepared
             .inputs
             .iter()
-            .map(|i| (format!("{INPUTS_DIR}/{}", i.rel), i.bytes.as_slice())),
+            .map(|i| (format!("{INPUTS_DIR}/{}", i.rel), &*i.bytes)),
     );
     files.extend(
         products

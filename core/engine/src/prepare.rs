@@ -10,19 +10,11 @@ use beamproof_api::{
 };
 
 use crate::campaign::{AnalysisSpec, Campaign, InputSpec, Machine, Pos, TestSpec};
-use crate::checksum::sha256_hex;
 use crate::diag::{Diagnostic, did_you_mean, nearest};
+pub use crate::input_store::InputFile;
+use crate::input_store::{InputStore, ReadError};
 use crate::readers::read_dataset;
 use crate::registry::Registry;
-
-/// An input file as the run folder will hold it.
-#[derive(Debug, Clone, PartialEq)]
-pub struct InputFile {
-    /// Path relative to the campaign folder, `/`-separated.
-    pub rel: String,
-    pub bytes: Vec<u8>,
-    pub sha256: String,
-}
 
 /// A dataset ready for analysis, with the file it came from.
 #[derive(Debug, Clone, PartialEq)]
@@ -67,6 +59,21 @@ pub struct Prepared {
     pub templates: Option<String>,
 }
 
+impl Prepared {
+    /// The campaign's report template folder as read once (campaign-relative folder; each
+    /// file's path inside the folder and its bytes), for the renderer.
+    pub fn template_files(&self) -> Option<(&str, BTreeMap<String, &[u8]>)> {
+        let dir = self.templates.as_deref()?;
+        let prefix = format!("{dir}/");
+        let files = self
+            .inputs
+            .iter()
+            .filter_map(|f| Some((f.rel.strip_prefix(&prefix)?.to_string(), &*f.bytes)))
+            .collect();
+        Some((dir, files))
+    }
+}
+
 /// Which machine to run: the one named, or the only one.
 pub fn choose_machine<'c>(
     campaign: &'c Campaign,
@@ -97,15 +104,17 @@ pub fn choose_machine<'c>(
     }
 }
 
-/// Check and read everything for `machine`. Returns every problem found.
+/// Check and read everything for `machine`, each input file once and at most `max_input_bytes`
+/// long. Returns every problem found.
 pub fn prepare(
     campaign: &Campaign,
     registry: &Registry,
     machine: &Machine,
+    max_input_bytes: u64,
 ) -> Result<Prepared, Vec<Diagnostic>> {
     let mut diags = Vec::new();
     let mut tests = Vec::new();
-    let mut files: BTreeMap<String, InputFile> = BTreeMap::new();
+    let mut files = InputStore::new(&campaign.dir, max_input_bytes);
     // Film-calibration tests met so far for this machine, with their film lot.
     let mut calibration_lots: BTreeMap<String, String> = BTreeMap::new();
     let at = |pos: Pos, msg: String| Diagnostic::at(&campaign.path, pos.line, pos.column, msg);
@@ -218,7 +227,7 @@ pub fn prepare(
         Ok(Prepared {
             machine: machine.clone(),
             tests,
-            inputs: files.into_values().collect(),
+            inputs: files.into_files(),
             templates,
         })
     } else {
@@ -412,78 +421,89 @@ pub(crate) fn clean_relative(p: &str) -> Option<String> {
     (!parts.is_empty()).then(|| parts.join("/"))
 }
 
-/// Read an input file named in the campaign: its path relative to the campaign folder, its
-/// full path and its bytes (not yet registered as an input of the run).
+/// Read an input file named in the campaign through the store: its path relative to the
+/// campaign folder, its full path (for messages) and the file as read once.
 pub(crate) fn input_bytes(
     campaign: &Campaign,
     machine: &Machine,
     spec: &InputSpec,
+    store: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
-) -> Option<(String, std::path::PathBuf, Vec<u8>)> {
+) -> Option<(String, std::path::PathBuf, InputFile)> {
     let written = spec.path_for(&machine.id);
+    input_at(
+        campaign,
+        machine,
+        spec,
+        &written,
+        "input file",
+        store,
+        diags,
+    )
+}
+
+/// Read the campaign-relative file `written` (named by `spec`) through the store; a problem
+/// is reported at `spec`'s place and called `what`.
+pub(crate) fn input_at(
+    campaign: &Campaign,
+    machine: &Machine,
+    spec: &InputSpec,
+    written: &str,
+    what: &str,
+    store: &mut InputStore,
+    diags: &mut Vec<Diagnostic>,
+) -> Option<(String, std::path::PathBuf, InputFile)> {
     let at = |msg: String| Diagnostic::at(&campaign.path, spec.pos.line, spec.pos.column, msg);
-    let Some(rel) = clean_relative(&written) else {
-        diags.push(at(format!("input path `{written}` leaves the campaign folder"))
+    if let Err(e) = crate::input_store::check_name(written) {
+        diags.push(
+            at(format!(
+                "{what} `{}` cannot be used: {e}",
+                written.escape_debug()
+            ))
+            .help(e.help()),
+        );
+        return None;
+    }
+    let Some(rel) = clean_relative(written) else {
+        diags.push(at(format!("{what} path `{written}` leaves the campaign folder"))
             .help("give paths relative to the campaign file, without `..`, so the run folder can keep a copy of every input"));
         return None;
     };
     let path = campaign.resolve(&rel);
-    match std::fs::read(&path) {
-        Ok(b) => Some((rel, path, b)),
+    match store.read(&rel) {
+        Ok(f) => Some((rel, path, f)),
         Err(e) => {
             let for_machine = if spec.template.contains("{machine}") {
                 format!(" (for machine `{}`)", machine.id)
             } else {
                 String::new()
             };
-            let why = match e.kind() {
-                std::io::ErrorKind::NotFound => "it does not exist".to_string(),
-                _ => e.to_string(),
-            };
             diags.push(
-                at(format!(
-                    "input file `{rel}`{for_machine} cannot be read: {why}"
-                ))
-                .help(format!("expected at {}", path.display())),
+                at(format!("{what} `{rel}`{for_machine} cannot be read: {e}")).help(match e {
+                    ReadError::NotFound => format!("expected at {}", path.display()),
+                    _ => format!("{} ({})", e.help(), path.display()),
+                }),
             );
             None
         }
     }
 }
 
-/// Keep an input file for the run folder (once, whichever test names it); its SHA-256.
-pub(crate) fn register(
-    files: &mut BTreeMap<String, InputFile>,
-    rel: &str,
-    bytes: Vec<u8>,
-) -> String {
-    let sha256 = sha256_hex(&bytes);
-    files.entry(rel.to_string()).or_insert_with(|| InputFile {
-        rel: rel.to_string(),
-        sha256: sha256.clone(),
-        bytes,
-    });
-    sha256
-}
-
 fn input(
     campaign: &Campaign,
     machine: &Machine,
     spec: Option<&InputSpec>,
-    files: &mut BTreeMap<String, InputFile>,
+    files: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
 ) -> Option<PreparedInput> {
     let spec = spec?;
-    let (rel, path, bytes) = input_bytes(campaign, machine, spec, diags)?;
-    match read_dataset(&path, &rel, spec.placement.as_ref()) {
-        Ok(dataset) => {
-            let sha256 = register(files, &rel, bytes);
-            Some(PreparedInput {
-                rel,
-                sha256,
-                dataset,
-            })
-        }
+    let (rel, path, file) = input_bytes(campaign, machine, spec, files, diags)?;
+    match read_dataset(&path, &file.bytes, &rel, spec.placement.as_ref()) {
+        Ok(dataset) => Some(PreparedInput {
+            rel,
+            sha256: file.sha256,
+            dataset,
+        }),
         Err(d) => {
             diags.push(d);
             None
@@ -494,11 +514,13 @@ fn input(
 /// File name of the main template in a report template folder (the report crate reads it).
 pub const TEMPLATE_MAIN: &str = "report.typ.hbs";
 
-/// The campaign's report template folder: every file in it becomes an input (copied into the
-/// run folder and checksummed), so a run records exactly which templates made its report.
+/// The campaign's report template folder: every file in it becomes an input (read once through
+/// the store, copied into the run folder and checksummed), and the report is rendered from
+/// those bytes, so a run records exactly which templates made its report. Links and special
+/// files in the folder meet the same rules as every other input.
 fn template_folder(
     campaign: &Campaign,
-    files: &mut BTreeMap<String, InputFile>,
+    files: &mut InputStore,
     diags: &mut Vec<Diagnostic>,
 ) -> Option<String> {
     let (written, pos) = campaign.templates.as_ref()?;
@@ -512,15 +534,17 @@ fn template_folder(
         return None;
     };
     let dir = campaign.resolve(&rel);
-    if !dir.join(TEMPLATE_MAIN).is_file() {
+    if !dir.is_dir() {
         diags.push(
-            at(format!("template folder `{rel}` has no {TEMPLATE_MAIN}")).help(format!(
-                "expected {}; copy templates/{TEMPLATE_MAIN} from beamproof as a starting point",
-                dir.join(TEMPLATE_MAIN).display()
+            at(format!("template folder `{rel}` is not a folder")).help(format!(
+                "expected a folder at {} holding {TEMPLATE_MAIN}",
+                dir.display()
             )),
         );
         return None;
     }
+    let before = diags.len();
+    let mut main_found = false;
     for entry in walkdir::WalkDir::new(&dir).sort_by_file_name() {
         let entry = match entry {
             Ok(e) => e,
@@ -529,25 +553,46 @@ fn template_folder(
                 return None;
             }
         };
-        if !entry.file_type().is_file() {
+        if entry.file_type().is_dir() {
             continue;
         }
-        let inner = crate::checksum::relative_slash(&dir, entry.path());
+        let Some(inner) = entry
+            .path()
+            .strip_prefix(&dir)
+            .ok()
+            .and_then(|p| p.to_str())
+            .map(|p| p.replace(std::path::MAIN_SEPARATOR, "/"))
+        else {
+            diags.push(
+                at(format!(
+                    "template file name `{}` is not UTF-8 text",
+                    entry.path().display()
+                ))
+                .help("rename the file with UTF-8 characters"),
+            );
+            continue;
+        };
         let file_rel = format!("{rel}/{inner}");
-        match std::fs::read(entry.path()) {
-            Ok(bytes) => {
-                files.entry(file_rel.clone()).or_insert_with(|| InputFile {
-                    rel: file_rel,
-                    sha256: sha256_hex(&bytes),
-                    bytes,
-                });
-            }
-            Err(e) => diags.push(at(format!(
-                "template file `{file_rel}` cannot be read: {e}"
-            ))),
+        match files.read(&file_rel) {
+            Ok(_) => main_found |= inner == TEMPLATE_MAIN,
+            Err(e) => diags.push(
+                at(format!(
+                    "template file `{}` cannot be read: {e}",
+                    file_rel.escape_debug()
+                ))
+                .help(e.help()),
+            ),
         }
     }
-    Some(rel)
+    if !main_found && diags.len() == before {
+        diags.push(
+            at(format!("template folder `{rel}` has no {TEMPLATE_MAIN}")).help(format!(
+                "expected {}; copy templates/{TEMPLATE_MAIN} from beamproof as a starting point",
+                dir.join(TEMPLATE_MAIN).display()
+            )),
+        );
+    }
+    (diags.len() == before).then_some(rel)
 }
 
 /// The data shapes each test kind takes, checked before any analysis runs.

@@ -26,7 +26,13 @@ fn built_ins() -> Vec<Box<dyn Analysis>> {
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub enum Origin {
     BuiltIn,
-    Dynamic { path: PathBuf, sha256: String },
+    /// A library loaded from `path`: exactly the bytes read there (`sha256` is theirs); the
+    /// run folder keeps these bytes.
+    Dynamic {
+        path: PathBuf,
+        sha256: String,
+        bytes: std::sync::Arc<[u8]>,
+    },
 }
 
 enum Imp {
@@ -104,7 +110,7 @@ impl Registry {
                 .sort_by_file_name()
                 .into_iter()
                 .filter_map(Result::ok)
-                .filter(|e| e.file_type().is_file())
+                .filter(|e| e.file_type().is_file() || e.file_type().is_symlink())
                 .map(|e| e.into_path())
                 .filter(|p| p.to_string_lossy().ends_with(std::env::consts::DLL_SUFFIX))
                 .collect();
@@ -173,18 +179,16 @@ impl Registry {
 /// Load one dynamic plugin and check its ABI before using anything else in it.
 pub fn load(path: &Path) -> Result<Plugin, Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    let bytes = std::fs::read(path).map_err(|e| {
-        fail(
-            format!("cannot read plugin: {e}"),
-            "check the file's permissions",
-        )
-    })?;
+    let bytes: std::sync::Arc<[u8]> =
+        crate::input_store::read_regular(path, crate::input_store::DEFAULT_MAX_INPUT_BYTES)
+            .map_err(|e| fail(format!("cannot read plugin: {e}"), e.help()))?
+            .into();
     let sha256 = crate::checksum::sha256_hex(&bytes);
-    // SAFETY: loading a library runs its initialisers; plugins come only from folders the user
-    // named, which is the trust decision of installing a plugin.
-    let lib = unsafe { libloading::Library::new(path) }.map_err(|e| {
+    // The library is loaded from a private copy of the bytes just hashed, so the code that
+    // runs is the code the run folder keeps, even if the file changes meanwhile.
+    let lib = load_private_copy(path, &bytes).map_err(|e| {
         fail(
-            format!("cannot load plugin: {}", error_chain(&e)),
+            format!("cannot load plugin: {e}"),
             "the file must be a beamproof plugin built for this platform",
         )
     })?;
@@ -256,7 +260,45 @@ pub fn load(path: &Path) -> Result<Plugin, Diagnostic> {
         origin: Origin::Dynamic {
             path: path.to_path_buf(),
             sha256,
+            bytes,
         },
         imp: Imp::Dynamic(desc),
     })
+}
+
+/// Write `bytes` into a new owner-only folder, load the library from there and remove the copy
+/// (the loaded image stays mapped).
+fn load_private_copy(path: &Path, bytes: &[u8]) -> Result<libloading::Library, String> {
+    use std::sync::atomic::{AtomicUsize, Ordering};
+    static NEXT: AtomicUsize = AtomicUsize::new(0);
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| format!("plugin{}", std::env::consts::DLL_SUFFIX));
+    let dir = loop {
+        let n = NEXT.fetch_add(1, Ordering::Relaxed);
+        let dir = std::env::temp_dir().join(format!("beamproof-plugin-{}-{n}", std::process::id()));
+        let mut builder = std::fs::DirBuilder::new();
+        #[cfg(unix)]
+        std::os::unix::fs::DirBuilderExt::mode(&mut builder, 0o700);
+        match builder.create(&dir) {
+            Ok(()) => break dir,
+            Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => continue,
+            Err(e) => return Err(format!("cannot make a private copy: {e}")),
+        }
+    };
+    let copy = dir.join(name);
+    let written = std::fs::File::create_new(&copy).and_then(|mut f| {
+        use std::io::Write as _;
+        f.write_all(bytes)?;
+        f.sync_all()
+    });
+    // SAFETY: loading a library runs its initialisers; plugins come only from folders the user
+    // named, which is the trust decision of installing a plugin.
+    let loaded = written
+        .map_err(|e| format!("cannot make a private copy: {e}"))
+        .and_then(|()| unsafe { libloading::Library::new(&copy) }.map_err(|e| error_chain(&e)));
+    let _ = std::fs::remove_file(&copy);
+    let _ = std::fs::remove_dir(&dir);
+    loaded
 }

@@ -264,10 +264,13 @@ pub fn run(
     // evidence holds the very code that analysed (its checksum is in the plugin list too).
     let mut dynamic_dir = None;
     for p in registry.plugins() {
-        if let Origin::Dynamic { path, .. } = &p.origin
-            && let (Some(name), Ok(bytes)) = (path.file_name(), std::fs::read(path))
+        if let Origin::Dynamic { path, bytes, .. } = &p.origin
+            && let Some(name) = path.file_name()
         {
-            product_files.push((format!("{PLUGINS_DIR}/{}", name.to_string_lossy()), bytes));
+            product_files.push((
+                format!("{PLUGINS_DIR}/{}", name.to_string_lossy()),
+                bytes.to_vec(),
+            ));
             dynamic_dir = Some(PLUGINS_DIR);
         }
     }

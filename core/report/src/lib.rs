@@ -7,6 +7,7 @@ mod plot;
 mod typeset;
 mod view;
 
+use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 pub use view::fixed;
@@ -65,10 +66,20 @@ pub const SUMMARY_FILE: &str = "summary.html.hbs";
 /// The built-in HTML summary template.
 pub const BUILT_IN_SUMMARY: &str = include_str!("../../../templates/summary.html.hbs");
 
+/// A campaign's report template folder as the engine read it, once: the path of each file
+/// inside the folder and its bytes. The report never reads template files from disk, so the
+/// report is made from exactly the bytes the run checksummed.
+#[derive(Debug, Clone, Copy)]
+pub struct TemplateFolder<'a> {
+    /// How messages name the folder (for example its path on disk).
+    pub name: &'a str,
+    pub files: &'a BTreeMap<String, &'a [u8]>,
+}
+
 /// The template text and the name errors refer to: the folder's own file, else the built-in
 /// one (the report template is required in a folder; the HTML summary template is optional).
 fn template(
-    dir: Option<&Path>,
+    dir: Option<TemplateFolder<'_>>,
     file: &str,
     built_in: &str,
     required: bool,
@@ -77,20 +88,27 @@ fn template(
     match dir {
         None => Ok(built()),
         Some(d) => {
-            let path = d.join(file);
-            if !required && !path.exists() {
-                return Ok(built());
-            }
-            let text = std::fs::read_to_string(&path).map_err(|e| ReportError::TemplateRead {
-                path: path.clone(),
-                message: e.to_string(),
-            })?;
+            let path = Path::new(d.name).join(file);
+            let Some(bytes) = d.files.get(file) else {
+                if !required {
+                    return Ok(built());
+                }
+                return Err(ReportError::TemplateRead {
+                    path,
+                    message: "the folder has no such file".into(),
+                });
+            };
+            let text =
+                String::from_utf8(bytes.to_vec()).map_err(|e| ReportError::TemplateRead {
+                    path: path.clone(),
+                    message: format!("not UTF-8 text: {e}"),
+                })?;
             Ok((text, path.display().to_string()))
         }
     }
 }
 
-fn report_template(dir: Option<&Path>) -> Result<(String, String), ReportError> {
+fn report_template(dir: Option<TemplateFolder<'_>>) -> Result<(String, String), ReportError> {
     template(dir, TEMPLATE_FILE, BUILT_IN_TEMPLATE, true)
 }
 
@@ -128,7 +146,10 @@ fn render_view(
 }
 
 /// Render the typst source for a run (exposed for tests and for template authors).
-pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
+pub fn render_source(
+    results_json: &[u8],
+    templates: Option<TemplateFolder<'_>>,
+) -> Result<String, ReportError> {
     render_view(
         &prepare(results_json)?.0,
         report_template(templates)?,
@@ -138,7 +159,10 @@ pub fn render_source(results_json: &[u8], templates: Option<&Path>) -> Result<St
 
 /// Render the self-contained HTML summary of a run (same data as the PDF, HTML-escaped,
 /// figures as inline SVG).
-pub fn render_html(results_json: &[u8], templates: Option<&Path>) -> Result<String, ReportError> {
+pub fn render_html(
+    results_json: &[u8],
+    templates: Option<TemplateFolder<'_>>,
+) -> Result<String, ReportError> {
     render_view(
         &prepare(results_json)?.0,
         template(templates, SUMMARY_FILE, BUILT_IN_SUMMARY, false)?,
@@ -148,11 +172,18 @@ pub fn render_html(results_json: &[u8], templates: Option<&Path>) -> Result<Stri
 
 /// Render the report PDF for a run. Figures are drawn to SVG and offered to typst as the
 /// files `/fig/<n>.svg`.
-pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u8>, ReportError> {
+pub fn render_pdf(
+    results_json: &[u8],
+    templates: Option<TemplateFolder<'_>>,
+) -> Result<Vec<u8>, ReportError> {
     let (data, svgs) = prepare(results_json)?;
     let source = render_view(&data, report_template(templates)?, escape_markup)?;
-    let mut files = match templates {
-        Some(dir) => template_assets(dir)?,
+    let mut files: Vec<(String, Vec<u8>)> = match templates {
+        Some(dir) => dir
+            .files
+            .iter()
+            .map(|(name, bytes)| (name.clone(), bytes.to_vec()))
+            .collect(),
         None => Vec::new(),
     };
     files.extend(
@@ -189,36 +220,6 @@ pub fn render_pdf(results_json: &[u8], templates: Option<&Path>) -> Result<Vec<u
             source_line: p.source_line.trim().to_string(),
         }
     })
-}
-
-/// Every file of a template folder, by its path inside the folder, so that a template can
-/// use its own images (`image("logo.svg")`). The names `fig/<n>.svg` are the report's figures
-/// and take precedence.
-fn template_assets(dir: &Path) -> Result<Vec<(String, Vec<u8>)>, ReportError> {
-    let mut out = Vec::new();
-    for entry in walkdir::WalkDir::new(dir).sort_by_file_name() {
-        let entry = entry.map_err(|e| ReportError::TemplateRead {
-            path: dir.to_path_buf(),
-            message: e.to_string(),
-        })?;
-        if !entry.file_type().is_file() {
-            continue;
-        }
-        let rel = entry
-            .path()
-            .strip_prefix(dir)
-            .unwrap_or(entry.path())
-            .components()
-            .map(|c| c.as_os_str().to_string_lossy())
-            .collect::<Vec<_>>()
-            .join("/");
-        let bytes = std::fs::read(entry.path()).map_err(|e| ReportError::TemplateRead {
-            path: entry.path().to_path_buf(),
-            message: e.to_string(),
-        })?;
-        out.push((rel, bytes));
-    }
-    Ok(out)
 }
 
 /// Lower-case hex SHA-256.

@@ -9,6 +9,7 @@ use beamproof_api::mu::{BeamData, Table1, Table2, WedgeFactor};
 
 use crate::campaign::Decoder;
 use crate::diag::Diagnostic;
+use crate::input_store::InputStore;
 use crate::yaml::{Node, parse, parse_yaml_float};
 
 /// Format version this build reads.
@@ -32,11 +33,11 @@ pub const TABLE_KEYS: &[&str] = &["pdd", "tpr", "sc", "sp", "scp", "oar"];
 pub const WEDGE_KEYS: &[&str] = &["id", "factor"];
 
 /// A beam-data file read: the data and every table file (path relative to the campaign folder,
-/// bytes), so that the run folder can keep a copy.
+/// SHA-256 of the bytes read), all of them kept by the input store for the run folder.
 #[derive(Debug, Clone)]
 pub struct BeamDataFiles {
     pub data: BeamData,
-    pub tables: Vec<(String, Vec<u8>)>,
+    pub tables: Vec<(String, String)>,
 }
 
 /// What one table holds: its header's first cell and the plausible value range (the unit
@@ -78,15 +79,14 @@ const SCATTER: Kind = Kind {
     unit_help: "scatter factors are ratios, 1.000 at the reference field",
 };
 
-/// Read a beam-data file; `rel` is its path relative to the campaign folder (table paths are
-/// relative to the beam-data file and must stay inside the campaign folder).
-pub fn read(path: &Path, rel: &str) -> Result<BeamDataFiles, Vec<Diagnostic>> {
-    let bytes = std::fs::read(path).map_err(|e| {
-        vec![
-            Diagnostic::file(path, format!("cannot read the beam-data file: {e}"))
-                .help("check the `beam-data:` path of the test"),
-        ]
+/// Read a beam-data file through the input store; `rel` is its path relative to the store's
+/// folder (table paths are relative to the beam-data file and must stay inside that folder).
+pub fn read(store: &mut InputStore, rel: &str) -> Result<BeamDataFiles, Vec<Diagnostic>> {
+    let path = &store.path(rel);
+    let file = store.read(rel).map_err(|e| {
+        vec![Diagnostic::file(path, format!("cannot read the beam-data file: {e}")).help(e.help())]
     })?;
+    let bytes = file.bytes;
     let text = std::str::from_utf8(&bytes).map_err(|e| {
         vec![
             Diagnostic::file(path, format!("the beam-data file is not UTF-8 text: {e}"))
@@ -114,25 +114,26 @@ pub fn read(path: &Path, rel: &str) -> Result<BeamDataFiles, Vec<Diagnostic>> {
             ));
             return None;
         };
-        let table_path = path
-            .parent()
-            .unwrap_or(Path::new("."))
-            .join(written.as_str());
-        let bytes = match std::fs::read(&table_path) {
-            Ok(b) => b,
+        let table_path = store.path(&table_rel);
+        let file = match store.read(&table_rel) {
+            Ok(f) => f,
             Err(e) => {
                 diags.push(
                     at(format!(
                         "{} table `{written}` cannot be read: {e}",
                         kind.key
                     ))
-                    .help(format!("expected at {}", table_path.display())),
+                    .help(format!(
+                        "{}; expected at {}",
+                        e.help(),
+                        table_path.display()
+                    )),
                 );
                 return None;
             }
         };
-        let loaded = parse_table(&table_path, &bytes, kind);
-        tables.push((table_rel, bytes));
+        let loaded = parse_table(&table_path, &file.bytes, kind);
+        tables.push((table_rel, file.sha256));
         match loaded {
             Ok(t) => Some(t),
             Err(mut e) => {

@@ -14,9 +14,18 @@ use beamproof_api::Dataset;
 use crate::campaign::DicomPlacement;
 use crate::diag::Diagnostic;
 
-/// Read one input file. `source` is the path as the campaign names it (kept in the dataset).
+/// Read a file named outside a campaign (the one-off commands) once, as a regular file of at
+/// most the default input limit; the caller parses these bytes.
+pub fn read_file(path: &Path) -> Result<Vec<u8>, Diagnostic> {
+    crate::input_store::read_regular(path, crate::input_store::DEFAULT_MAX_INPUT_BYTES)
+        .map_err(|e| Diagnostic::file(path, format!("cannot read: {e}")).help(e.help()))
+}
+
+/// Parse one input file from its bytes. `path` names it in messages (nothing is read from
+/// disk); `source` is the path as the campaign names it (kept in the dataset).
 pub fn read_dataset(
     path: &Path,
+    bytes: &[u8],
     source: &str,
     placement: Option<&DicomPlacement>,
 ) -> Result<Dataset, Diagnostic> {
@@ -27,13 +36,13 @@ pub fn read_dataset(
         .unwrap_or_default();
     let (unit, data) = match ext.as_str() {
         "csv" => {
-            let text = std::fs::read_to_string(path).map_err(|e| {
-                Diagnostic::file(path, format!("cannot read: {e}"))
-                    .help("check that the file exists and is UTF-8 text")
+            let text = std::str::from_utf8(bytes).map_err(|e| {
+                Diagnostic::file(path, format!("not UTF-8 text: {e}"))
+                    .help("save the CSV file as UTF-8 text")
             })?;
-            csv_data::read(path, &text)?
+            csv_data::read(path, text)?
         }
-        "dcm" => rtdose::read(path, placement)?,
+        "dcm" => rtdose::read(path, bytes, placement)?,
         _ => {
             return Err(
                 Diagnostic::file(path, format!("unknown data file type `.{ext}`"))

@@ -40,47 +40,59 @@ pub struct RawDoseGrid {
     pub dose_gy: Vec<f64>,
 }
 
-/// Read an RT Dose file into its raw grid.
-pub fn read_raw(path: &Path) -> Result<RawDoseGrid, Diagnostic> {
+/// Parse the bytes of a DICOM Part 10 file (preamble, `DICM`, file meta group, data set):
+/// the object and its file meta's transfer syntax UID and SOP class UID. `path` only names the
+/// file in messages; nothing is read from disk.
+pub(crate) fn parse_part10(
+    path: &Path,
+    bytes: &[u8],
+    what: &str,
+) -> Result<(DefaultDicomObject, String, String), Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    // The transfer syntax is checked from the file meta group first, so an unsupported syntax
-    // gets a clear message instead of a decoder error.
-    let head = std::fs::read(path).map_err(|e| {
-        fail(
-            format!("cannot read: {e}"),
-            "check the path and permissions",
-        )
-    })?;
     let not_dicom = || {
         fail(
             "not a DICOM file (no `DICM` marker after the 128-byte preamble)".into(),
-            "give a DICOM Part 10 file as exported by the planning system",
+            &format!("give a DICOM Part 10 file as exported by the planning system ({what})"),
         )
     };
-    let meta = head
+    let rest = bytes
         .get(128..)
         .filter(|rest| rest.starts_with(b"DICM"))
-        .ok_or_else(not_dicom)
-        .and_then(|rest| {
-            dicom_object::meta::FileMetaTable::from_reader(rest).map_err(|_| not_dicom())
-        })?;
+        .ok_or_else(not_dicom)?;
+    let meta = dicom_object::meta::FileMetaTable::from_reader(rest).map_err(|_| not_dicom())?;
     let sop_class = meta
         .media_storage_sop_class_uid
         .trim_end_matches('\0')
         .to_string();
     let ts = meta.transfer_syntax().trim_end_matches('\0').to_string();
-    if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
-        return Err(fail(
-            format!("unsupported transfer syntax {ts}"),
-            "export the dose uncompressed as Implicit or Explicit VR Little Endian",
-        ));
+    let obj = dicom_object::OpenFileOptions::new()
+        .read_preamble(dicom_object::file::ReadPreamble::Never)
+        .from_reader(rest)
+        .map_err(|e| {
+            fail(
+                format!("cannot read as DICOM: {}", error_chain(&e)),
+                "the file is damaged or truncated; copy or export it again",
+            )
+        })?;
+    Ok((obj, ts, sop_class))
+}
+
+/// Read an RT Dose file, from its bytes, into its raw grid.
+pub fn read_raw(path: &Path, bytes: &[u8]) -> Result<RawDoseGrid, Diagnostic> {
+    let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
+    // The transfer syntax is checked from the file meta group first, so an unsupported syntax
+    // gets a clear message instead of a decoder error.
+    let rest = bytes.get(128..).filter(|rest| rest.starts_with(b"DICM"));
+    if let Some(meta) = rest.and_then(|r| dicom_object::meta::FileMetaTable::from_reader(r).ok()) {
+        let ts = meta.transfer_syntax().trim_end_matches('\0').to_string();
+        if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
+            return Err(fail(
+                format!("unsupported transfer syntax {ts}"),
+                "export the dose uncompressed as Implicit or Explicit VR Little Endian",
+            ));
+        }
     }
-    let obj: DefaultDicomObject = dicom_object::open_file(path).map_err(|e| {
-        fail(
-            format!("cannot read as DICOM: {}", error_chain(&e)),
-            "the file is damaged or truncated; copy or export it again",
-        )
-    })?;
+    let (obj, _, sop_class) = parse_part10(path, bytes, "RT Dose")?;
     if sop_class != RT_DOSE_STORAGE {
         let modality = text(&obj, tags::MODALITY).unwrap_or_else(|| "unknown".into());
         return Err(fail(
@@ -290,16 +302,17 @@ pub fn place(
     })
 }
 
-/// Read an RT Dose file and place it in IEC 61217 coordinates.
+/// Read an RT Dose file from its bytes and place it in IEC 61217 coordinates.
 pub fn read(
     path: &Path,
+    bytes: &[u8],
     placement: Option<&DicomPlacement>,
 ) -> Result<(DoseUnit, DatasetData), Diagnostic> {
     let placement = placement.ok_or_else(|| {
         Diagnostic::file(path, "a DICOM dose grid needs its placement")
             .help("write the input as `{file: ..., patient-position: HFS, isocentre-mm: [x, y, z]}` with the isocentre in the dose file's DICOM coordinates")
     })?;
-    let raw = read_raw(path)?;
+    let raw = read_raw(path, bytes)?;
     Ok((
         DoseUnit::Gy,
         DatasetData::Grid(place(path, &raw, placement)?),

@@ -10,7 +10,7 @@ use dicom_core::Tag;
 use dicom_dictionary_std::tags;
 use dicom_object::InMemDicomObject;
 
-use crate::diag::{Diagnostic, error_chain};
+use crate::diag::Diagnostic;
 
 /// SOP Class UID of RT Plan Storage.
 pub const RT_PLAN_STORAGE: &str = "1.2.840.10008.5.1.4.1.1.481.5";
@@ -77,20 +77,11 @@ fn items(obj: &InMemDicomObject, tag: Tag) -> &[InMemDicomObject] {
         .unwrap_or(&[])
 }
 
-/// Read an RT Plan; problems name the file and the beam.
-pub fn read_plan(path: &Path) -> Result<Plan, Diagnostic> {
+/// Read an RT Plan from the bytes of file `path` (named in messages, not read); problems name
+/// the file and the beam.
+pub fn read_plan(path: &Path, bytes: &[u8]) -> Result<Plan, Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
-    let obj = dicom_object::open_file(path).map_err(|e| {
-        fail(
-            format!("cannot read as DICOM: {}", error_chain(&e)),
-            "give the RT Plan exported by the planning system (a complete DICOM Part 10 file)",
-        )
-    })?;
-    let sop = obj
-        .meta()
-        .media_storage_sop_class_uid
-        .trim_end_matches('\0')
-        .to_string();
+    let (obj, _, sop) = crate::readers::rtdose::parse_part10(path, bytes, "RT Plan")?;
     if sop != RT_PLAN_STORAGE {
         return Err(fail(
             format!("not an RT Plan: SOP Class UID {sop}"),
