@@ -85,6 +85,11 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
     let o = cli(&["archive", "list", "--archive", arg(&dir)]);
     let lines: Vec<&str> = o.stdout.lines().collect();
     assert_eq!(lines.len(), 3);
+    assert!(
+        lines[0].contains("demo-6x-lin-a-2026-11-20  added 2026-11-23  verdict NO-GO  "),
+        "{}",
+        lines[0]
+    );
     // The third entry is the signed lin-b run: every file of its folder, signature included.
     let files = walkdir::WalkDir::new(&runs[1])
         .into_iter()
@@ -93,7 +98,7 @@ fn runs_are_archived_listed_and_exported_byte_for_byte() {
         .count();
     assert!(
         lines[2].contains(&format!(
-            "demo-6x-lin-b-2026-11-20  added 2026-11-24  {files} files, 1 signature(s)"
+            "demo-6x-lin-b-2026-11-20  added 2026-11-24  verdict GO  {files} files, 1 signature(s)"
         )),
         "{}",
         lines[2]
@@ -288,4 +293,22 @@ fn folders_that_are_not_archives_and_damaged_runs_are_refused() {
         o.stderr
     );
     assert!(!fresh.exists(), "nothing is created for a refused run");
+}
+
+#[cfg(unix)]
+#[test]
+fn a_run_folder_holding_a_symbolic_link_is_refused_not_partly_archived() {
+    let (run, _) = run_into_folder(&demo_copy("arch-link"), "lin-b");
+    let dir = scratch("arch-link-archive").join("archive");
+    std::os::unix::fs::symlink("../results.json", run.join("signatures-link")).expect("link");
+    let o = cli(&["archive", "add", arg(&run), "--archive", arg(&dir)]);
+    assert_eq!(o.code, 2, "{}", o.stdout);
+    assert!(
+        o.stderr.contains(
+            "signatures-link is a symbolic link or a special file; only regular files are archived"
+        ),
+        "{}",
+        o.stderr
+    );
+    assert!(!dir.join("ledger.jsonl").exists());
 }

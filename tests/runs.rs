@@ -140,7 +140,7 @@ fn verify_passes_then_names_every_changed_or_missing_file() {
     assert_eq!(o.code, 0, "{}", o.stdout);
     assert!(
         o.stdout
-            .ends_with(" files match the manifest\nno signatures\n"),
+            .ends_with(" files match the manifest\nrun verdict: NO-GO\nno signatures\n"),
         "{}",
         o.stdout
     );

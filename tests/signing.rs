@@ -87,10 +87,10 @@ fn two_signers_sign_and_verify_names_who_signed_what() {
     std::fs::copy(keys.join("ada.key.pub"), trusted.join("ada.pub")).expect("copy");
     let o = verify(&run, Some(&trusted));
     assert!(o.stdout.contains(
-        "signed: Ada Example (medical physicist) on 2026-11-21: \"I have reviewed this commissioning run and its report.\" [signatures/01-ada-example.sig; valid; trusted key]\n"
+        "signed: Ada Example (medical physicist) on 2026-11-21: \"I have reviewed this commissioning run and its report.\" [signatures/01-ada-example.sig; valid; trusted key; saw verdict GO]\n"
     ), "{}", o.stdout);
     assert!(o.stdout.contains(
-        "signed: Bo Chief (chief physicist) on 2026-11-22: \"Approved for clinical use.\" [signatures/02-bo-chief.sig; valid; UNKNOWN key (not in the trusted keys)]\n"
+        "signed: Bo Chief (chief physicist) on 2026-11-22: \"Approved for clinical use.\" [signatures/02-bo-chief.sig; valid; UNKNOWN key (not in the trusted keys); saw verdict GO]\n"
     ));
     assert_eq!(
         o.code, 3,
@@ -175,4 +175,177 @@ fn bad_keys_and_unverifiable_runs_are_refused() {
         o.stderr
     );
     assert!(!run.join("signatures").exists());
+}
+
+#[test]
+fn a_signature_names_the_holder_the_trusted_key_records_or_is_invalid() {
+    let (run, _) = run_into_folder(&demo_copy("sign-identity"), "lin-b");
+    let keys = scratch("sign-identity-keys");
+    let ada = keygen(&keys, "Ada Example", "medical physicist", "ada.key");
+    // Ada edits the name and role lines of her own secret key file and signs as the chief.
+    let text = std::fs::read_to_string(&ada).expect("key");
+    let forged = keys.join("forged.key");
+    std::fs::write(
+        &forged,
+        text.replace("name: Ada Example", "name: Bo Chief")
+            .replace("role: medical physicist", "role: chief physicist"),
+    )
+    .expect("write");
+    let o = cli(&[
+        "sign",
+        arg(&run),
+        "--key",
+        arg(&forged),
+        "--date",
+        "2026-11-21",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let trusted = scratch("sign-identity-trusted");
+    std::fs::copy(keys.join("ada.key.pub"), trusted.join("ada.pub")).expect("copy");
+    let o = verify(&run, Some(&trusted));
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout.contains("INVALID signature signatures/01-bo-chief.sig: it is signed as Bo Chief (chief physicist), but the trusted key file ada.pub records this key's holder as Ada Example (medical physicist)"),
+        "{}",
+        o.stdout
+    );
+    assert!(!o.stdout.contains("signed: Bo Chief"), "{}", o.stdout);
+    // One key recorded for two holders is refused as a trusted folder.
+    std::fs::write(
+        trusted.join("other.pub"),
+        std::fs::read_to_string(keys.join("ada.key.pub"))
+            .expect("pub")
+            .replace("Ada Example", "Someone Else"),
+    )
+    .expect("write");
+    let o = verify(&run, Some(&trusted));
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr.contains("record one key for two holders"),
+        "{}",
+        o.stderr
+    );
+}
+
+#[test]
+fn signing_a_no_go_run_needs_the_verdict_typed_and_records_it() {
+    let (run, o) = run_into_folder(&demo_copy("sign-no-go"), "lin-a");
+    assert_eq!(o.code, 1, "lin-a is NO-GO: {}", o.stderr);
+    let keys = scratch("sign-no-go-keys");
+    let ada = keygen(&keys, "Ada Example", "medical physicist", "ada.key");
+    let o = cli(&["sign", arg(&run), "--key", arg(&ada)]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr
+            .contains("the run's verdict is NO-GO; signing it needs an explicit acknowledgement")
+            && o.stderr.contains("--acknowledge-verdict \"NO-GO\""),
+        "{}",
+        o.stderr
+    );
+    let o = cli(&[
+        "sign",
+        arg(&run),
+        "--key",
+        arg(&ada),
+        "--acknowledge-verdict",
+        "GO",
+    ]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr.contains("does not match the run's verdict NO-GO"),
+        "{}",
+        o.stderr
+    );
+    assert!(!run.join("signatures").exists());
+    let o = cli(&[
+        "sign",
+        arg(&run),
+        "--key",
+        arg(&ada),
+        "--date",
+        "2026-11-21",
+        "--acknowledge-verdict",
+        "NO-GO",
+        "--statement",
+        "Reviewed; not for clinical use until the output is recalibrated.",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let o = verify(&run, None);
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(o.stdout.contains("run verdict: NO-GO\n"), "{}", o.stdout);
+    assert!(o.stdout.contains("; saw verdict NO-GO]"), "{}", o.stdout);
+}
+
+#[test]
+fn control_characters_are_refused_at_signing_and_never_printed_raw() {
+    let (run, _) = run_into_folder(&demo_copy("sign-control"), "lin-b");
+    let keys = scratch("sign-control-keys");
+    let ada = keygen(&keys, "Ada Example", "medical physicist", "ada.key");
+    // An escape sequence that would clear a terminal, and a carriage return that would
+    // overprint the line.
+    for statement in ["Approved\u{1b}[2J", "Approved\rRejected"] {
+        let o = cli(&[
+            "sign",
+            arg(&run),
+            "--key",
+            arg(&ada),
+            "--statement",
+            statement,
+        ]);
+        assert_eq!(o.code, 2, "{statement:?}");
+        assert!(!o.stderr.contains('\u{1b}'), "{}", o.stderr);
+    }
+    let o = cli(&[
+        "keygen",
+        "--name",
+        "A\u{7}B",
+        "--role",
+        "x",
+        "--out",
+        arg(&keys.join("bell.key")),
+    ]);
+    assert_eq!(o.code, 2);
+    assert!(!run.join("signatures").exists());
+}
+
+#[test]
+fn files_planted_in_a_run_folder_fail_verification_and_block_signing() {
+    let (run, _) = run_into_folder(&demo_copy("sign-planted"), "lin-b");
+    std::fs::write(run.join("inputs/data/extra.csv"), "planted\n").expect("plant");
+    let o = verify(&run, None);
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout
+            .contains("not covered by the manifest: inputs/data/extra.csv"),
+        "{}",
+        o.stdout
+    );
+    let keys = scratch("sign-planted-keys");
+    let ada = keygen(&keys, "Ada Example", "medical physicist", "ada.key");
+    let o = cli(&["sign", arg(&run), "--key", arg(&ada)]);
+    assert_eq!(o.code, 2);
+    assert!(
+        o.stderr
+            .contains("not covered by the manifest: inputs/data/extra.csv); it cannot be signed"),
+        "{}",
+        o.stderr
+    );
+    std::fs::remove_file(run.join("inputs/data/extra.csv")).expect("rm");
+    // A listed file replaced by a symbolic link to identical bytes is not the file signed.
+    #[cfg(unix)]
+    {
+        let results = run.join("results.json");
+        let copy = run.with_file_name("results-copy.json");
+        std::fs::copy(&results, &copy).expect("copy");
+        std::fs::remove_file(&results).expect("rm");
+        std::os::unix::fs::symlink(&copy, &results).expect("link");
+        let o = verify(&run, None);
+        assert_eq!(o.code, 3, "{}", o.stdout);
+        assert!(
+            o.stdout
+                .contains("not a regular file: results.json (a symbolic link)"),
+            "{}",
+            o.stdout
+        );
+    }
 }

@@ -122,6 +122,10 @@ enum Command {
         /// Signing date YYYY-MM-DD (default: today, UTC)
         #[arg(long)]
         date: Option<String>,
+        /// The run's verdict, typed to sign a run that is not GO (or MATCHED): the signature
+        /// records that the signer saw it, e.g. `--acknowledge-verdict NO-GO`
+        #[arg(long = "acknowledge-verdict")]
+        acknowledge_verdict: Option<String>,
     },
     /// Gamma comparison of two files outside a campaign (DICOM RT Dose or data CSV)
     Gamma(gamma_cmd::GammaArgs),
@@ -268,7 +272,15 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
             key,
             statement,
             date,
-        } => sign(io, &run_dir, &key, &statement, date),
+            acknowledge_verdict,
+        } => sign(
+            io,
+            &run_dir,
+            &key,
+            &statement,
+            date,
+            acknowledge_verdict.as_deref(),
+        ),
         Command::Gamma(args) => gamma_cmd::run(io, args),
         Command::Mu(args) => mu_cmd::run(io, args),
         Command::Plugins {
@@ -489,11 +501,10 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
     for f in &v.findings {
         outln!(io, "{f}");
     }
-    let sig_prefix = format!("{}/", signing::SIGNATURES_DIR);
-    for u in v.uncovered.iter().filter(|u| !u.starts_with(&sig_prefix)) {
-        outln!(io, "not covered by the manifest: {u}");
+    for u in v.planted() {
+        outln!(io, "not covered by the manifest: {}", signing::printable(u));
     }
-    let files_ok = v.findings.is_empty();
+    let files_ok = v.is_intact();
     if files_ok {
         outln!(
             io,
@@ -506,18 +517,43 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
             io,
             "{}: {} problem(s); {} files match",
             run_dir.display(),
-            v.findings.len(),
+            v.findings.len() + v.planted().count(),
             v.ok.len()
         );
     }
-    let checks = signing::verify_signatures(run_dir, trusted.as_deref());
+    let verdict = v
+        .files
+        .get("results.json")
+        .filter(|_| v.ok.iter().any(|o| o == "results.json"))
+        .and_then(|b| beamproof_engine::run::verdict_in(b));
+    outln!(
+        io,
+        "run verdict: {}",
+        verdict
+            .as_deref()
+            .unwrap_or("unknown (results.json missing or changed)")
+    );
+    let checks = signing::verify_signatures(&v.signatures(), &v.manifest, trusted.as_deref());
     let mut sig_ok = true;
     for (file, c) in &checks {
+        let file = signing::printable(file);
         match c {
             signing::SignatureCheck::Valid {
                 statement: s,
                 trusted,
             } => {
+                if let Some(seen) = &s.verdict
+                    && Some(seen) != verdict.as_ref()
+                {
+                    sig_ok = false;
+                    outln!(
+                        io,
+                        "INVALID signature {file}: it states the verdict {}, the run's is {}",
+                        signing::printable(seen),
+                        verdict.as_deref().unwrap_or("unknown")
+                    );
+                    continue;
+                }
                 if *trusted == Some(false) {
                     sig_ok = false;
                 }
@@ -526,13 +562,17 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
                     Some(false) => "UNKNOWN key (not in the trusted keys)",
                     None => "key not checked (no --trusted-keys)",
                 };
+                let seen = match &s.verdict {
+                    Some(v) => format!("; saw verdict {}", signing::printable(v)),
+                    None => String::new(),
+                };
                 outln!(
                     io,
-                    "signed: {} ({}) on {}: \"{}\" [{file}; valid; {key}]",
-                    s.name,
-                    s.role,
-                    s.date,
-                    s.statement
+                    "signed: {} ({}) on {}: \"{}\" [{file}; valid; {key}{seen}]",
+                    signing::printable(&s.name),
+                    signing::printable(&s.role),
+                    signing::printable(&s.date),
+                    signing::printable(&s.statement)
                 );
             }
             signing::SignatureCheck::Invalid { reason } => {
@@ -761,10 +801,11 @@ fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
                     .count();
                 outln!(
                     io,
-                    "{:>4}  {}  added {}  {} files, {} signature(s)  manifest {}",
+                    "{:>4}  {}  added {}  verdict {}  {} files, {} signature(s)  manifest {}",
                     e.seq,
                     e.run,
                     e.added,
+                    archive::verdict(&dir, e),
                     e.files.len(),
                     sigs,
                     &e.manifest_sha256[..16]
@@ -779,6 +820,7 @@ fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
             let e = archive::find(&dir, &id)
                 .map_err(|e| fail(e, "give an entry number or RUN#NUMBER from `archive list`"))?;
             outln!(io, "entry {} (run {}), added {}", e.seq, e.run, e.added);
+            outln!(io, "verdict {}", archive::verdict(&dir, &e));
             outln!(io, "manifest sha256 {}", e.manifest_sha256);
             outln!(io, "previous ledger line sha256 {}", e.prev);
             for f in &e.files {
@@ -843,6 +885,7 @@ fn sign(
     key: &Path,
     statement: &str,
     date: Option<String>,
+    acknowledge: Option<&str>,
 ) -> Result<u8, Failure> {
     let fail = |e: String, help: &str| Failure {
         text: format!("error: {e}\n  = help: {help}"),
@@ -857,28 +900,63 @@ fn sign(
             "write --date YYYY-MM-DD",
         ));
     }
-    // Only a run whose files all match its manifest can be signed.
+    // Only a run whose files all match its manifest, with nothing planted beside them, can be
+    // signed; the manifest and verdict signed are the bytes that verification read.
     let v =
         verify_run(run_dir).map_err(|e| fail(e, "give a run folder made by `beamproof run`"))?;
-    if !v.findings.is_empty() {
+    if !v.is_intact() {
+        let mut problems: Vec<String> = v.findings.iter().map(ToString::to_string).collect();
+        problems.extend(
+            v.planted()
+                .map(|u| format!("not covered by the manifest: {}", signing::printable(u))),
+        );
         return Err(fail(
             format!(
                 "{} fails verification ({}); it cannot be signed",
                 run_dir.display(),
-                v.findings
-                    .iter()
-                    .map(ToString::to_string)
-                    .collect::<Vec<_>>()
-                    .join("; ")
+                problems.join("; ")
             ),
             "run `beamproof verify` and restore the run folder from its archive",
         ));
     }
-    let path = signing::sign_run(run_dir, &k, &date, statement)
+    let verdict = v
+        .files
+        .get("results.json")
+        .and_then(|b| beamproof_engine::run::verdict_in(b))
+        .ok_or_else(|| {
+            fail(
+                "the run's results.json records no verdict".into(),
+                "give a run folder made by `beamproof run` or `beamproof compare`",
+            )
+        })?;
+    let clean = beamproof_engine::run::CLEAN_VERDICTS.contains(&verdict.as_str());
+    match acknowledge {
+        Some(a) if a != verdict => {
+            return Err(fail(
+                format!(
+                    "--acknowledge-verdict {} does not match the run's verdict {verdict}",
+                    signing::printable(a)
+                ),
+                &format!("read the report; to sign it, pass --acknowledge-verdict \"{verdict}\""),
+            ));
+        }
+        None if !clean => {
+            return Err(fail(
+                format!(
+                    "the run's verdict is {verdict}; signing it needs an explicit acknowledgement"
+                ),
+                &format!(
+                    "read the report's failures first; to sign anyway, pass --acknowledge-verdict \"{verdict}\" (the signature records it)"
+                ),
+            ));
+        }
+        _ => {}
+    }
+    let path = signing::sign_run(run_dir, &v.manifest, &verdict, &k, &date, statement)
         .map_err(|e| fail(e, "check the run folder and the statement"))?;
     outln!(
         io,
-        "signed by {} ({}) on {}: {}",
+        "signed by {} ({}) on {}, run verdict {verdict}: {}",
         k.name,
         k.role,
         date,

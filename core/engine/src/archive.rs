@@ -20,7 +20,7 @@ use std::path::{Path, PathBuf};
 
 use serde::{Deserialize, Serialize};
 
-use crate::checksum::{MANIFEST, relative_slash, sha256_hex, verify_run};
+use crate::checksum::{MANIFEST, sha256_hex, verify_run};
 use crate::signing::{SignatureCheck, verify_signatures};
 
 const MARKER: &str = "beamproof-archive";
@@ -243,6 +243,7 @@ fn parse_head(text: &str) -> (Option<usize>, String) {
 
 /// Copy a verified run folder into the archive. Returns the new entry.
 pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
+    // The run folder is read once, by its verification; everything archived is those bytes.
     let v = verify_run(run).map_err(|e| format!("{e} (is {} a run folder?)", run.display()))?;
     if !v.findings.is_empty() {
         return Err(format!(
@@ -255,7 +256,7 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
                 .join("; ")
         ));
     }
-    for (file, c) in verify_signatures(run, None) {
+    for (file, c) in verify_signatures(&v.signatures(), &v.manifest, None) {
         if let SignatureCheck::Invalid { reason } = c {
             return Err(format!(
                 "{}: signature {file} is invalid ({reason}); it is not archived",
@@ -263,8 +264,13 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
             ));
         }
     }
-    let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
-    if let Some(u) = v.uncovered.iter().find(|u| !u.starts_with(&sig_prefix)) {
+    if let Some(u) = v.uncovered.iter().find(|u| !v.files.contains_key(*u)) {
+        return Err(format!(
+            "{}: {u} is a symbolic link or a special file; only regular files are archived",
+            run.display()
+        ));
+    }
+    if let Some(u) = v.planted().next() {
         return Err(format!(
             "{}: {u} is not covered by the manifest; only the run's own files and signatures are archived",
             run.display()
@@ -279,9 +285,10 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
             before.problems.join("; ")
         ));
     }
-    let results: serde_json::Value = std::fs::read(run.join("results.json"))
-        .ok()
-        .and_then(|b| serde_json::from_slice(&b).ok())
+    let results: serde_json::Value = v
+        .files
+        .get("results.json")
+        .and_then(|b| serde_json::from_slice(b).ok())
         .unwrap_or_default();
     let run_id = results["run"]["id"]
         .as_str()
@@ -292,13 +299,8 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
                 .unwrap_or_default()
         });
     let mut files = Vec::new();
-    for entry in walkdir::WalkDir::new(run).sort_by_file_name() {
-        let entry = entry.map_err(|e| e.to_string())?;
-        if !entry.file_type().is_file() {
-            continue;
-        }
-        let bytes = std::fs::read(entry.path()).map_err(io_err(entry.path()))?;
-        let sha = sha256_hex(&bytes);
+    for (rel, bytes) in &v.files {
+        let sha = sha256_hex(bytes);
         let obj = object_path(archive, &sha);
         if obj.exists() {
             let have = std::fs::read(&obj).map_err(io_err(&obj))?;
@@ -313,11 +315,11 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
             std::fs::create_dir_all(dir).map_err(io_err(dir))?;
             let tmp = dir.join(format!(".{sha}.tmp-{}", std::process::id()));
             let _ = std::fs::remove_file(&tmp);
-            write_synced(&tmp, &bytes)?;
+            write_synced(&tmp, bytes)?;
             std::fs::rename(&tmp, &obj).map_err(io_err(&obj))?;
         }
         files.push(ArchivedFile {
-            path: relative_slash(run, entry.path()),
+            path: rel.clone(),
             sha256: sha,
             size: bytes.len() as u64,
         });
@@ -342,9 +344,7 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
         prev,
         run: run_id,
         added: date.to_string(),
-        manifest_sha256: std::fs::read(run.join(MANIFEST))
-            .map(|b| sha256_hex(&b))
-            .map_err(io_err(&run.join(MANIFEST)))?,
+        manifest_sha256: sha256_hex(&v.manifest),
         files,
     };
     let line = serde_json::to_string(&entry).map_err(|e| e.to_string())?;
@@ -362,6 +362,20 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
         .as_bytes(),
     )?;
     Ok(entry)
+}
+
+/// The verdict recorded in an entry's `results.json` (read from its object and checked
+/// against the entry's checksum), or why there is none.
+pub fn verdict(archive: &Path, e: &Entry) -> String {
+    let Some(f) = e.files.iter().find(|f| f.path == "results.json") else {
+        return "no results.json".into();
+    };
+    match std::fs::read(object_path(archive, &f.sha256)) {
+        Ok(b) if sha256_hex(&b) == f.sha256 => {
+            crate::run::verdict_in(&b).unwrap_or_else(|| "none recorded".into())
+        }
+        _ => "unknown (stored results damaged; run `beamproof archive verify`)".into(),
+    }
 }
 
 /// Every entry of an archive (after checking it is one).

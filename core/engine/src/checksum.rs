@@ -33,6 +33,8 @@ pub enum Finding {
     Changed(String),
     /// A file the manifest lists is missing.
     Missing(String),
+    /// A file the manifest lists is a symbolic link or a special file: what it is.
+    NotRegular(String, String),
     /// A manifest line cannot be read.
     BadLine(usize, String),
 }
@@ -42,61 +44,104 @@ impl std::fmt::Display for Finding {
         match self {
             Finding::Changed(p) => write!(f, "changed: {p}"),
             Finding::Missing(p) => write!(f, "missing: {p}"),
-            Finding::BadLine(n, l) => write!(f, "manifest line {n} is malformed: {l}"),
+            Finding::NotRegular(p, what) => write!(f, "not a regular file: {p} ({what})"),
+            Finding::BadLine(n, l) => write!(
+                f,
+                "manifest line {n} is malformed: {}",
+                crate::signing::printable(l)
+            ),
         }
     }
 }
 
-/// Outcome of verifying a run folder.
+/// Outcome of verifying a run folder, with every regular file's bytes as read for it (once):
+/// whatever a caller does next with the folder (sign, archive, compare) uses these bytes.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Verification {
     /// Files whose checksum matched.
     pub ok: Vec<String>,
     pub findings: Vec<Finding>,
-    /// Files present in the folder but not covered by the manifest (for example signatures).
+    /// Entries present in the folder but not covered by the manifest (for example signatures),
+    /// links and special files included.
     pub uncovered: Vec<String>,
+    /// The manifest's bytes.
+    pub manifest: Vec<u8>,
+    /// Every regular file of the folder by its `/`-separated path, as read.
+    pub files: std::collections::BTreeMap<String, Vec<u8>>,
 }
 
-/// The manifest's entries (path to SHA-256); an error names the first malformed line.
-pub fn parse_manifest(bytes: &[u8]) -> Result<std::collections::BTreeMap<String, String>, String> {
-    let text =
-        std::str::from_utf8(bytes).map_err(|_| "the manifest is not UTF-8 text".to_string())?;
-    let mut out = std::collections::BTreeMap::new();
-    for (i, line) in text.lines().enumerate() {
-        match line.split_once("  ") {
-            Some((hash, rel))
-                if hash.len() == 64
-                    && hash.chars().all(|c| c.is_ascii_hexdigit())
-                    && safe_relative(rel) =>
-            {
-                out.insert(rel.to_string(), hash.to_ascii_lowercase());
+impl Verification {
+    /// Whether every listed file matches and nothing but signatures lies outside the manifest.
+    pub fn is_intact(&self) -> bool {
+        self.findings.is_empty() && self.planted().next().is_none()
+    }
+
+    /// Entries outside the manifest other than signatures (planted files, links).
+    pub fn planted(&self) -> impl Iterator<Item = &String> {
+        let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
+        self.uncovered
+            .iter()
+            .filter(move |u| !u.starts_with(&sig_prefix))
+    }
+
+    /// The signature files (`signatures/*.sig`) with their bytes.
+    pub fn signatures(&self) -> Vec<(&str, &[u8])> {
+        let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
+        self.files
+            .iter()
+            .filter(|(p, _)| p.starts_with(&sig_prefix) && p.ends_with(".sig"))
+            .map(|(p, b)| (p.as_str(), b.as_slice()))
+            .collect()
+    }
+}
+
+/// Largest single file of a run folder read for verification (4 GiB).
+pub const MAX_RUN_FILE_BYTES: u64 = 4 << 30;
+
+/// Read every file of a run folder once and check the manifest against those bytes. Errors
+/// only when the manifest itself is unreadable.
+pub fn verify_run(dir: &Path) -> Result<Verification, String> {
+    let mut files = std::collections::BTreeMap::new();
+    let mut special = std::collections::BTreeMap::new();
+    for entry in walkdir::WalkDir::new(dir).sort_by_file_name() {
+        let entry = entry.map_err(|e| format!("cannot read {}: {e}", dir.display()))?;
+        let kind = entry.file_type();
+        if kind.is_dir() {
+            continue;
+        }
+        let rel = relative_slash(dir, entry.path());
+        if kind.is_symlink() {
+            special.insert(rel, "a symbolic link".to_string());
+            continue;
+        }
+        match crate::input_store::read_regular(entry.path(), MAX_RUN_FILE_BYTES) {
+            Ok(bytes) => {
+                files.insert(rel, bytes);
             }
-            _ => return Err(format!("manifest line {} is malformed", i + 1)),
+            Err(e) => {
+                special.insert(rel, e.to_string());
+            }
         }
     }
-    Ok(out)
-}
-
-/// Read and parse the manifest of run folder `dir`.
-pub fn read_manifest(dir: &Path) -> Result<std::collections::BTreeMap<String, String>, String> {
-    let path = dir.join(MANIFEST);
-    let bytes =
-        crate::input_store::read_regular(&path, crate::input_store::DEFAULT_MAX_INPUT_BYTES)
-            .map_err(|e| format!("cannot read {}: {e}", path.display()))?;
-    parse_manifest(&bytes)
-}
-
-/// Re-hash every file the manifest lists. Errors only when the manifest itself is unreadable.
-pub fn verify_run(dir: &Path) -> Result<Verification, String> {
     let manifest_path = dir.join(MANIFEST);
-    let text = std::fs::read_to_string(&manifest_path)
-        .map_err(|e| format!("cannot read {}: {e}", manifest_path.display()))?;
+    let manifest = files.get(MANIFEST).cloned().ok_or_else(|| {
+        format!(
+            "cannot read {}: {}",
+            manifest_path.display(),
+            special
+                .get(MANIFEST)
+                .map_or("it does not exist", String::as_str)
+        )
+    })?;
+    let text = String::from_utf8_lossy(&manifest).into_owned();
     let mut v = Verification {
         ok: Vec::new(),
         findings: Vec::new(),
         uncovered: Vec::new(),
+        manifest,
+        files: std::collections::BTreeMap::new(),
     };
-    let mut listed = Vec::new();
+    let mut listed = std::collections::BTreeSet::new();
     for (i, line) in text.lines().enumerate() {
         let Some((hash, rel)) = line.split_once("  ") else {
             v.findings.push(Finding::BadLine(i + 1, line.to_string()));
@@ -106,26 +151,24 @@ pub fn verify_run(dir: &Path) -> Result<Verification, String> {
             v.findings.push(Finding::BadLine(i + 1, line.to_string()));
             continue;
         }
-        listed.push(rel.to_string());
-        match std::fs::read(dir.join(rel)) {
-            Ok(bytes) if sha256_hex(&bytes) == hash => v.ok.push(rel.to_string()),
-            Ok(_) => v.findings.push(Finding::Changed(rel.to_string())),
-            Err(_) => v.findings.push(Finding::Missing(rel.to_string())),
+        listed.insert(rel.to_string());
+        match (files.get(rel), special.get(rel)) {
+            (Some(bytes), _) if sha256_hex(bytes) == hash => v.ok.push(rel.to_string()),
+            (Some(_), _) => v.findings.push(Finding::Changed(rel.to_string())),
+            (None, Some(what)) => v
+                .findings
+                .push(Finding::NotRegular(rel.to_string(), what.clone())),
+            (None, None) => v.findings.push(Finding::Missing(rel.to_string())),
         }
     }
-    for entry in walkdir::WalkDir::new(dir)
-        .sort_by_file_name()
-        .into_iter()
-        .filter_map(Result::ok)
-    {
-        if !entry.file_type().is_file() {
-            continue;
-        }
-        let rel = relative_slash(dir, entry.path());
-        if rel != MANIFEST && !listed.contains(&rel) {
-            v.uncovered.push(rel);
-        }
-    }
+    v.uncovered = files
+        .keys()
+        .chain(special.keys())
+        .filter(|r| r.as_str() != MANIFEST && !listed.contains(*r))
+        .cloned()
+        .collect();
+    v.uncovered.sort();
+    v.files = files;
     Ok(v)
 }
 

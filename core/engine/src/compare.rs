@@ -93,13 +93,20 @@ fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
             "restore the run folder from its archive (`beamproof archive export`)",
         ));
     }
-    // Every file used below is read once and must carry the checksum the manifest lists for
-    // it, so what is compared is what was verified, even if the folder changes meanwhile.
-    let listed = crate::checksum::read_manifest(dir)
-        .map_err(|e| refuse(e, "give a run folder made by `beamproof run`"))?;
+    if let Some(u) = v.planted().next() {
+        return Err(refuse(
+            format!(
+                "`{u}` lies in the run folder but is not covered by its manifest; it is not compared"
+            ),
+            "restore the run folder from its archive (`beamproof archive export`)",
+        ));
+    }
+    // The campaign and inputs are read again by prepare; each must be the very bytes the
+    // verification read (and so the manifest lists), so what is compared is what was
+    // verified even if the folder changes meanwhile.
     let checked = |rel: &str, bytes: &[u8]| -> Result<(), Vec<Diagnostic>> {
-        match listed.get(rel) {
-            Some(sha) if *sha == sha256_hex(bytes) => Ok(()),
+        match v.files.get(rel) {
+            Some(b) if b.as_slice() == bytes && v.ok.iter().any(|o| o == rel) => Ok(()),
             _ => Err(refuse(
                 format!(
                     "`{rel}` changed after the run folder was verified, or is not in its manifest"
@@ -108,24 +115,17 @@ fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
             )),
         }
     };
-    let read_checked = |rel: &str| -> Result<Vec<u8>, Vec<Diagnostic>> {
-        let bytes = crate::readers::read_file(&dir.join(rel)).map_err(|d| vec![d])?;
-        checked(rel, &bytes)?;
-        Ok(bytes)
+    let verified = |rel: &str| -> Result<Vec<u8>, Vec<Diagnostic>> {
+        match v.files.get(rel) {
+            Some(b) if v.ok.iter().any(|o| o == rel) => Ok(b.clone()),
+            _ => Err(refuse(
+                format!("`{rel}` is not in the run folder's manifest"),
+                "give a run folder made by `beamproof run`",
+            )),
+        }
     };
-    let results_bytes = read_checked("results.json")?;
-    let manifest_bytes =
-        crate::readers::read_file(&dir.join(crate::checksum::MANIFEST)).map_err(|d| vec![d])?;
-    if crate::checksum::parse_manifest(&manifest_bytes)
-        .ok()
-        .as_ref()
-        != Some(&listed)
-    {
-        return Err(refuse(
-            "the manifest changed while the run folder was read".into(),
-            "compare run folders that nothing is writing to",
-        ));
-    }
+    let results_bytes = verified("results.json")?;
+    let manifest_bytes = v.manifest.clone();
     let results: serde_json::Value = serde_json::from_slice(&results_bytes)
         .map_err(|_| refuse("results.json is unreadable".into(), "give a run folder"))?;
     let file = results["campaign"]["file"]
@@ -155,8 +155,8 @@ fn load(dir: &Path, registry: &Registry) -> Result<Side, Vec<Diagnostic>> {
     let mut derived = BTreeMap::new();
     for t in prepared.tests.iter().filter(|t| t.film.is_some()) {
         let rel = format!("{DERIVED_DIR}/{}.csv", t.spec.id);
-        if listed.contains_key(&rel) {
-            derived.insert(rel.clone(), read_checked(&rel)?);
+        if v.files.contains_key(&rel) {
+            derived.insert(rel.clone(), verified(&rel)?);
         }
     }
     Ok(Side {

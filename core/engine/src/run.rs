@@ -560,3 +560,14 @@ fn summarise(sites: &[SiteRecord]) -> Summary {
         notes: Vec::new(),
     }
 }
+
+/// The verdict a run's `results.json` bytes record (`GO`, `NO-GO`, `MATCHED`, `NOT MATCHED`),
+/// printable; `None` when the results hold none.
+pub fn verdict_in(results_json: &[u8]) -> Option<String> {
+    let v: serde_json::Value = serde_json::from_slice(results_json).ok()?;
+    let verdict = v["summary"]["verdict"].as_str()?;
+    Some(crate::signing::printable(verdict))
+}
+
+/// Verdicts a signature needs no acknowledgement for.
+pub const CLEAN_VERDICTS: [&str; 2] = ["GO", "MATCHED"];

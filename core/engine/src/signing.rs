@@ -5,9 +5,15 @@
 //! Files are line-oriented text, `key: value` per line, in a fixed order:
 //! - key pair (`beamproof-signing-key: 1`, name, role, public-key, secret-key), written with
 //!   owner-only permissions; its public half `*.pub` (the same without the secret);
-//! - signature (`beamproof-signature: 1`, manifest-sha256, name, role, date, statement,
-//!   public-key, signature). The signature covers the exact bytes of every line before the
-//!   `signature:` line, so nothing in the file can change without breaking it.
+//! - signature (`beamproof-signature: 2`, manifest-sha256, verdict, name, role, date,
+//!   statement, public-key, signature). The signature covers the exact bytes of every line
+//!   before the `signature:` line, so nothing in the file can change without breaking it. The
+//!   verdict line records the run's verdict as the signer saw it. Version 1 signatures (no
+//!   verdict line) still verify.
+//!
+//! A trusted public key file records its holder's name and role; what `verify` trusts is that
+//! record, so a signature whose stated name or role differs from the record of its key is
+//! invalid. Names, roles and statements are one line of printable text.
 //!
 //! Signatures live in `signatures/` inside the run folder, outside the manifest (they are added
 //! after it); signing never changes an existing file.
@@ -16,13 +22,14 @@ use std::path::{Path, PathBuf};
 
 use ed25519_dalek::{Signature, Signer, SigningKey, VerifyingKey};
 
-use crate::checksum::{MANIFEST, sha256_hex};
+use crate::checksum::sha256_hex;
 
 /// Folder of a run that holds its signatures.
 pub const SIGNATURES_DIR: &str = "signatures";
 const KEY_HEADER: &str = "beamproof-signing-key: 1";
 const PUB_HEADER: &str = "beamproof-public-key: 1";
-const SIG_HEADER: &str = "beamproof-signature: 1";
+const SIG_HEADER_V1: &str = "beamproof-signature: 1";
+const SIG_HEADER: &str = "beamproof-signature: 2";
 
 fn hex(bytes: &[u8]) -> String {
     bytes.iter().map(|b| format!("{b:02x}")).collect()
@@ -39,7 +46,8 @@ fn unhex<const N: usize>(s: &str) -> Option<[u8; N]> {
     Some(out)
 }
 
-/// One-line text for a field: no line breaks, trimmed.
+/// One-line text for a field: trimmed, printable (no line break, tab or other control
+/// character, which could forge lines or terminal output).
 fn one_line(what: &str, s: &str) -> Result<String, String> {
     let t = s.trim();
     if t.is_empty() {
@@ -48,7 +56,22 @@ fn one_line(what: &str, s: &str) -> Result<String, String> {
     if t.contains(['\n', '\r']) {
         return Err(format!("the {what} must be one line"));
     }
+    if t.chars().any(char::is_control) {
+        return Err(format!(
+            "the {what} \"{}\" holds a control character; write printable text only",
+            t.escape_debug()
+        ));
+    }
     Ok(t.to_string())
+}
+
+/// Text from a file shown on a terminal: control characters escaped, never printed raw.
+pub fn printable(s: &str) -> String {
+    if s.chars().any(char::is_control) {
+        s.escape_debug().to_string()
+    } else {
+        s.to_string()
+    }
 }
 
 /// Parse `key: value` lines in the given order after a header line.
@@ -184,9 +207,20 @@ pub fn read_key(path: &Path) -> Result<KeyPair, String> {
     Ok(k)
 }
 
-/// The public keys in a folder of trusted keys (`*.pub`), with their owners.
-pub fn trusted_keys(dir: &Path) -> Result<Vec<(String, String, String)>, String> {
-    let mut out = Vec::new();
+/// A trusted public key and the identity its file records.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TrustedKey {
+    pub name: String,
+    pub role: String,
+    pub public_key: String,
+    /// The `*.pub` file it came from, for messages.
+    pub file: String,
+}
+
+/// The public keys in a folder of trusted keys (`*.pub`), with their holders. The same key
+/// recorded twice with different holders is refused: the record would be ambiguous.
+pub fn trusted_keys(dir: &Path) -> Result<Vec<TrustedKey>, String> {
+    let mut out: Vec<TrustedKey> = Vec::new();
     let entries =
         std::fs::read_dir(dir).map_err(|e| format!("cannot read {}: {e}", dir.display()))?;
     let mut paths: Vec<PathBuf> = entries.filter_map(|e| e.ok().map(|e| e.path())).collect();
@@ -195,11 +229,35 @@ pub fn trusted_keys(dir: &Path) -> Result<Vec<(String, String, String)>, String>
         if p.extension().and_then(|e| e.to_str()) != Some("pub") {
             continue;
         }
-        let text =
-            std::fs::read_to_string(&p).map_err(|e| format!("cannot read {}: {e}", p.display()))?;
-        let f = fields(&text, PUB_HEADER, &["name", "role", "public-key"])
-            .map_err(|why| format!("{} is not a beamproof public key: {why}", p.display()))?;
-        out.push((f[0].to_string(), f[1].to_string(), f[2].to_string()));
+        let bytes = crate::input_store::read_regular(&p, 1 << 20)
+            .map_err(|e| format!("cannot read {}: {e}", p.display()))?;
+        let text = String::from_utf8_lossy(&bytes);
+        let bad = |why: String| format!("{} is not a beamproof public key: {why}", p.display());
+        let f = fields(&text, PUB_HEADER, &["name", "role", "public-key"]).map_err(bad)?;
+        let name = one_line("name", f[0]).map_err(bad)?;
+        let role = one_line("role", f[1]).map_err(bad)?;
+        if unhex::<32>(f[2]).is_none() {
+            return Err(bad("the public key is not 64 hex digits".into()));
+        }
+        let file = p
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        if let Some(other) = out
+            .iter()
+            .find(|k| k.public_key == f[2] && (k.name != name || k.role != role))
+        {
+            return Err(format!(
+                "{} and {} record one key for two holders ({} ({}) and {name} ({role})); keep the right one",
+                other.file, file, other.name, other.role
+            ));
+        }
+        out.push(TrustedKey {
+            name,
+            role,
+            public_key: f[2].to_string(),
+            file,
+        });
     }
     Ok(out)
 }
@@ -208,6 +266,8 @@ pub fn trusted_keys(dir: &Path) -> Result<Vec<(String, String, String)>, String>
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Statement {
     pub manifest_sha256: String,
+    /// The run's verdict as the signer saw it (absent in version 1 signatures).
+    pub verdict: Option<String>,
     pub name: String,
     pub role: String,
     pub date: String,
@@ -216,22 +276,32 @@ pub struct Statement {
 }
 
 fn signed_text(s: &Statement) -> String {
-    format!(
-        "{SIG_HEADER}\nmanifest-sha256: {}\nname: {}\nrole: {}\ndate: {}\nstatement: {}\npublic-key: {}\n",
-        s.manifest_sha256, s.name, s.role, s.date, s.statement, s.public_key
-    )
+    match &s.verdict {
+        Some(v) => format!(
+            "{SIG_HEADER}\nmanifest-sha256: {}\nverdict: {v}\nname: {}\nrole: {}\ndate: {}\nstatement: {}\npublic-key: {}\n",
+            s.manifest_sha256, s.name, s.role, s.date, s.statement, s.public_key
+        ),
+        None => format!(
+            "{SIG_HEADER_V1}\nmanifest-sha256: {}\nname: {}\nrole: {}\ndate: {}\nstatement: {}\npublic-key: {}\n",
+            s.manifest_sha256, s.name, s.role, s.date, s.statement, s.public_key
+        ),
+    }
 }
 
-/// Sign a run folder's manifest: writes `signatures/NN-NAME.sig` and returns its path.
-pub fn sign_run(run: &Path, key: &KeyPair, date: &str, statement: &str) -> Result<PathBuf, String> {
-    let manifest = std::fs::read(run.join(MANIFEST)).map_err(|e| {
-        format!(
-            "{} is not a run folder: cannot read its {MANIFEST}: {e}",
-            run.display()
-        )
-    })?;
+/// Sign the manifest whose bytes are `manifest` (read once by the caller, who verified the run
+/// folder against them) of a run whose verdict is `verdict`: writes `signatures/NN-NAME.sig`
+/// and returns its path.
+pub fn sign_run(
+    run: &Path,
+    manifest: &[u8],
+    verdict: &str,
+    key: &KeyPair,
+    date: &str,
+    statement: &str,
+) -> Result<PathBuf, String> {
     let s = Statement {
-        manifest_sha256: sha256_hex(&manifest),
+        manifest_sha256: sha256_hex(manifest),
+        verdict: Some(one_line("verdict", verdict)?),
         name: key.name.clone(),
         role: key.role.clone(),
         date: one_line("date", date)?,
@@ -288,35 +358,26 @@ pub enum SignatureCheck {
     Invalid { reason: String },
 }
 
-/// Check every signature of a run folder against its current manifest.
+/// Check signature files (path in the run folder, bytes as read once by the run's
+/// verification) against the manifest whose bytes are `manifest` and the trusted keys, when
+/// given.
 pub fn verify_signatures(
-    run: &Path,
-    trusted: Option<&[(String, String, String)]>,
+    signatures: &[(&str, &[u8])],
+    manifest: &[u8],
+    trusted: Option<&[TrustedKey]>,
 ) -> Vec<(String, SignatureCheck)> {
-    let manifest_sha = std::fs::read(run.join(MANIFEST))
-        .map(|b| sha256_hex(&b))
-        .unwrap_or_default();
-    existing_signatures(run)
-        .into_iter()
-        .map(|p| {
-            let name = crate::checksum::relative_slash(run, &p);
-            (name, check_one(&p, &manifest_sha, trusted))
-        })
+    let manifest_sha = sha256_hex(manifest);
+    signatures
+        .iter()
+        .map(|(name, bytes)| (name.to_string(), check_one(bytes, &manifest_sha, trusted)))
         .collect()
 }
 
-fn check_one(
-    path: &Path,
-    manifest_sha: &str,
-    trusted: Option<&[(String, String, String)]>,
-) -> SignatureCheck {
+fn check_one(bytes: &[u8], manifest_sha: &str, trusted: Option<&[TrustedKey]>) -> SignatureCheck {
     let invalid = |reason: String| SignatureCheck::Invalid { reason };
-    let Ok(text) = std::fs::read_to_string(path) else {
-        return invalid("unreadable".into());
-    };
-    let f = match fields(
-        &text,
-        SIG_HEADER,
+    let text = String::from_utf8_lossy(bytes);
+    let v1 = text.starts_with(&format!("{SIG_HEADER_V1}\n"));
+    let keys: &[&str] = if v1 {
         &[
             "manifest-sha256",
             "name",
@@ -325,13 +386,37 @@ fn check_one(
             "statement",
             "public-key",
             "signature",
-        ],
-    ) {
+        ]
+    } else {
+        &[
+            "manifest-sha256",
+            "verdict",
+            "name",
+            "role",
+            "date",
+            "statement",
+            "public-key",
+            "signature",
+        ]
+    };
+    let f = match fields(&text, if v1 { SIG_HEADER_V1 } else { SIG_HEADER }, keys) {
         Ok(f) => f,
-        Err(why) => return invalid(format!("not a beamproof signature: {why}")),
+        Err(why) => return invalid(format!("not a beamproof signature: {}", printable(&why))),
+    };
+    // The fields without the verdict: manifest, name, role, date, statement, key, signature.
+    let (verdict, f): (Option<String>, Vec<&str>) = if v1 {
+        (None, f)
+    } else {
+        (
+            Some(f[1].to_string()),
+            std::iter::once(f[0])
+                .chain(f[2..].iter().copied())
+                .collect(),
+        )
     };
     let s = Statement {
         manifest_sha256: f[0].into(),
+        verdict,
         name: f[1].into(),
         role: f[2].into(),
         date: f[3].into(),
@@ -355,10 +440,24 @@ fn check_one(
     if s.manifest_sha256 != manifest_sha {
         return invalid(format!(
             "it signs manifest {}, the run's manifest is now {manifest_sha}",
-            s.manifest_sha256
+            printable(&s.manifest_sha256)
         ));
     }
-    let trusted = trusted.map(|keys| keys.iter().any(|(_, _, k)| k == &s.public_key));
+    let trusted = match trusted.map(|keys| keys.iter().find(|k| k.public_key == s.public_key)) {
+        None => None,
+        Some(None) => Some(false),
+        Some(Some(k)) if k.name != s.name || k.role != s.role => {
+            return invalid(format!(
+                "it is signed as {} ({}), but the trusted key file {} records this key's holder as {} ({})",
+                printable(&s.name),
+                printable(&s.role),
+                k.file,
+                k.name,
+                k.role
+            ));
+        }
+        Some(Some(_)) => Some(true),
+    };
     SignatureCheck::Valid {
         statement: s,
         trusted,
@@ -406,6 +505,33 @@ mod tests {
         assert_eq!(
             hex(&k.key.sign(b"").to_bytes()),
             "e5564300c360ac729086e2cc806e828a84877f1eb8e5d974d873e065224901555fb8821590a33bacc61e39701cf9b46bd25bf5f0595bbe24655141438e7a100b"
+        );
+    }
+
+    #[test]
+    fn version_1_signatures_without_a_verdict_still_verify() {
+        let k = key_pair("Ada Example", "medical physicist", [7; 32]).expect("key");
+        let s = Statement {
+            manifest_sha256: "ab".repeat(32),
+            verdict: None,
+            name: k.name.clone(),
+            role: k.role.clone(),
+            date: "2026-11-21".into(),
+            statement: "Reviewed.".into(),
+            public_key: k.public_hex(),
+        };
+        let text = signed_text(&s);
+        assert!(text.starts_with("beamproof-signature: 1\nmanifest-sha256: "));
+        let file = format!(
+            "{text}signature: {}\n",
+            hex(&k.key.sign(text.as_bytes()).to_bytes())
+        );
+        assert_eq!(
+            check_one(file.as_bytes(), &"ab".repeat(32), None),
+            SignatureCheck::Valid {
+                statement: s,
+                trusted: None
+            }
         );
     }
 
