@@ -9,7 +9,9 @@ use beamproof_api::{
     AnalysisInput, CriteriaSet, CurveAxis, DatasetData, GammaCriterion, Normalisation, Status,
     TestInfo, TestKind,
 };
-use beamproof_engine::campaign::{DicomPlacement, PatientPosition};
+use beamproof_engine::campaign::{
+    DicomPlacement, GAMMA_DOSE_PERCENT, GAMMA_DTA_MM, GAMMA_THRESHOLD_PERCENT, PatientPosition,
+};
 use beamproof_engine::diag::Diagnostic;
 use beamproof_engine::readers::{read_dataset, read_file};
 
@@ -59,13 +61,14 @@ fn usage(msg: String, help: &str) -> Failure {
     }
 }
 
-/// Parse `3%/2mm` (or `3/2`) into (dose percent, DTA mm).
+/// Parse `3%/2mm` (or `3/2`) into (dose percent, DTA mm), within the ranges a campaign
+/// accepts.
 pub fn parse_criterion(s: &str) -> Option<(f64, f64)> {
     let (d, t) = s.split_once('/')?;
     let d: f64 = d.trim().trim_end_matches('%').trim().parse().ok()?;
     let t: f64 = t.trim().trim_end_matches("mm").trim().parse().ok()?;
-    (d > 0.0 && d <= 100.0 && t > 0.0 && t <= 100.0 && d.is_finite() && t.is_finite())
-        .then_some((d, t))
+    let within = |v: f64, (lo, hi): (f64, f64)| v.is_finite() && (lo..=hi).contains(&v);
+    (within(d, GAMMA_DOSE_PERCENT) && within(t, GAMMA_DTA_MM)).then_some((d, t))
 }
 
 fn parse_isocentre(s: &str) -> Option<[f64; 3]> {
@@ -80,11 +83,12 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
     let criteria: Vec<(f64, f64)> = a
         .criteria
         .iter()
-        .map(|c| parse_criterion(c).ok_or_else(|| usage(format!("criterion `{c}` is not DOSE%/DTAmm"), "write for example --criteria 3%/2mm (dose in percent, distance in mm, both above 0)")))
+        .map(|c| parse_criterion(c).ok_or_else(|| usage(format!("criterion `{c}` is not DOSE%/DTAmm within range"), &format!("write for example --criteria 3%/2mm (dose {} to {} %, distance {} to {} mm)", GAMMA_DOSE_PERCENT.0, GAMMA_DOSE_PERCENT.1, GAMMA_DTA_MM.0, GAMMA_DTA_MM.1))))
         .collect::<Result<_, _>>()?;
-    if !(0.0..100.0).contains(&a.threshold) {
+    let (lo, hi) = GAMMA_THRESHOLD_PERCENT;
+    if !(lo..=hi).contains(&a.threshold) {
         return Err(usage(
-            format!("threshold {} % is outside 0..100", a.threshold),
+            format!("threshold {} % is outside {lo}..{hi}", a.threshold),
             "give the low-dose threshold in percent of the normalisation dose, e.g. --threshold 10",
         ));
     }
@@ -270,4 +274,21 @@ fn write_map(path: &Path, g: &beamproof_plugin_gamma::PointGammas) -> Result<(),
         let _ = std::fs::remove_file(&tmp);
         fail(e)
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn criteria_take_the_campaign_ranges() {
+        // The campaign decoder's ranges (engine::campaign::GAMMA_*), at and past each edge.
+        assert_eq!(parse_criterion("3%/2mm"), Some((3.0, 2.0)));
+        assert_eq!(parse_criterion("0.01/0.01"), Some((0.01, 0.01)));
+        assert_eq!(parse_criterion("100%/100mm"), Some((100.0, 100.0)));
+        assert_eq!(parse_criterion("0.001%/2mm"), None);
+        assert_eq!(parse_criterion("3%/0.001mm"), None);
+        assert_eq!(parse_criterion("3%/101mm"), None);
+        assert_eq!(parse_criterion("NaN%/2mm"), None);
+    }
 }

@@ -268,6 +268,12 @@ impl TestSpec {
     }
 }
 
+/// Accepted ranges of a gamma criterion, in campaigns and the one-off `gamma` command alike:
+/// dose difference (%), distance to agreement (mm) and low-dose threshold (%).
+pub const GAMMA_DOSE_PERCENT: (f64, f64) = (0.01, 100.0);
+pub const GAMMA_DTA_MM: (f64, f64) = (0.01, 100.0);
+pub const GAMMA_THRESHOLD_PERCENT: (f64, f64) = (0.0, 99.0);
+
 /// Largest campaign file read (16 MiB): a campaign of thousands of tests is a few hundred KB.
 pub const MAX_CAMPAIGN_BYTES: u64 = 16 << 20;
 
@@ -866,13 +872,21 @@ impl<'f> Decoder<'f> {
 
     fn gamma(&mut self, n: &Node) -> Option<GammaCriterion> {
         let f = self.fields(n, "a gamma criterion", GAMMA_KEYS)?;
-        let dose_percent = self.req_number(&f, "dose-percent", 0.01, 100.0, "%");
-        let dta_mm = self.req_number(&f, "dta-mm", 0.01, 100.0, "mm");
+        let (lo, hi) = GAMMA_DOSE_PERCENT;
+        let dose_percent = self.req_number(&f, "dose-percent", lo, hi, "%");
+        let (lo, hi) = GAMMA_DTA_MM;
+        let dta_mm = self.req_number(&f, "dta-mm", lo, hi, "mm");
         // Defaults follow AAPM TG-218 (Miften et al 2018): 10 % threshold, global, 95 % / 90 %
         // (only the defaults of this criterion are used).
         let tg218 = GammaCriterion::tg218(0.0, 0.0);
         let threshold_percent = self
-            .opt_number(&f, "threshold-percent", 0.0, 99.0, "%")
+            .opt_number(
+                &f,
+                "threshold-percent",
+                GAMMA_THRESHOLD_PERCENT.0,
+                GAMMA_THRESHOLD_PERCENT.1,
+                "%",
+            )
             .unwrap_or(tg218.threshold_percent);
         let normalisation = match f.get("normalisation") {
             Some(nn) => match nn.scalar() {

@@ -104,6 +104,25 @@ pub fn parse_yaml_float(text: &str) -> Option<f64> {
     t.parse::<f64>().ok().filter(|v| v.is_finite())
 }
 
+/// Most nodes a document may hold once its aliases are expanded: far above any campaign or
+/// beam-data file (a thousand tests are about 50,000 nodes), far below what exhausts memory.
+/// Aliases copy the anchored node, so a few hundred bytes of nested aliases could otherwise
+/// expand to billions of nodes.
+pub const MAX_NODES: usize = 1_000_000;
+/// Deepest nesting of lists and mappings accepted (a campaign needs fewer than 10 levels).
+pub const MAX_DEPTH: usize = 64;
+
+fn node_count(n: &Node) -> usize {
+    1 + match &n.value {
+        Value::Scalar { .. } => 0,
+        Value::Seq(items) => items.iter().map(node_count).sum(),
+        Value::Map(entries) => entries
+            .iter()
+            .map(|(k, v)| node_count(k) + node_count(v))
+            .sum(),
+    }
+}
+
 fn pos(span: &Span) -> (usize, usize) {
     (span.start.line(), span.start.col() + 1)
 }
@@ -113,7 +132,8 @@ fn pos(span: &Span) -> (usize, usize) {
 pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
     let mut stack: Vec<(Node, Option<usize>)> = Vec::new();
     let mut pending_keys: Vec<Option<Node>> = Vec::new();
-    let mut anchors: HashMap<usize, Node> = HashMap::new();
+    let mut anchors: HashMap<usize, (Node, usize)> = HashMap::new();
+    let mut nodes = 0usize;
     let mut root: Option<Node> = None;
     let mut diags = Vec::new();
     let mut documents = 0usize;
@@ -136,6 +156,23 @@ pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
             }
         };
         let (line, column) = pos(&span);
+        let too_much = |what: String| {
+            vec![
+                Diagnostic::at(file, line, column, what)
+                    .help("write the values out plainly; a campaign needs neither deep nesting nor aliases of aliases"),
+            ]
+        };
+        if matches!(
+            event,
+            Event::Scalar(..) | Event::SequenceStart(..) | Event::MappingStart(..)
+        ) {
+            nodes += 1;
+        }
+        if stack.len() > MAX_DEPTH {
+            return Err(too_much(format!(
+                "lists and mappings nest deeper than {MAX_DEPTH} levels here"
+            )));
+        }
         let finished: Option<(Node, usize)> = match event {
             Event::DocumentStart(_) => {
                 documents += 1;
@@ -159,7 +196,16 @@ pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
                 anchor,
             )),
             Event::Alias(id) => match anchors.get(&id) {
-                Some(n) => Some((n.clone(), 0)),
+                Some((n, size)) => {
+                    // Counted before it is copied: the copy is never made when too large.
+                    nodes = nodes.saturating_add(*size);
+                    if nodes > MAX_NODES {
+                        return Err(too_much(format!(
+                            "the aliases expand the document past {MAX_NODES} nodes here"
+                        )));
+                    }
+                    Some((n.clone(), 0))
+                }
                 None => {
                     diags.push(Diagnostic::at(
                         file,
@@ -204,7 +250,7 @@ pub fn parse(text: &str, file: &Path) -> Result<Node, Vec<Diagnostic>> {
             continue;
         };
         if anchor > 0 {
-            anchors.insert(anchor, node.clone());
+            anchors.insert(anchor, (node.clone(), node_count(&node)));
         }
         if documents > 1 {
             continue;
@@ -315,6 +361,42 @@ mod tests {
             panic!("map expected")
         };
         assert_eq!(entries[1].1.to_json(), serde_json::json!({"k": 1}));
+    }
+
+    #[test]
+    fn nested_aliases_are_refused_before_they_expand() {
+        // The "billion laughs" pattern: each level holds nine aliases of the one before, so
+        // ten levels would expand to 9^10 (about 3.5e9) nodes (common practice, no source).
+        let mut text = String::from("a0: &a0 [x, x, x, x, x, x, x, x, x]\n");
+        for i in 1..10 {
+            let p = i - 1;
+            text.push_str(&format!(
+                "a{i}: &a{i} [*a{p}, *a{p}, *a{p}, *a{p}, *a{p}, *a{p}, *a{p}, *a{p}, *a{p}]\n"
+            ));
+        }
+        assert!(text.len() < 700);
+        let errs = p(&text).expect_err("refused");
+        assert!(
+            errs[0]
+                .message
+                .contains("expand the document past 1000000 nodes"),
+            "{}",
+            errs[0].message
+        );
+        // Aliases within the limit still work.
+        assert!(p("a: &x [1, 2]\nb: [*x, *x]\n").is_ok());
+    }
+
+    #[test]
+    fn deep_nesting_is_refused() {
+        let text = format!("a: {}{}\n", "[".repeat(200), "]".repeat(200));
+        let errs = p(&text).expect_err("refused");
+        assert!(
+            errs[0].message.contains("nest deeper than 64 levels"),
+            "{}",
+            errs[0].message
+        );
+        assert!(p(&format!("a: {}{}\n", "[".repeat(30), "]".repeat(30))).is_ok());
     }
 
     #[test]

@@ -522,6 +522,22 @@ pub fn analyse_with_points(
             reference.source, evaluated.source
         )));
     }
+    if let Method::Sampled { step_mm } = method {
+        let radius = crits.iter().map(|c| c.max_search_mm).fold(0.0, f64::max);
+        let per_axis = 2.0 * (radius / step_mm).floor() + 1.0;
+        let offsets = per_axis.powi(field.k as i32);
+        if offsets > search::MAX_SAMPLED_OFFSETS as f64 {
+            let least = 2.0 * radius
+                / ((search::MAX_SAMPLED_OFFSETS as f64).powf(1.0 / field.k as f64) - 1.0);
+            let min_dta = crits.iter().map(|c| c.dta_mm).fold(f64::INFINITY, f64::min);
+            return Err(AnalysisError::new(format!(
+                "the sampled search would sample {offsets:.0} offsets around every point (a {step_mm} mm step over a {radius} mm radius in {}D), more than the {} allowed; raise `sample-step-dta` to at least {:.3}, or use `method: exact`, which has no sampling error",
+                field.k,
+                search::MAX_SAMPLED_OFFSETS,
+                (least / min_dta * 1000.0).ceil() / 1000.0
+            )));
+        }
+    }
     let values = if input
         .params
         .get("statistics")

@@ -36,6 +36,10 @@ pub struct Offsets {
     pub list: Vec<(f64, [f64; MAX_DIMS])>,
 }
 
+/// Most lattice offsets the sampled search tabulates (the cube around a point): bounds its
+/// table to 64 MB and its work per point.
+pub const MAX_SAMPLED_OFFSETS: usize = 2_000_000;
+
 impl Offsets {
     /// Every lattice point of spacing `step` along the first `k` axes within `radius`.
     pub fn new(k: usize, step: f64, radius: f64) -> Offsets {

@@ -865,6 +865,37 @@ mod plugin {
     }
 
     #[test]
+    fn a_sampled_search_too_fine_for_its_radius_is_refused_before_it_allocates() {
+        // 3D, 3 %/3 mm, step 0.01 x DTA over the default 3 x DTA radius: 601^3 offsets, about
+        // 2.2e8, over the 2e6 limit; the smallest step allowed is 2 R / (2e6^(1/3) - 1) =
+        // 18 mm / 124.99 = 0.14401 mm = 0.048003 x DTA, rounded up to 0.049 (arithmetic from
+        // the limit; at 0.049 the cube holds 123^3 = 1.86e6 offsets).
+        let xs = steps(-4.0, 4.0, 1.0);
+        let cube = |v: f64| Dataset {
+            source: format!("cube-{v}"),
+            unit: DoseUnit::Gy,
+            data: DatasetData::Grid(grid(&xs, &xs, &xs, |_, _, _| v)),
+        };
+        let mut inp = input(cube(2.0), cube(2.0), "measured", vec![tg218(3.0, 3.0)]);
+        inp.test = TestInfo::standalone(TestKind::Volume);
+        inp.params
+            .insert("method".into(), serde_json::json!("sampled"));
+        inp.params
+            .insert("sample-step-dta".into(), serde_json::json!(0.01));
+        let e = Gamma.analyse(&inp).expect_err("refused");
+        assert!(
+            e.message.contains("would sample 217081801 offsets")
+                && e.message
+                    .contains("raise `sample-step-dta` to at least 0.049"),
+            "{}",
+            e.message
+        );
+        inp.params
+            .insert("sample-step-dta".into(), serde_json::json!(0.049));
+        assert!(Gamma.analyse(&inp).is_ok());
+    }
+
+    #[test]
     fn swapping_the_reference_changes_the_normalisation() {
         // Flat 2.00 Gy measured against 2.04 Gy calculated, 3 %/2 mm global to the reference
         // maximum: measured as reference, dD = 0.06 Gy and gamma = 0.04/0.06 = 2/3; calculated

@@ -3,6 +3,7 @@
 
 pub mod beam_data;
 pub mod csv_data;
+pub mod dicom_lengths;
 pub mod film_scan;
 pub mod rtdose;
 pub mod rtplan;

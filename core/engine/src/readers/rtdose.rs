@@ -59,12 +59,28 @@ pub(crate) fn parse_part10(
         .get(128..)
         .filter(|rest| rest.starts_with(b"DICM"))
         .ok_or_else(not_dicom)?;
+    // Every declared length must fit the file before a decoder allocates it.
+    let damaged = |e: String| {
+        fail(
+            format!("damaged or truncated DICOM: {e}"),
+            "copy or export the file again",
+        )
+    };
+    let ts = super::dicom_lengths::meta_transfer_syntax(&rest[4..])
+        .map_err(damaged)?
+        .ok_or_else(not_dicom)?;
+    let Some(encoding) = super::dicom_lengths::Encoding::of(&ts) else {
+        return Err(fail(
+            format!("transfer syntax {ts} (deflated) is not supported"),
+            "export the file uncompressed (Implicit or Explicit VR Little Endian)",
+        ));
+    };
+    super::dicom_lengths::check(&rest[4..], encoding).map_err(damaged)?;
     let meta = dicom_object::meta::FileMetaTable::from_reader(rest).map_err(|_| not_dicom())?;
     let sop_class = meta
         .media_storage_sop_class_uid
         .trim_end_matches('\0')
         .to_string();
-    let ts = meta.transfer_syntax().trim_end_matches('\0').to_string();
     let obj = dicom_object::OpenFileOptions::new()
         .read_preamble(dicom_object::file::ReadPreamble::Never)
         .from_reader(rest)
@@ -82,9 +98,10 @@ pub fn read_raw(path: &Path, bytes: &[u8]) -> Result<RawDoseGrid, Diagnostic> {
     let fail = |msg: String, help: &str| Diagnostic::file(path, msg).help(help);
     // The transfer syntax is checked from the file meta group first, so an unsupported syntax
     // gets a clear message instead of a decoder error.
-    let rest = bytes.get(128..).filter(|rest| rest.starts_with(b"DICM"));
-    if let Some(meta) = rest.and_then(|r| dicom_object::meta::FileMetaTable::from_reader(r).ok()) {
-        let ts = meta.transfer_syntax().trim_end_matches('\0').to_string();
+    let rest = bytes
+        .get(132..)
+        .filter(|_| bytes[128..].starts_with(b"DICM"));
+    if let Some(Ok(Some(ts))) = rest.map(super::dicom_lengths::meta_transfer_syntax) {
         if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
             return Err(fail(
                 format!("unsupported transfer syntax {ts}"),
