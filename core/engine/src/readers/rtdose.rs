@@ -101,13 +101,13 @@ pub fn read_raw(path: &Path, bytes: &[u8]) -> Result<RawDoseGrid, Diagnostic> {
     let rest = bytes
         .get(132..)
         .filter(|_| bytes[128..].starts_with(b"DICM"));
-    if let Some(Ok(Some(ts))) = rest.map(super::dicom_lengths::meta_transfer_syntax) {
-        if !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts) {
-            return Err(fail(
-                format!("unsupported transfer syntax {ts}"),
-                "export the dose uncompressed as Implicit or Explicit VR Little Endian",
-            ));
-        }
+    if let Some(Ok(Some(ts))) = rest.map(super::dicom_lengths::meta_transfer_syntax)
+        && !SUPPORTED_SYNTAXES.iter().any(|(uid, _)| *uid == ts)
+    {
+        return Err(fail(
+            format!("unsupported transfer syntax {ts}"),
+            "export the dose uncompressed as Implicit or Explicit VR Little Endian",
+        ));
     }
     let (obj, _, sop_class) = parse_part10(path, bytes, "RT Dose")?;
     if sop_class != RT_DOSE_STORAGE {
