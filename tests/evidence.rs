@@ -307,3 +307,46 @@ fn an_input_over_the_limit_is_refused_before_it_is_read() {
         o.stderr
     );
 }
+
+#[cfg(target_os = "linux")]
+#[test]
+fn left_overs_of_a_killed_run_and_archive_add_are_removed_by_the_next_one() {
+    let campaign_path = demo_copy("evidence-leftovers");
+    let folder = campaign_path.parent().expect("folder").to_path_buf();
+    // PIDs never exceed 4194304 on Linux (PID_MAX_LIMIT), so no process of that number runs.
+    let dead = folder.join(".run.partial-4194305");
+    std::fs::create_dir_all(dead.join("inputs")).expect("mkdir");
+    std::fs::write(dead.join("results.json"), "{").expect("write");
+    let (run, o) = crate::support::run_into_folder(&campaign_path, "lin-b");
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert!(!dead.exists());
+    assert!(
+        relative(&o.stdout, &folder)
+            .contains("removed .run.partial-4194305, left by an interrupted earlier write"),
+        "{}",
+        o.stdout
+    );
+    let archive = folder.join("archive");
+    let add = |dir: &Path| cli(&["archive", "add", arg(dir), "--archive", arg(&archive)]);
+    assert_eq!(add(&run).code, 0);
+    let object = walkdir::WalkDir::new(archive.join("objects"))
+        .min_depth(1)
+        .max_depth(1)
+        .into_iter()
+        .filter_map(Result::ok)
+        .next()
+        .expect("an object folder")
+        .into_path();
+    let tmp = object.join(".0123abcd.tmp-4194305");
+    std::fs::write(&tmp, "half an object").expect("write");
+    std::fs::write(archive.join("ledger.tmp-4194305"), "half a ledger").expect("write");
+    let (again, _) = {
+        let c = folder.join("second/campaign.yaml");
+        crate::support::copy_tree(&root().join("demo-campaign"), &folder.join("second"));
+        crate::support::run_into_folder(&c, "lin-a")
+    };
+    let o = add(&again);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    assert!(!tmp.exists() && !archive.join("ledger.tmp-4194305").exists());
+    assert_eq!(cli(&["archive", "verify", arg(&archive)]).code, 0);
+}

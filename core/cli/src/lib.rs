@@ -449,6 +449,7 @@ fn run_campaign(
         });
     }
     let pdf = write_run(
+        io,
         &out,
         &c,
         &prepared,
@@ -591,6 +592,27 @@ fn verify(io: &mut Io, run_dir: &Path, trusted_dir: Option<&Path>) -> Result<u8,
     })
 }
 
+/// Remove the left-overs of interrupted writes in `dir` whose process no longer runs, saying
+/// what was removed and what could not be (with the command that removes it).
+fn sweep_leftovers(io: &mut Io, dir: &Path) {
+    let (removed, failed) = beamproof_engine::leftovers::sweep(dir);
+    for p in removed {
+        outln!(
+            io,
+            "removed {}, left by an interrupted earlier write",
+            p.display()
+        );
+    }
+    for (p, e) in failed {
+        outln!(
+            io,
+            "note: {} was left by an interrupted earlier write and cannot be removed ({e}); remove it with `rm -r {}`",
+            p.display(),
+            p.display()
+        );
+    }
+}
+
 /// Where a run was written, and its report's checksum.
 fn print_folder(io: &mut Io, label: &str, out: &Path, pdf: &[u8]) {
     outln!(io, "{label}: {}", out.display());
@@ -644,12 +666,18 @@ fn render_reports(
 /// Render the report and the HTML summary from the results and write the run folder (results,
 /// report, its checksum, HTML, inputs, manifest) atomically; returns the report's bytes.
 fn write_run(
+    io: &mut Io,
     out: &Path,
     campaign: &Campaign,
     prepared: &Prepared,
     json: &[u8],
     analysis_files: &[(String, Vec<u8>)],
 ) -> Result<Vec<u8>, Failure> {
+    let parent = out
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    sweep_leftovers(io, parent);
     let (pdf, html) = render_reports(campaign, prepared, json)?;
     let pdf_sum = format!(
         "{}  report.pdf\n",
@@ -710,6 +738,7 @@ fn compare(
         ));
     }
     let pdf = write_run(
+        io,
         &out,
         &c.campaign,
         &c.prepared,
@@ -744,6 +773,9 @@ fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
                     format!("date `{date}` is not a valid date"),
                     "write --date YYYY-MM-DD",
                 ));
+            }
+            for d in archive::leftover_folders(&dir) {
+                sweep_leftovers(io, &d);
             }
             let e = archive::add(&dir, &run_dir, &date).map_err(|e| {
                 fail(

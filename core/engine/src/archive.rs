@@ -81,6 +81,25 @@ fn replace_atomically(path: &Path, bytes: &[u8]) -> Result<(), String> {
     Ok(())
 }
 
+/// The folders where an interrupted add may leave temporary files: the archive itself and
+/// each object folder.
+pub fn leftover_folders(archive: &Path) -> Vec<PathBuf> {
+    if !archive.join(MARKER).is_file() {
+        return Vec::new();
+    }
+    let mut out = vec![archive.to_path_buf()];
+    if let Ok(entries) = std::fs::read_dir(archive.join("objects")) {
+        let mut dirs: Vec<PathBuf> = entries
+            .filter_map(|e| e.ok())
+            .filter(|e| e.file_type().is_ok_and(|t| t.is_dir()))
+            .map(|e| e.path())
+            .collect();
+        dirs.sort();
+        out.extend(dirs);
+    }
+    out
+}
+
 fn object_path(archive: &Path, sha: &str) -> PathBuf {
     archive.join("objects").join(&sha[..2]).join(sha)
 }

@@ -9,6 +9,7 @@ pub mod compare;
 pub mod diag;
 pub mod film;
 pub mod input_store;
+pub mod leftovers;
 pub mod mu_input;
 pub mod output;
 pub mod prepare;
