@@ -122,7 +122,9 @@ fn truncated_dicom_is_refused() {
     let msg = fails(&campaign);
     assert_eq!(
         msg,
-        "error: cannot read as DICOM: Could not read data set token: Could not read 221892 value bytes for element tagged (7FE0,0010): Could not read value from source at position 570: failed to fill whole buffer\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file is damaged or truncated; copy or export it again\n\n1 problem found; nothing was run\n"
+        // The declared length checked against the bytes that follow, before decoding (DICOM
+        // PS3.5 7.1: the Pixel Data element's 4-byte length; byte offsets from the file start).
+        "error: damaged or truncated DICOM: data element (7FE0,0010) at byte 890 declares 221892 bytes, but only 110495 follow\n  --> data/tps/open-6x-10x10.dcm\n  = help: the file is damaged or truncated; copy or export it again\n\n1 problem found; nothing was run\n"
     );
 }
 

@@ -191,18 +191,33 @@ pub fn render_pdf(
             .enumerate()
             .map(|(n, svg)| (format!("fig/{n}.svg"), svg.into_bytes())),
     );
-    let results: serde_json::Value =
+    // Only the fields the PDF's metadata needs (a full JSON tree of a large run would take
+    // many times the results' size).
+    #[derive(serde::Deserialize)]
+    struct Run {
+        date: String,
+    }
+    #[derive(serde::Deserialize)]
+    struct CampaignHead {
+        #[serde(default)]
+        sha256: String,
+    }
+    #[derive(serde::Deserialize)]
+    struct MachineHead {
+        #[serde(default)]
+        id: String,
+    }
+    #[derive(serde::Deserialize)]
+    struct Head {
+        run: Run,
+        campaign: CampaignHead,
+        machine: MachineHead,
+    }
+    let head: Head =
         serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
-    let date = results["run"]["date"]
-        .as_str()
-        .unwrap_or_default()
-        .to_string();
+    let date = head.run.date;
     let ymd = parse_date(&date).ok_or(ReportError::Date(date))?;
-    let ident = format!(
-        "beamproof:{}:{}",
-        results["campaign"]["sha256"].as_str().unwrap_or_default(),
-        results["machine"]["id"].as_str().unwrap_or_default()
-    );
+    let ident = format!("beamproof:{}:{}", head.campaign.sha256, head.machine.id);
     let template_name = report_template(templates)?.1;
     typeset::compile_pdf(source, ymd, &ident, files).map_err(|problems| {
         let p = problems

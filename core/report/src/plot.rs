@@ -136,7 +136,8 @@ fn extent(values: impl Iterator<Item = f64>) -> (f64, f64) {
         })
 }
 
-/// Finite (x, y) runs of a series: a NaN breaks a line.
+/// Finite (x, y) runs of a series: a NaN breaks a line. Each run is thinned for drawing to at
+/// most [`MAX_DRAWN`] points (see [`thin`]); the results keep every point.
 fn runs(s: &Series) -> Vec<Vec<(f64, f64)>> {
     let mut out = vec![Vec::new()];
     for (&x, &y) in s.x.iter().zip(&s.y) {
@@ -149,6 +150,43 @@ fn runs(s: &Series) -> Vec<Vec<(f64, f64)>> {
         }
     }
     out.retain(|r| !r.is_empty());
+    out.into_iter().map(thin).collect()
+}
+
+/// Most points drawn of one run of a series: a 640-pixel-wide chart shows no more, and a scan
+/// of millions of points would otherwise make an SVG too large to typeset.
+pub const MAX_DRAWN: usize = 2000;
+
+/// Thin a run to at most [`MAX_DRAWN`] points by min-max decimation: the run is cut into
+/// consecutive buckets and each keeps its first and last point and its lowest and highest
+/// point, in their original order, so every extreme (a spike, a dip, the field edges) stays
+/// visible (common practice in plotting large series, no single source).
+fn thin(run: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
+    if run.len() <= MAX_DRAWN {
+        return run;
+    }
+    let per = run.len().div_ceil(MAX_DRAWN / 4);
+    let mut out = Vec::with_capacity(MAX_DRAWN);
+    for bucket in run.chunks(per) {
+        let (mut lo, mut hi) = (0, 0);
+        for (i, p) in bucket.iter().enumerate() {
+            if p.1 < bucket[lo].1 {
+                lo = i;
+            }
+            if p.1 > bucket[hi].1 {
+                hi = i;
+            }
+        }
+        let mut keep = [0, lo, hi, bucket.len() - 1];
+        keep.sort_unstable();
+        let mut last = usize::MAX;
+        for k in keep {
+            if k != last {
+                out.push(bucket[k]);
+                last = k;
+            }
+        }
+    }
     out
 }
 
@@ -642,6 +680,25 @@ mod tests {
         assert_eq!(cells[100], Some(1.7));
         assert_eq!(cells[5], None, "a block with no value stays undefined");
         assert!((bx[0] + 0.5).abs() < 1e-12 && (bx[150] - 299.5).abs() < 1e-12);
+    }
+
+    #[test]
+    fn long_series_are_thinned_for_drawing_keeping_every_extreme() {
+        // A million-point ramp with one spike and one dip: the thinned run keeps both, the
+        // first and last points, its order, and at most MAX_DRAWN points.
+        let n = 1_000_000;
+        let mut run: Vec<(f64, f64)> = (0..n).map(|i| (i as f64, i as f64 * 1e-6)).collect();
+        run[123_457].1 = 50.0;
+        run[876_543].1 = -50.0;
+        let t = thin(run.clone());
+        assert!(t.len() <= MAX_DRAWN, "{}", t.len());
+        assert_eq!(t.first(), run.first());
+        assert_eq!(t.last(), run.last());
+        assert!(t.contains(&(123_457.0, 50.0)) && t.contains(&(876_543.0, -50.0)));
+        assert!(t.windows(2).all(|w| w[0].0 < w[1].0), "order kept");
+        // Short runs are drawn whole.
+        let short: Vec<(f64, f64)> = (0..MAX_DRAWN).map(|i| (i as f64, 1.0)).collect();
+        assert_eq!(thin(short.clone()), short);
     }
 
     #[test]

@@ -38,9 +38,22 @@ impl Header {
     }
 }
 
+/// Most lines a data CSV may hold: a plane of 1000 x 1000 points, or a scan of a million
+/// samples, is well inside; a larger file is refused before it is parsed, because its figures
+/// and results would take many times its size in memory.
+pub const MAX_LINES: usize = 2_000_000;
+
 /// Read a data CSV file.
 pub fn read(path: &Path, text: &str) -> Result<(DoseUnit, DatasetData), Diagnostic> {
     let err = |line: usize, msg: String, help: &str| Diagnostic::at(path, line, 0, msg).help(help);
+    let lines = text.bytes().filter(|b| *b == b'\n').count() + 1;
+    if lines > MAX_LINES {
+        return Err(Diagnostic::file(
+            path,
+            format!("the file holds {lines} lines, more than the {MAX_LINES} a data CSV may hold"),
+        )
+        .help("give the scan or plane at a coarser step (a million points is already far finer than any criterion needs)"));
+    }
     let mut header = Header::default();
     let mut first_data_line = None;
     for (i, line) in text.lines().enumerate() {
@@ -485,6 +498,22 @@ mod tests {
         };
         assert_eq!(c.positions_mm, vec![5.0, 10.0, 20.0]);
         assert_eq!(c.dose, vec![0.8, 1.0, 0.5]);
+    }
+
+    #[test]
+    fn a_file_of_more_lines_than_the_limit_is_refused_before_parsing() {
+        let head = "# beamproof-data: 1\n# shape: curve\n# axis: x\n# dose-unit: %\n# position-unit: mm\nposition,dose\n";
+        let body: String = (0..MAX_LINES).map(|i| format!("{i},1\n")).collect();
+        let e = read_str(&format!("{head}{body}")).expect_err("refused");
+        assert_eq!(
+            e.message,
+            format!(
+                "the file holds {} lines, more than the {MAX_LINES} a data CSV may hold",
+                MAX_LINES + 7
+            )
+        );
+        let body: String = (0..MAX_LINES - 7).map(|i| format!("{i},1\n")).collect();
+        assert!(read_str(&format!("{head}{body}")).is_ok());
     }
 
     #[test]

@@ -63,7 +63,7 @@ pub(crate) fn parse_part10(
     let damaged = |e: String| {
         fail(
             format!("damaged or truncated DICOM: {e}"),
-            "copy or export the file again",
+            "the file is damaged or truncated; copy or export it again",
         )
     };
     let ts = super::dicom_lengths::meta_transfer_syntax(&rest[4..])
