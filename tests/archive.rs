@@ -312,3 +312,195 @@ fn a_run_folder_holding_a_symbolic_link_is_refused_not_partly_archived() {
     );
     assert!(!dir.join("ledger.jsonl").exists());
 }
+
+/// Rewrite the ledger with every chain digest and the head recomputed, as someone with write
+/// access to the archive could: only what the entries themselves prove is left to catch it.
+fn rewrite_ledger_consistently(dir: &Path, entries: &[serde_json::Value]) {
+    use beamproof_engine::checksum::sha256_hex;
+    let mut prev = "0".repeat(64);
+    let mut lines = Vec::new();
+    for e in entries {
+        let mut e = e.clone();
+        e["prev"] = serde_json::Value::String(prev.clone());
+        let line = serde_json::to_string(&e).expect("json");
+        prev = sha256_hex(line.as_bytes());
+        lines.push(line);
+    }
+    write_ledger(dir, &lines);
+    std::fs::write(
+        dir.join("ledger.head"),
+        format!("entries: {}\nlast: {prev}\n", lines.len()),
+    )
+    .expect("head");
+}
+
+#[test]
+fn stored_runs_are_checked_against_their_own_manifests_orphans_and_linked_objects_named() {
+    let (dir, _) = archive_of_three("arch-own-manifest");
+    let original = ledger(&dir);
+    let mut entries: Vec<serde_json::Value> = original
+        .iter()
+        .map(|l| serde_json::from_str(l).expect("entry"))
+        .collect();
+    // Entry 2's results.json swapped for entry 1's (an object that exists), the chain and head
+    // recomputed: the ledger is consistent, the run is not.
+    let sha_of = |e: &serde_json::Value, path: &str| {
+        e["files"]
+            .as_array()
+            .expect("files")
+            .iter()
+            .find(|f| f["path"] == path)
+            .cloned()
+            .expect("file")
+    };
+    let other = sha_of(&entries[0], "results.json");
+    for f in entries[1]["files"].as_array_mut().expect("files") {
+        if f["path"] == "results.json" {
+            *f = other.clone();
+        }
+    }
+    rewrite_ledger_consistently(&dir, &entries);
+    let o = verify(&dir);
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout.contains("entry demo-6x-lin-b-2026-11-20#2: stored file results.json differs from the checksum in the run's own manifest"),
+        "{}",
+        o.stdout
+    );
+    write_ledger(&dir, &original);
+    rewrite_ledger_consistently(
+        &dir,
+        &original
+            .iter()
+            .map(|l| serde_json::from_str(l).expect("entry"))
+            .collect::<Vec<_>>(),
+    );
+    assert_eq!(verify(&dir).code, 0);
+    // An object no entry names is reported as a note, not a failure.
+    let stray = dir.join("objects/00").join("0".repeat(64));
+    std::fs::create_dir_all(stray.parent().expect("dir")).expect("mkdir");
+    std::fs::write(&stray, "stray").expect("write");
+    let o = verify(&dir);
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(
+        o.stdout.contains(&format!(
+            "note: objects/00/{} belongs to no entry",
+            "0".repeat(64)
+        )),
+        "{}",
+        o.stdout
+    );
+    // An object replaced by a symbolic link to an identical copy is refused.
+    #[cfg(unix)]
+    {
+        let obj = object(&dir, &original[0], "report.pdf");
+        let copy = dir.with_file_name("report-copy.pdf");
+        std::fs::copy(&obj, &copy).expect("copy");
+        std::fs::remove_file(&obj).expect("rm");
+        std::os::unix::fs::symlink(&copy, &obj).expect("link");
+        let o = verify(&dir);
+        assert_eq!(o.code, 3, "{}", o.stdout);
+        assert!(
+            o.stdout.contains(
+                "stored file report.pdf of entry demo-6x-lin-a-2026-11-20#1 is a symbolic link"
+            ),
+            "{}",
+            o.stdout
+        );
+    }
+}
+
+#[test]
+fn a_seal_exposes_newest_entries_removed_with_a_recomputed_head() {
+    let (dir, _) = archive_of_three("arch-seal");
+    let keys = scratch("arch-seal-keys");
+    let chief = keygen(&keys, "Bo Chief", "chief physicist", "bo.key");
+    let trusted = scratch("arch-seal-trusted");
+    std::fs::copy(keys.join("bo.key.pub"), trusted.join("bo.pub")).expect("copy");
+    let verify_trusted = || {
+        cli(&[
+            "archive",
+            "verify",
+            arg(&dir),
+            "--trusted-keys",
+            arg(&trusted),
+        ])
+    };
+    // Unsealed: the limit of what the chain proves is said.
+    let o = verify_trusted();
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(o.stdout.contains("note: no valid seal"), "{}", o.stdout);
+    // A seal records the head as it is now: 3 entries.
+    let o = cli(&[
+        "archive",
+        "seal",
+        "--archive",
+        arg(&dir),
+        "--key",
+        arg(&chief),
+        "--date",
+        "2026-11-25",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let o = verify_trusted();
+    assert_eq!(o.code, 0, "{}", o.stdout);
+    assert!(
+        o.stdout.contains(
+            "note: sealed through entry 3 by Bo Chief (chief physicist) on 2026-11-25, trusted key"
+        ),
+        "{}",
+        o.stdout
+    );
+    // The newest entry removed and the head recomputed: the chain alone is consistent, the
+    // seal is not.
+    let entries: Vec<serde_json::Value> = ledger(&dir)
+        .iter()
+        .map(|l| serde_json::from_str(l).expect("entry"))
+        .collect();
+    let original = ledger(&dir);
+    let head = std::fs::read(dir.join("ledger.head")).expect("head");
+    rewrite_ledger_consistently(&dir, &entries[..2]);
+    let o = verify_trusted();
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout.contains(
+            "records 3 entries, the ledger holds 2: entries were removed after it was sealed"
+        ),
+        "{}",
+        o.stdout
+    );
+    write_ledger(&dir, &original);
+    std::fs::write(dir.join("ledger.head"), head).expect("restore head");
+    assert_eq!(verify_trusted().code, 0);
+    // A seal by a key that is not trusted fails a trusted check.
+    let stranger = keygen(&keys, "Cy Stranger", "physicist", "cy.key");
+    let o = cli(&[
+        "archive",
+        "seal",
+        "--archive",
+        arg(&dir),
+        "--key",
+        arg(&stranger),
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let o = verify_trusted();
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout
+            .contains("by Cy Stranger (physicist) was made with a key that is not trusted"),
+        "{}",
+        o.stdout
+    );
+    // An edited seal is invalid.
+    let seal = dir.join("seals/000003-bo-chief.seal");
+    let text = std::fs::read_to_string(&seal).expect("seal");
+    std::fs::write(&seal, text.replace("entries: 3", "entries: 2")).expect("edit");
+    let o = cli(&["archive", "verify", arg(&dir)]);
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout
+            .contains("seal seals/000003-bo-chief.seal: the signature does not match its content"),
+        "{}",
+        o.stdout
+    );
+}

@@ -173,8 +173,26 @@ enum ArchiveCommand {
         #[arg(long)]
         date: Option<String>,
     },
-    /// Re-hash every stored file and the whole ledger chain, naming what is wrong
-    Verify { archive: PathBuf },
+    /// Re-hash every stored file and the whole ledger chain, check every stored run against its
+    /// own manifest and every seal, naming what is wrong
+    Verify {
+        archive: PathBuf,
+        /// Folder of trusted public keys (`*.pub`): seals must be made by them
+        #[arg(long = "trusted-keys")]
+        trusted_keys: Option<PathBuf>,
+    },
+    /// Sign the archive's current head (how many entries it holds and the last one's digest), so
+    /// that removing the newest entries later is detected
+    Seal {
+        #[arg(long)]
+        archive: PathBuf,
+        /// Key file made by `beamproof keygen`
+        #[arg(long)]
+        key: PathBuf,
+        /// Sealing date YYYY-MM-DD (default: today, UTC)
+        #[arg(long)]
+        date: Option<String>,
+    },
     /// List the archived runs
     List {
         #[arg(long)]
@@ -793,8 +811,20 @@ fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
             );
             Ok(EXIT_GO)
         }
-        ArchiveCommand::Verify { archive: dir } => {
-            let r = archive::verify(&dir)
+        ArchiveCommand::Verify {
+            archive: dir,
+            trusted_keys,
+        } => {
+            let trusted = match trusted_keys {
+                Some(d) => Some(signing::trusted_keys(&d).map_err(|e| {
+                    fail(
+                        e,
+                        "give a folder of `*.pub` files made by `beamproof keygen`",
+                    )
+                })?),
+                None => None,
+            };
+            let r = archive::verify(&dir, trusted.as_deref())
                 .map_err(|e| fail(e, "give the folder `beamproof archive add` created"))?;
             for p in &r.problems {
                 outln!(io, "{p}");
@@ -821,6 +851,32 @@ fn archive_cmd(io: &mut Io, a: ArchiveCommand) -> Result<u8, Failure> {
                 );
                 Ok(EXIT_VERIFY_FAILED)
             }
+        }
+        ArchiveCommand::Seal {
+            archive: dir,
+            key,
+            date,
+        } => {
+            let k = signing::read_key(&key)
+                .map_err(|e| fail(e, "give the key file made by `beamproof keygen`"))?;
+            let date = date.unwrap_or_else(signing::today_utc);
+            if !beamproof_engine::campaign::valid_iso_date(&date) {
+                return Err(fail(
+                    format!("date `{date}` is not a valid date"),
+                    "write --date YYYY-MM-DD",
+                ));
+            }
+            let (path, n) = archive::seal(&dir, &k, &date)
+                .map_err(|e| fail(e, "seal an intact, non-empty archive"))?;
+            outln!(
+                io,
+                "sealed {} through entry {n} by {} ({}) on {date}: {}",
+                dir.display(),
+                k.name,
+                k.role,
+                path.display()
+            );
+            Ok(EXIT_GO)
         }
         ArchiveCommand::List { archive: dir } => {
             let entries = archive::list(&dir)

@@ -10,6 +10,17 @@
 //! - `ledger.head`: the number of entries and the digest of the last line, so that a truncated
 //!   ledger is detected too (an auditor may also record the head elsewhere).
 //!
+//! - `seals/NNNNNN-NAME.seal`: optional signed checkpoints of the head (`archive seal`).
+//!
+//! What it proves: every stored file is the one archived (content addresses), every entry is
+//! a complete run that matches its own manifest and signatures, and no entry was edited,
+//! reordered or removed from the middle (the chain). A chain alone cannot show that the newest
+//! entries were removed and the head recomputed: a seal, signed by a trusted key, records
+//! the head at a time, so `verify --trusted-keys` finds entries removed after it; entries
+//! added after the latest seal are reported as unsealed. The archive does not prove when a
+//! run was made (dates are what the signer and the adder stated) or that its measurements
+//! were true: that is the signers' word.
+//!
 //! Adding writes every object and then the new ledger and head, each to a temporary file that
 //! is flushed and renamed into place: a crash leaves the previous archive intact (at worst the
 //! head lags one complete entry, which `verify` reports as an unconfirmed last add). Nothing in
@@ -27,6 +38,17 @@ const MARKER: &str = "beamproof-archive";
 const MARKER_TEXT: &str = "beamproof-archive: 1\n";
 const LEDGER: &str = "ledger.jsonl";
 const HEAD: &str = "ledger.head";
+const SEALS: &str = "seals";
+const SEAL_HEADER: &str = "beamproof-archive-seal: 1";
+const SEAL_KEYS: [&str; 7] = [
+    "entries",
+    "last",
+    "date",
+    "name",
+    "role",
+    "public-key",
+    "signature",
+];
 const GENESIS: &str = "0000000000000000000000000000000000000000000000000000000000000000";
 
 /// One archived file.
@@ -161,12 +183,18 @@ pub struct Report {
     pub head: String,
 }
 
-/// Re-hash every stored file and the whole chain; name everything that is wrong.
-pub fn verify(archive: &Path) -> Result<Report, String> {
+/// Re-hash every stored file and the whole chain, check every stored run against its own
+/// manifest and every seal (against `trusted` keys when given); name everything that is
+/// wrong.
+pub fn verify(
+    archive: &Path,
+    trusted: Option<&[crate::signing::TrustedKey]>,
+) -> Result<Report, String> {
     open(archive, false)?;
     let lines = ledger_lines(archive)?;
     let mut r = Report::default();
     let mut prev = GENESIS.to_string();
+    let mut referenced = std::collections::BTreeSet::new();
     for (i, (line, entry)) in lines.iter().enumerate() {
         let n = i + 1;
         let Some(e) = entry else {
@@ -189,11 +217,23 @@ pub fn verify(archive: &Path) -> Result<Report, String> {
             ));
         }
         prev = sha256_hex(line.as_bytes());
+        let mut stored: std::collections::BTreeMap<&str, Vec<u8>> = Default::default();
         for f in &e.files {
             let p = object_path(archive, &f.sha256);
-            match std::fs::read(&p) {
+            referenced.insert(f.sha256.clone());
+            if std::fs::symlink_metadata(&p).is_ok_and(|m| m.file_type().is_symlink()) {
+                r.problems.push(format!(
+                    "stored file {} of entry {} is a symbolic link (object {}); objects must be regular files",
+                    f.path,
+                    e.id(),
+                    f.sha256
+                ));
+                continue;
+            }
+            match crate::input_store::read_regular(&p, crate::checksum::MAX_RUN_FILE_BYTES) {
                 Ok(b) if sha256_hex(&b) == f.sha256 && b.len() as u64 == f.size => {
-                    r.objects_checked += 1
+                    r.objects_checked += 1;
+                    stored.insert(&f.path, b);
                 }
                 Ok(_) => r.problems.push(format!(
                     "stored file {} of entry {} changed (object {})",
@@ -209,6 +249,7 @@ pub fn verify(archive: &Path) -> Result<Report, String> {
                 )),
             }
         }
+        r.problems.extend(entry_against_its_manifest(e, &stored));
         if !e
             .files
             .iter()
@@ -244,7 +285,263 @@ pub fn verify(archive: &Path) -> Result<Report, String> {
             lines.len()
         )),
     }
+    r.notes.extend(orphans(archive, &referenced));
+    check_seals(archive, &lines, trusted, &mut r);
     Ok(r)
+}
+
+/// A stored run checked against its own manifest, as `verify` checks a run folder: every file
+/// the manifest lists is stored with that checksum, every other stored file is a signature,
+/// and every signature is valid for the manifest.
+fn entry_against_its_manifest(
+    e: &Entry,
+    stored: &std::collections::BTreeMap<&str, Vec<u8>>,
+) -> Vec<Problem> {
+    let mut problems = Vec::new();
+    let Some(manifest) = stored.get(MANIFEST) else {
+        return problems; // already reported: the entry does not hold a readable manifest
+    };
+    let listed = match crate::checksum::parse_manifest(manifest) {
+        Ok(l) => l,
+        Err(why) => {
+            return vec![format!(
+                "entry {}: its stored manifest is unreadable ({why})",
+                e.id()
+            )];
+        }
+    };
+    for (path, sha) in &listed {
+        match e.files.iter().find(|f| &f.path == path) {
+            Some(f) if &f.sha256 == sha => {}
+            Some(_) => problems.push(format!(
+                "entry {}: stored file {path} differs from the checksum in the run's own manifest",
+                e.id()
+            )),
+            None => problems.push(format!(
+                "entry {}: {path}, listed in the run's own manifest, is not stored",
+                e.id()
+            )),
+        }
+    }
+    let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
+    for f in &e.files {
+        if f.path != MANIFEST && !listed.contains_key(&f.path) && !f.path.starts_with(&sig_prefix) {
+            problems.push(format!(
+                "entry {}: stored file {} is neither in the run's manifest nor a signature",
+                e.id(),
+                f.path
+            ));
+        }
+    }
+    let sigs: Vec<(&str, &[u8])> = stored
+        .iter()
+        .filter(|(p, _)| p.starts_with(&sig_prefix))
+        .map(|(p, b)| (*p, b.as_slice()))
+        .collect();
+    for (file, c) in verify_signatures(&sigs, manifest, None) {
+        if let SignatureCheck::Invalid { reason } = c {
+            problems.push(format!(
+                "entry {}: signature {file} is invalid ({reason})",
+                e.id()
+            ));
+        }
+    }
+    problems
+}
+
+/// Objects that no entry names: left by an interrupted add (objects are written before the
+/// ledger) or put there by hand. Reported, never removed.
+fn orphans(archive: &Path, referenced: &std::collections::BTreeSet<String>) -> Vec<String> {
+    let mut out = Vec::new();
+    for entry in walkdir::WalkDir::new(archive.join("objects"))
+        .min_depth(2)
+        .max_depth(2)
+        .sort_by_file_name()
+        .into_iter()
+        .filter_map(Result::ok)
+    {
+        let name = entry.file_name().to_string_lossy();
+        if !referenced.contains(name.as_ref()) && crate::leftovers::leftover_pid(&name).is_none() {
+            out.push(format!(
+                "objects/{}/{name} belongs to no entry (left by an interrupted add, or put there by hand); it proves nothing and may be removed",
+                entry
+                    .path()
+                    .parent()
+                    .and_then(|p| p.file_name())
+                    .map(|n| n.to_string_lossy().into_owned())
+                    .unwrap_or_default()
+            ));
+        }
+    }
+    out
+}
+
+/// The text a seal signs: every line before its `signature:` line.
+fn seal_text(entries: &str, last: &str, date: &str, name: &str, role: &str, key: &str) -> String {
+    format!(
+        "{SEAL_HEADER}\nentries: {entries}\nlast: {last}\ndate: {date}\nname: {name}\nrole: {role}\npublic-key: {key}\n"
+    )
+}
+
+/// Seal the archive's current head with `key`: a signed record of how many entries it holds
+/// and the digest of the last one. Refused for an empty or damaged archive.
+pub fn seal(
+    archive: &Path,
+    key: &crate::signing::KeyPair,
+    date: &str,
+) -> Result<(PathBuf, usize), String> {
+    open(archive, false)?;
+    let r = verify(archive, None)?;
+    if !r.problems.is_empty() {
+        return Err(format!(
+            "the archive {} fails verification ({}); a damaged archive is not sealed",
+            archive.display(),
+            r.problems.join("; ")
+        ));
+    }
+    if r.entries == 0 {
+        return Err(format!("the archive {} is empty", archive.display()));
+    }
+    let text = seal_text(
+        &r.entries.to_string(),
+        &r.head,
+        date,
+        &key.name,
+        &key.role,
+        &key.public_hex(),
+    );
+    let dir = archive.join(SEALS);
+    std::fs::create_dir_all(&dir).map_err(io_err(&dir))?;
+    let path = dir.join(format!(
+        "{:06}-{}.seal",
+        r.entries,
+        crate::signing::slug(&key.name)
+    ));
+    if path.exists() {
+        return Err(format!(
+            "{} already exists: {} has sealed this head already",
+            path.display(),
+            key.name
+        ));
+    }
+    write_synced(
+        &path,
+        format!("{text}signature: {}\n", key.sign_hex(&text)).as_bytes(),
+    )?;
+    Ok((path, r.entries))
+}
+
+/// Check every seal against the ledger (and the trusted keys), and say how far the latest
+/// valid seal reaches.
+fn check_seals(
+    archive: &Path,
+    lines: &[(String, Option<Entry>)],
+    trusted: Option<&[crate::signing::TrustedKey]>,
+    r: &mut Report,
+) {
+    use crate::signing::printable;
+    let mut files: Vec<PathBuf> = std::fs::read_dir(archive.join(SEALS))
+        .map(|d| d.filter_map(|e| e.ok().map(|e| e.path())).collect())
+        .unwrap_or_default();
+    files.sort();
+    let mut latest: Option<(usize, String)> = None;
+    for p in files {
+        let name = format!(
+            "{SEALS}/{}",
+            p.file_name()
+                .map(|n| n.to_string_lossy())
+                .unwrap_or_default()
+        );
+        let Ok(bytes) = crate::input_store::read_regular(&p, 1 << 20) else {
+            r.problems
+                .push(format!("seal {name} is unreadable or not a regular file"));
+            continue;
+        };
+        let text = String::from_utf8_lossy(&bytes);
+        let f = match crate::signing::read_fields(&text, SEAL_HEADER, &SEAL_KEYS) {
+            Ok(f) => f,
+            Err(why) => {
+                r.problems.push(format!(
+                    "seal {name} is not a beamproof seal: {}",
+                    printable(&why)
+                ));
+                continue;
+            }
+        };
+        let signed = seal_text(f[0], f[1], f[2], f[3], f[4], f[5]);
+        if !crate::signing::verify_hex(f[5], &signed, f[6]) {
+            r.problems.push(format!(
+                "seal {name}: the signature does not match its content (altered or forged)"
+            ));
+            continue;
+        }
+        let Ok(n) = f[0].parse::<usize>() else {
+            r.problems
+                .push(format!("seal {name}: `entries` is not a number"));
+            continue;
+        };
+        let who = format!("{} ({})", printable(f[3]), printable(f[4]));
+        if let Some(keys) = trusted {
+            match keys.iter().find(|k| k.public_key == f[5]) {
+                None => {
+                    r.problems.push(format!(
+                        "seal {name} by {who} was made with a key that is not trusted"
+                    ));
+                    continue;
+                }
+                Some(k) if k.name != f[3] || k.role != f[4] => {
+                    r.problems.push(format!(
+                        "seal {name} is signed as {who}, but the trusted key file {} records this key's holder as {} ({})",
+                        k.file, k.name, k.role
+                    ));
+                    continue;
+                }
+                Some(_) => {}
+            }
+        }
+        if n == 0 || n > lines.len() {
+            r.problems.push(format!(
+                "seal {name} by {who} records {n} entries, the ledger holds {}: entries were removed after it was sealed",
+                lines.len()
+            ));
+            continue;
+        }
+        if sha256_hex(lines[n - 1].0.as_bytes()) != f[1] {
+            r.problems.push(format!(
+                "seal {name} by {who} does not match ledger line {n}: the ledger was rewritten after it was sealed"
+            ));
+            continue;
+        }
+        if latest.as_ref().is_none_or(|(m, _)| n >= *m) {
+            latest = Some((
+                n,
+                format!(
+                    "{who} on {}{}",
+                    printable(f[2]),
+                    match trusted {
+                        Some(_) => ", trusted key",
+                        None => ", key not checked (no --trusted-keys)",
+                    }
+                ),
+            ));
+        }
+    }
+    match latest {
+        Some((n, by)) => {
+            r.notes.push(format!("sealed through entry {n} by {by}"));
+            if n < lines.len() {
+                r.notes.push(format!(
+                    "entries {} to {} were added after the latest seal and are not sealed",
+                    n + 1,
+                    lines.len()
+                ));
+            }
+        }
+        None if !lines.is_empty() => r.notes.push(
+            "no valid seal: the chain shows that no entry was edited, reordered or removed from the middle, but not that the newest entries were removed with the head recomputed; seal the archive with `beamproof archive seal`".into(),
+        ),
+        None => {}
+    }
 }
 
 fn parse_head(text: &str) -> (Option<usize>, String) {
@@ -296,7 +593,7 @@ pub fn add(archive: &Path, run: &Path, date: &str) -> Result<Entry, String> {
         ));
     }
     open(archive, true)?;
-    let before = verify(archive)?;
+    let before = verify(archive, None)?;
     if !before.problems.is_empty() {
         return Err(format!(
             "the archive {} fails verification ({}); nothing is added to a damaged archive",

@@ -95,6 +95,27 @@ impl Verification {
     }
 }
 
+/// The manifest's entries (path to lower-case SHA-256); an error names the first malformed
+/// line.
+pub fn parse_manifest(bytes: &[u8]) -> Result<std::collections::BTreeMap<String, String>, String> {
+    let text =
+        std::str::from_utf8(bytes).map_err(|_| "the manifest is not UTF-8 text".to_string())?;
+    let mut out = std::collections::BTreeMap::new();
+    for (i, line) in text.lines().enumerate() {
+        match line.split_once("  ") {
+            Some((hash, rel))
+                if hash.len() == 64
+                    && hash.chars().all(|c| c.is_ascii_hexdigit())
+                    && safe_relative(rel) =>
+            {
+                out.insert(rel.to_string(), hash.to_ascii_lowercase());
+            }
+            _ => return Err(format!("manifest line {} is malformed", i + 1)),
+        }
+    }
+    Ok(out)
+}
+
 /// Largest single file of a run folder read for verification (4 GiB).
 pub const MAX_RUN_FILE_BYTES: u64 = 4 << 30;
 

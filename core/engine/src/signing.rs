@@ -108,6 +108,44 @@ impl KeyPair {
     pub fn public_hex(&self) -> String {
         hex(self.key.verifying_key().as_bytes())
     }
+
+    /// The Ed25519 signature of `text`'s bytes, in hex.
+    pub fn sign_hex(&self, text: &str) -> String {
+        hex(&self.key.sign(text.as_bytes()).to_bytes())
+    }
+}
+
+/// Whether `signature_hex` is a valid Ed25519 signature of `text` by `public_hex` (strict
+/// verification, RFC 8032).
+pub fn verify_hex(public_hex: &str, text: &str, signature_hex: &str) -> bool {
+    let (Some(pk), Some(sig)) = (unhex::<32>(public_hex), unhex::<64>(signature_hex)) else {
+        return false;
+    };
+    VerifyingKey::from_bytes(&pk).is_ok_and(|vk| {
+        vk.verify_strict(text.as_bytes(), &Signature::from_bytes(&sig))
+            .is_ok()
+    })
+}
+
+/// The lines of a `key: value` file after its header, in the given order (for other signed
+/// records, such as archive seals).
+pub fn read_fields<'a>(text: &'a str, header: &str, keys: &[&str]) -> Result<Vec<&'a str>, String> {
+    fields(text, header, keys)
+}
+
+/// A file-name-safe form of a signer's name.
+pub fn slug(name: &str) -> String {
+    let s: String = name
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() {
+                c.to_ascii_lowercase()
+            } else {
+                '-'
+            }
+        })
+        .collect();
+    s.trim_matches('-').to_string()
 }
 
 /// Make a key pair from 32 secret bytes (random for `keygen`, fixed in tests).
@@ -312,19 +350,8 @@ pub fn sign_run(
     let sig = key.key.sign(text.as_bytes());
     let dir = run.join(SIGNATURES_DIR);
     std::fs::create_dir_all(&dir).map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
-    let slug: String = key
-        .name
-        .chars()
-        .map(|c| {
-            if c.is_ascii_alphanumeric() {
-                c.to_ascii_lowercase()
-            } else {
-                '-'
-            }
-        })
-        .collect();
     let n = existing_signatures(run).len() + 1;
-    let path = dir.join(format!("{n:02}-{}.sig", slug.trim_matches('-')));
+    let path = dir.join(format!("{n:02}-{}.sig", slug(&key.name)));
     write_new(
         &path,
         format!("{text}signature: {}\n", hex(&sig.to_bytes())).as_bytes(),
