@@ -158,3 +158,84 @@ fn unknown_machine_gets_a_suggestion() {
         "error: machine `lin-c` is not described in the campaign\n  --> campaign.yaml\n  = help: did you mean `lin-a`? the campaign describes: lin-a, lin-b\n\n1 problem found; nothing was run\n"
     );
 }
+
+/// The place (line, column) of the first `needle` in the campaign file, 1-based.
+fn place(campaign: &Path, needle: &str) -> (usize, usize) {
+    let text = std::fs::read_to_string(campaign).expect("read");
+    let at = text.find(needle).expect("needle");
+    let line = text[..at].matches('\n').count() + 1;
+    let column = at - text[..at].rfind('\n').map_or(0, |i| i + 1) + 1;
+    (line, column)
+}
+
+#[test]
+fn a_mistyped_metric_id_is_refused_before_it_can_leave_a_metric_unjudged() {
+    // A criteria-set metric id that no analysis judges would be silently informational: a
+    // 4 mm field-size error would then pass. Check and run refuse it with a suggestion.
+    let campaign = crate::support::demo_copy("err-metric-typo");
+    edit(
+        &campaign,
+        "      field-size-mm: {tolerance: 1, action: 2}\n",
+        "      feild-size-mm: {tolerance: 1, action: 2}\n",
+    );
+    let (line, column) = place(&campaign, "feild-size-mm");
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains(&format!(
+            "error: criteria set `small-fields` gives levels for metric `feild-size-mm`, which no analysis of its tests judges\n  --> campaign.yaml:{line}:{column}\n"
+        )) && msg.contains("= help: did you mean `field-size-mm`?"),
+        "{msg}"
+    );
+    // An id no analysis of the set's tests judges at all gets the list of those that are.
+    let campaign = crate::support::demo_copy("err-metric-unknown");
+    edit(
+        &campaign,
+        "      field-size-mm: {tolerance: 1, action: 2}\n",
+        "      field-width: {tolerance: 1, action: 2}\n",
+    );
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains("gives levels for metric `field-width`, which no analysis of its tests judges")
+            && msg.contains("= help: metric ids the analyses of the tests using `small-fields` judge: centre-mm, dmax-mm, e0-mev, "),
+        "{msg}"
+    );
+}
+
+#[test]
+fn a_criteria_set_lacking_what_an_analysis_judges_by_is_found_at_check() {
+    let campaign = crate::support::demo_copy("err-set-lacks");
+    edit(
+        &campaign,
+        "        criteria: chamber-in-water\n",
+        "        criteria: array-plans\n",
+    );
+    let (line, column) = place(&campaign, "criteria: array-plans\n");
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains(&format!(
+            "which has no `dose-difference-percent`; analysis `point-dose` judges by it\n  --> campaign.yaml:{line}:{}\n",
+            column + "criteria: ".len()
+        )),
+        "{msg}"
+    );
+}
+
+#[test]
+fn a_campaign_without_a_date_fails_check_as_it_fails_run() {
+    let campaign = crate::support::demo_copy("err-no-date");
+    edit(&campaign, "date: 2026-11-20\n", "");
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains("error: no run date: the results record the date the measurements were analysed\n  --> campaign.yaml\n  = help: add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD"),
+        "{msg}"
+    );
+    let o = cli(&[
+        "check",
+        campaign.to_str().expect("utf8"),
+        "--machine",
+        "lin-a",
+        "--date",
+        "2026-11-20",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+}

@@ -27,8 +27,9 @@ use crate::outcome::AnalysisOutput;
 pub const ABI_MAJOR: u32 = 1;
 /// Minor ABI version: fields appended to [`PluginDescriptor`] or optional fields added to the
 /// wire JSON raise it; older minors still load. 1.1 added `AnalysisInput::mu`; 1.2 added
-/// `AnalysisInput::film` and `AnalysisOutput::derived_measured` and `calibration`.
-pub const ABI_MINOR: u32 = 2;
+/// `AnalysisInput::film` and `AnalysisOutput::derived_measured` and `calibration`; 1.3 added
+/// `PluginManifest::judged_metrics`.
+pub const ABI_MINOR: u32 = 3;
 /// Name of the exported entry function. The major version is part of the name, so a plugin
 /// built for another major version fails at symbol lookup even before the handshake.
 pub const ENTRY_SYMBOL: &str = "beamproof_plugin_entry_v1";

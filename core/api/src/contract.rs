@@ -79,6 +79,29 @@ pub struct ParamSpec {
     pub description: String,
 }
 
+/// A metric id a plugin judges against a criteria set's `metrics:` levels.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MetricSpec {
+    /// The key a criteria set's `metrics:` block uses.
+    pub id: String,
+    /// The test kinds for which the plugin judges it.
+    pub kinds: Vec<TestKind>,
+    /// Unit of the levels (the judged difference's unit; `%` for ratios judged relatively).
+    pub unit: String,
+    pub description: String,
+}
+
+impl MetricSpec {
+    pub fn new(id: &str, kinds: &[TestKind], unit: &str, description: &str) -> MetricSpec {
+        MetricSpec {
+            id: id.into(),
+            kinds: kinds.to_vec(),
+            unit: unit.into(),
+            description: description.into(),
+        }
+    }
+}
+
 /// What a plugin says about itself before it is used.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PluginManifest {
@@ -90,6 +113,42 @@ pub struct PluginManifest {
     /// Test kinds the plugin can analyse.
     pub kinds: Vec<TestKind>,
     pub params: Vec<ParamSpec>,
+    /// Every metric id the plugin judges against a criteria set's `metrics:` levels (ABI 1.3);
+    /// `None` from a plugin built before it was declared, whose ids cannot be checked.
+    #[serde(default)]
+    pub judged_metrics: Option<Vec<MetricSpec>>,
+    /// What the plugin cannot analyse without in a test's criteria set (ABI 1.3), so that
+    /// `check` finds a set that would judge nothing before anything runs.
+    #[serde(default)]
+    pub needs: Vec<CriteriaNeed>,
+}
+
+/// A part of a criteria set a plugin cannot do without.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum CriteriaNeed {
+    /// At least one `gamma` criterion.
+    Gamma,
+    /// `dose-difference-percent` levels.
+    DoseDifference,
+}
+
+impl CriteriaNeed {
+    /// The campaign key that provides it.
+    pub fn key(self) -> &'static str {
+        match self {
+            CriteriaNeed::Gamma => "gamma",
+            CriteriaNeed::DoseDifference => "dose-difference-percent",
+        }
+    }
+
+    /// Whether `set` provides it.
+    pub fn met_by(self, set: &CriteriaSet) -> bool {
+        match self {
+            CriteriaNeed::Gamma => !set.gamma.is_empty(),
+            CriteriaNeed::DoseDifference => set.dose_difference_percent.is_some(),
+        }
+    }
 }
 
 /// Whether dose differences are relative to one value for all points or to each reference point.

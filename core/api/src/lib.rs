@@ -10,8 +10,8 @@ pub mod mu;
 mod outcome;
 
 pub use contract::{
-    Analysis, AnalysisError, AnalysisInput, BeamInfo, CriteriaSet, GammaCriterion, Levels,
-    Normalisation, ParamSpec, ParamType, PluginManifest, TestInfo, TestKind,
+    Analysis, AnalysisError, AnalysisInput, BeamInfo, CriteriaNeed, CriteriaSet, GammaCriterion,
+    Levels, MetricSpec, Normalisation, ParamSpec, ParamType, PluginManifest, TestInfo, TestKind,
 };
 pub use data::{
     Curve, CurveAxis, Dataset, DatasetData, DoseUnit, Grid, PointSet, SINGLETON_AXIS_TOLERANCE_MM,

@@ -53,6 +53,9 @@ enum Command {
         /// Check only this machine (default: every machine of the campaign)
         #[arg(long)]
         machine: Option<String>,
+        /// The run date `run` will be given with --date, when the campaign states none
+        #[arg(long)]
+        date: Option<String>,
         #[command(flatten)]
         inputs: InputArgs,
     },
@@ -263,8 +266,9 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
         Command::Check {
             campaign,
             machine,
+            date,
             inputs,
-        } => check(io, &campaign, machine.as_deref(), &inputs),
+        } => check(io, &campaign, machine.as_deref(), date, &inputs),
         Command::Run {
             campaign,
             machine,
@@ -339,6 +343,7 @@ fn gather(
         diags.extend(d);
         Registry::built_in()
     });
+    diags.extend(beamproof_engine::prepare::check_criteria_use(&c, &registry));
     let chosen: Vec<Machine> = match machines {
         Machines::All => c.machines.clone(),
         Machines::One(id) => match choose_machine(&c, id) {
@@ -371,6 +376,7 @@ fn check(
     io: &mut Io,
     campaign: &Path,
     machine: Option<&str>,
+    date: Option<String>,
     inputs: &InputArgs,
 ) -> Result<u8, Failure> {
     let which = if machine.is_some() {
@@ -379,6 +385,8 @@ fn check(
         Machines::All
     };
     let (c, registry, prepared) = gather(campaign, which, inputs)?;
+    // `run` needs a run date: the same rule here, so that a campaign `check` passes runs.
+    let date = run_date(campaign, date.or_else(|| c.date.clone()))?;
     // A campaign's own report template is compiled too, on results without tests, so that its
     // mistakes show now and not at the end of a run.
     if let Some(p) = prepared.first().filter(|p| p.templates.is_some()) {
@@ -386,7 +394,6 @@ fn check(
             tests: Vec::new(),
             ..p.clone()
         };
-        let date = c.date.clone().unwrap_or_else(|| "2000-01-01".into());
         let record = beamproof_engine::run::run(&c, &empty, &registry, &date, |_, _, _| {});
         render_reports(&c, &empty, &record.to_json())?;
     }
@@ -414,24 +421,7 @@ fn run_campaign(
         return Err(Diagnostic::file(campaign, "no machine to run").into());
     };
     let m = prepared.machine.clone();
-    let date = match date.or_else(|| c.date.clone()) {
-        Some(d) if beamproof_engine::campaign::valid_iso_date(&d) => d,
-        Some(d) => {
-            return Err(
-                Diagnostic::file(campaign, format!("run date `{d}` is not a valid date"))
-                    .help("write --date YYYY-MM-DD")
-                    .into(),
-            );
-        }
-        None => {
-            return Err(Diagnostic::file(
-                campaign,
-                "no run date: the results record the date the measurements were analysed",
-            )
-            .help("add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD")
-            .into());
-        }
-    };
+    let date = run_date(campaign, date.or_else(|| c.date.clone()))?;
     let out =
         out.unwrap_or_else(|| PathBuf::from("runs").join(format!("{}-{}-{date}", c.id, m.id)));
     if out.exists() {
@@ -477,6 +467,24 @@ fn run_campaign(
     print_folder(io, "run folder", &out, &pdf);
     print_summary(io, &format!("machine {}", m.id), "tests", &record.summary);
     Ok(if record.is_go() { EXIT_GO } else { EXIT_NO_GO })
+}
+
+/// The run date: `--date`, else the campaign's `date:`; a valid ISO date is required.
+fn run_date(campaign: &Path, date: Option<String>) -> Result<String, Failure> {
+    match date {
+        Some(d) if beamproof_engine::campaign::valid_iso_date(&d) => Ok(d),
+        Some(d) => Err(
+            Diagnostic::file(campaign, format!("run date `{d}` is not a valid date"))
+                .help("write --date YYYY-MM-DD")
+                .into(),
+        ),
+        None => Err(Diagnostic::file(
+            campaign,
+            "no run date: the results record the date the measurements were analysed",
+        )
+        .help("add `date: YYYY-MM-DD` to the campaign or pass --date YYYY-MM-DD")
+        .into()),
+    }
 }
 
 /// The counts, verdict, reasons and notes of a run, then the cautions.

@@ -111,9 +111,51 @@ pub struct Campaign {
     pub machines: Vec<Machine>,
     pub plugin_dirs: Vec<(PathBuf, Pos)>,
     pub criteria: Vec<CriteriaSet>,
+    /// Where each criteria set and each of its `metrics:` ids is written, by set name.
+    pub criteria_places: BTreeMap<String, CriteriaPlaces>,
     pub sites: Vec<Site>,
     /// Template folder replacing the built-in templates, resolved against `dir`.
     pub templates: Option<(PathBuf, Pos)>,
+}
+
+/// Where a criteria set and its metric ids are written in the campaign file.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct CriteriaPlaces {
+    pub set: Pos,
+    /// Each `metrics:` id with its place, in file order.
+    pub metrics: Vec<(String, Pos)>,
+}
+
+/// The places of every criteria set and metric id under a `criteria:` node.
+fn criteria_places(n: &Node) -> BTreeMap<String, CriteriaPlaces> {
+    let Value::Map(sets) = &n.value else {
+        return BTreeMap::new();
+    };
+    sets.iter()
+        .filter_map(|(k, v)| {
+            let metrics = match &v.value {
+                Value::Map(fields) => fields
+                    .iter()
+                    .find(|(fk, _)| fk.scalar() == Some("metrics"))
+                    .map(|(_, m)| match &m.value {
+                        Value::Map(ids) => ids
+                            .iter()
+                            .filter_map(|(id, _)| Some((id.scalar()?.to_string(), Pos::of(id))))
+                            .collect(),
+                        _ => Vec::new(),
+                    })
+                    .unwrap_or_default(),
+                _ => Vec::new(),
+            };
+            Some((
+                k.scalar()?.to_string(),
+                CriteriaPlaces {
+                    set: Pos::of(k),
+                    metrics,
+                },
+            ))
+        })
+        .collect()
 }
 
 #[derive(Debug, Clone, PartialEq, Default)]
@@ -694,6 +736,7 @@ impl<'f> Decoder<'f> {
             machines: machines.unwrap_or_default(),
             plugin_dirs: plugin_dirs.unwrap_or_default(),
             criteria: criteria.unwrap_or_default(),
+            criteria_places: criteria_node.map(criteria_places).unwrap_or_default(),
             sites: sites.unwrap_or_default(),
             templates,
         })

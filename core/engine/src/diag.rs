@@ -95,12 +95,29 @@ pub fn render_all(diags: &[Diagnostic]) -> String {
 
 /// The nearest candidate to `word` by edit distance, when it is close enough to be a likely typo.
 pub fn nearest<'a>(word: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+    let candidates: Vec<&str> = candidates.into_iter().collect();
     candidates
-        .into_iter()
-        .map(|c| (strsim::damerau_levenshtein(word, c), c))
+        .iter()
+        .map(|&c| (strsim::damerau_levenshtein(word, c), c))
         .filter(|&(d, c)| d <= (c.len().max(word.len()) / 3).max(1))
         .min()
         .map(|(_, c)| c)
+        .or_else(|| {
+            // A word that is a whole-part prefix of exactly one candidate, or the other way
+            // round (`dose-difference` for `dose-difference-percent`).
+            let part_prefix = |short: &str, long: &str| {
+                short.len() >= 3
+                    && long.len() > short.len()
+                    && long.starts_with(short)
+                    && long[short.len()..].starts_with('-')
+            };
+            let hits: Vec<&str> = candidates
+                .iter()
+                .copied()
+                .filter(|c| part_prefix(word, c) || part_prefix(c, word))
+                .collect();
+            (hits.len() == 1).then(|| hits[0])
+        })
 }
 
 /// Help text for an unknown word: the nearest candidate when one is close, else `otherwise()`.
@@ -137,6 +154,19 @@ mod tests {
         assert_eq!(nearest("titel", keys), Some("title"));
         assert_eq!(nearest("machine", keys), Some("machines"));
         assert_eq!(nearest("zzz", keys), None);
+        // A key written without its last part, or with an extra one (common practice, no
+        // source): suggested when exactly one candidate fits.
+        let criteria = ["description", "dose-difference-percent", "gamma", "metrics"];
+        assert_eq!(
+            nearest("dose-difference", criteria),
+            Some("dose-difference-percent")
+        );
+        assert_eq!(nearest("gamma-criteria", criteria), Some("gamma"));
+        assert_eq!(
+            nearest("penumbra", ["penumbra-left-mm", "penumbra-right-mm"]),
+            None,
+            "two candidates fit: no guess"
+        );
     }
 
     #[test]

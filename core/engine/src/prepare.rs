@@ -74,6 +74,97 @@ impl Prepared {
     }
 }
 
+/// Check what each criteria set says against what the analyses of the tests using it judge,
+/// machine by machine alike: a `metrics:` id that no analysis of those tests judges (a typo
+/// would otherwise leave a metric unjudged and the verdict too kind) and a set that lacks what
+/// an analysis of a test cannot do without. Plugins that declare no judged metrics (built
+/// before ABI 1.3) leave their sets' ids unchecked.
+pub fn check_criteria_use(campaign: &Campaign, registry: &Registry) -> Vec<Diagnostic> {
+    let mut diags = Vec::new();
+    // For each set: the ids judged by the analyses of its tests (None once one is unknown).
+    let mut judged: BTreeMap<&str, Option<Vec<String>>> = BTreeMap::new();
+    for spec in campaign.sites.iter().flat_map(|s| &s.tests) {
+        let Some(set) = campaign.criteria_set(&spec.criteria.0) else {
+            continue;
+        };
+        let entry = judged.entry(set.name.as_str()).or_insert(Some(Vec::new()));
+        for a in &spec.analyses {
+            let Some(plugin) = registry.get(&a.plugin) else {
+                continue; // reported where the analyses are checked
+            };
+            match (&plugin.manifest.judged_metrics, entry.as_mut()) {
+                (Some(ms), Some(ids)) => ids.extend(
+                    ms.iter()
+                        .filter(|m| m.kinds.contains(&spec.kind))
+                        .map(|m| m.id.clone()),
+                ),
+                _ => *entry = None,
+            }
+            for need in &plugin.manifest.needs {
+                if !need.met_by(set) {
+                    let pos = spec.criteria.1;
+                    diags.push(
+                        Diagnostic::at(
+                            &campaign.path,
+                            pos.line,
+                            pos.column,
+                            format!(
+                                "test `{}` is judged by criteria set `{}`, which has no `{}`; analysis `{}` judges by it",
+                                spec.id,
+                                set.name,
+                                need.key(),
+                                plugin.manifest.name
+                            ),
+                        )
+                        .help(format!(
+                            "add `{}` to criteria set `{}`, or give the test a criteria set that has it",
+                            need.key(),
+                            set.name
+                        )),
+                    );
+                }
+            }
+        }
+    }
+    for (name, places) in &campaign.criteria_places {
+        let Some(Some(ids)) = judged.get(name.as_str()) else {
+            continue; // a set no test uses, or one whose plugins do not declare their ids
+        };
+        for (id, pos) in &places.metrics {
+            if ids.iter().any(|j| j == id) {
+                continue;
+            }
+            let mut valid: Vec<&str> = ids.iter().map(String::as_str).collect();
+            valid.sort_unstable();
+            valid.dedup();
+            let help = did_you_mean(id, valid.iter().copied(), || {
+                if valid.is_empty() {
+                    format!(
+                        "the analyses of the tests using `{name}` judge no metric ids; remove `{id}`"
+                    )
+                } else {
+                    format!(
+                        "metric ids the analyses of the tests using `{name}` judge: {}",
+                        valid.join(", ")
+                    )
+                }
+            });
+            diags.push(
+                Diagnostic::at(
+                    &campaign.path,
+                    pos.line,
+                    pos.column,
+                    format!(
+                        "criteria set `{name}` gives levels for metric `{id}`, which no analysis of its tests judges"
+                    ),
+                )
+                .help(help),
+            );
+        }
+    }
+    diags
+}
+
 /// Which machine to run: the one named, or the only one.
 pub fn choose_machine<'c>(
     campaign: &'c Campaign,

@@ -119,8 +119,25 @@ pub struct Comparison {
 }
 
 /// Judge each difference against the criteria set's levels for its id (informational when it
-/// has none) and lay the quantities out in a table.
-pub fn compare_quantities(title: &str, rows: &[Compared], criteria: &CriteriaSet) -> Comparison {
+/// has none) and lay the quantities out in a table. `judged` is the plugin's declaration of
+/// the ids it judges, with their difference units (its manifest's `judged_metrics`): every row
+/// must be declared there, checked in debug builds so the tests keep the declaration true.
+pub fn compare_quantities(
+    title: &str,
+    rows: &[Compared],
+    criteria: &CriteriaSet,
+    judged: &[(&str, &str, &str)],
+) -> Comparison {
+    for r in rows {
+        debug_assert!(
+            judged
+                .iter()
+                .any(|(id, unit, _)| *id == r.id && *unit == r.difference_unit()),
+            "metric `{}` (difference in {}) is not declared in the plugin's judged metrics",
+            r.id,
+            r.difference_unit()
+        );
+    }
     let mut metrics = Vec::new();
     let mut statuses = Vec::new();
     for r in rows {

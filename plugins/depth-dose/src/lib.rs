@@ -12,12 +12,36 @@ pub mod metrics;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, Curve, CurveAxis, DatasetData,
-    Figure, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
-    TestKind,
+    Figure, MetricSpec, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
+    Status, TestKind,
 };
 
 use beamproof_curve_tools::{Comparison, Geometry, compare_quantities, regional_output};
 use metrics::{at_depth, electron, normalise, photon};
+
+/// Every id a criteria set's `metrics:` may give levels for, with the unit of the judged
+/// difference (calculated minus measured; `pp` percentage points, `%` of the measured value
+/// for ratios) and meaning. The analysis judges exactly these ids (checked when the
+/// comparison is made, in debug builds).
+pub const JUDGED: &[(&str, &str, &str)] = &[
+    ("dmax-mm", "mm", "depth of maximum dose"),
+    (
+        "surface",
+        "pp",
+        "surface dose (first point), percent of maximum (photons)",
+    ),
+    ("pdd5", "pp", "PDD at 5 cm (photons)"),
+    ("pdd10", "pp", "PDD at 10 cm (photons)"),
+    ("pdd20", "pp", "PDD at 20 cm (photons)"),
+    ("pdd20-10", "%", "PDD20,10 (photons)"),
+    ("tpr20-10", "%", "TPR20,10 from PDD20,10 (photons)"),
+    ("pdd10x", "pp", "%dd(10)x of TG-51 (photons)"),
+    ("r90-mm", "mm", "R90 (electrons)"),
+    ("r80-mm", "mm", "R80 (electrons)"),
+    ("r50-mm", "mm", "R50 (electrons)"),
+    ("rp-mm", "mm", "practical range Rp (electrons)"),
+    ("e0-mev", "MeV", "mean energy at the surface E0 (electrons)"),
+];
 
 /// Plugin id used in campaign files.
 pub const NAME: &str = "depth-dose";
@@ -65,6 +89,13 @@ impl Analysis for DepthDose {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Depth-dose and beam-quality metrics (d_max, PDD, PDD20,10, TPR20,10, %dd(10)x; electron R90, R80, R50, Rp, E0), measured against calculated".into(),
             kinds: vec![TestKind::DepthDose],
+            judged_metrics: Some(
+                JUDGED
+                    .iter()
+                    .map(|(id, unit, what)| MetricSpec::new(id, &[TestKind::DepthDose], unit, what))
+                    .collect(),
+            ),
+            needs: Vec::new(),
             params: vec![
                 ParamSpec {
                     name: "modality".into(),
@@ -233,7 +264,7 @@ fn build_output(
         statuses,
         table,
         note: unjudged_note,
-    } = compare_quantities("Depth-dose metrics", rows, &input.criteria);
+    } = compare_quantities("Depth-dose metrics", rows, &input.criteria, JUDGED);
     // Difference curve at the measured depths the calculated scan covers.
     let (dz, dd): (Vec<f64>, Vec<f64>) = m
         .positions_mm
@@ -344,6 +375,55 @@ mod tests {
             m,
             c,
         )
+    }
+
+    /// Invented electron-like depth dose (test data): a rise to 100 % at 20 mm, a linear fall
+    /// to 5 % at 60 mm, a bremsstrahlung tail after.
+    fn electron_pdd(shift_mm: f64) -> Curve {
+        let z: Vec<f64> = (0..=100).map(f64::from).collect();
+        let d = z.iter().map(|&x| {
+            let x = x - shift_mm;
+            if x < 20.0 {
+                0.8 + 0.2 * x.max(0.0) / 20.0
+            } else if x < 60.0 {
+                1.0 - 0.95 * (x - 20.0) / 40.0
+            } else {
+                0.05 - 0.0001 * (x - 60.0)
+            }
+        });
+        Curve {
+            axis: CurveAxis::Depth,
+            positions_mm: z.clone(),
+            dose: d.collect(),
+        }
+    }
+
+    #[test]
+    fn electron_ranges_are_judged_under_their_declared_ids() {
+        // A calculated curve 2 mm deeper moves R50 by 2 mm (the linear fall: R50 at
+        // 20 + 40 x 0.5 / 0.95 mm), judged against 1 / 1.5 mm levels: FAIL.
+        let mut inp = input(
+            electron_pdd(0.0),
+            electron_pdd(2.0),
+            &[("r50-mm", 1.0, 1.5), ("e0-mev", 0.1, 0.2)],
+        );
+        inp.params
+            .insert("modality".into(), serde_json::json!("electron"));
+        let out = DepthDose.analyse(&inp).expect("runs");
+        let r50 = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:r50-mm")
+            .expect("r50");
+        assert!((r50.value - 2.0).abs() < 1e-6, "{}", r50.value);
+        assert_eq!(r50.status, Some(Status::Fail));
+        // E0 = 2.33 R50 (IAEA TRS-398): 2 mm deeper is 0.466 MeV more.
+        let e0 = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:e0-mev")
+            .expect("e0");
+        assert!((e0.value - 0.466).abs() < 1e-6, "{}", e0.value);
     }
 
     #[test]

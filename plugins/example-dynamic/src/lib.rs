@@ -10,7 +10,7 @@
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, DatasetData, Levels, Limits, Metric,
-    ParamSpec, ParamType, PluginManifest, Status, TestKind,
+    MetricSpec, ParamSpec, ParamType, PluginManifest, Status, TestKind,
 };
 
 /// The example analysis.
@@ -25,6 +25,13 @@ impl Analysis for MeanDoseRatio {
                 "Example dynamic plugin: mean calculated over mean measured dose of a point set"
                     .into(),
             kinds: vec![TestKind::PointDose, TestKind::PointSet],
+            judged_metrics: Some(vec![MetricSpec::new(
+                "mean-dose-ratio",
+                &[TestKind::PointDose, TestKind::PointSet],
+                "%",
+                "mean calculated over mean measured dose, deviation from 1",
+            )]),
+            needs: Vec::new(),
             params: vec![ParamSpec {
                 name: "fail-on-purpose".into(),
                 kind: ParamType::Bool,

@@ -14,8 +14,8 @@ mod tests;
 
 use beamproof_api::film::{CHANNELS, FilmInput, RgbScan};
 use beamproof_api::{
-    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Levels, Limits, Metric, ParamSpec,
-    ParamType, PluginManifest, Reference, Status, TestKind,
+    Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Levels, Limits, Metric, MetricSpec,
+    ParamSpec, ParamType, PluginManifest, Reference, Status, TestKind,
 };
 
 pub use calibrate::FIT_LEVELS;
@@ -35,6 +35,33 @@ impl Analysis for Film {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Radiochromic film dosimetry: rational calibration per colour channel, red-channel or multichannel dose (Micke et al 2011), placement from fiducial marks; the dose plane feeds the test's later analyses".into(),
             kinds: vec![TestKind::FilmCalibration, TestKind::Plane],
+            judged_metrics: Some(vec![
+                MetricSpec::new(
+                    "fit-max-residual-percent",
+                    &[TestKind::FilmCalibration],
+                    "%",
+                    "largest calibration residual of each channel, percent of the highest calibration dose",
+                ),
+                MetricSpec::new(
+                    "fiducial-rms-mm",
+                    &[TestKind::Plane],
+                    "mm",
+                    "fiducial residual after placement (root mean square)",
+                ),
+                MetricSpec::new(
+                    "pixels-outside-calibration-percent",
+                    &[TestKind::Plane],
+                    "%",
+                    "pixels with a dose beyond the calibrated range (excluded)",
+                ),
+                MetricSpec::new(
+                    "pixels-unreadable-percent",
+                    &[TestKind::Plane],
+                    "%",
+                    "pixels saturated or whose channels cannot agree (excluded)",
+                ),
+            ]),
+            needs: Vec::new(),
             params: vec![
                 ParamSpec {
                     name: "method".into(),

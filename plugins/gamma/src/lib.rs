@@ -328,6 +328,10 @@ impl Analysis for Gamma {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Gamma index for every gamma criterion of the criteria set, with exact (interpolation-free) simplex search".into(),
             kinds: vec![TestKind::DepthDose, TestKind::Profile, TestKind::Plane, TestKind::Volume, TestKind::PointSet],
+            // Judged against the criteria set's gamma criteria or dose-difference levels,
+            // never against `metrics:` levels.
+            judged_metrics: Some(Vec::new()),
+            needs: vec![beamproof_api::CriteriaNeed::Gamma],
             params: vec![
                 ParamSpec {
                     name: "reference".into(),

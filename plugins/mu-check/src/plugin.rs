@@ -236,6 +236,10 @@ impl Analysis for MuCheck {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Independent monitor-unit check (AAPM TG-71): dose per MU at the point from measured beam data, compared with the planning system's dose for its MU; Clarkson integration for MLC-shaped apertures".into(),
             kinds: vec![TestKind::MuCheck],
+            // Judged against the criteria set's gamma criteria or dose-difference levels,
+            // never against `metrics:` levels.
+            judged_metrics: Some(Vec::new()),
+            needs: Vec::new(),
             params: vec![
                 ParamSpec {
                     name: "geometry".into(),

@@ -50,6 +50,10 @@ impl Analysis for PointDose {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Measured against calculated dose at points, in percent of the measured (local) or a reference dose".into(),
             kinds: vec![TestKind::PointDose, TestKind::PointSet],
+            // Judged against the criteria set's gamma criteria or dose-difference levels,
+            // never against `metrics:` levels.
+            judged_metrics: Some(Vec::new()),
+            needs: vec![beamproof_api::CriteriaNeed::DoseDifference],
             params: vec![
                 ParamSpec {
                     name: "difference-relative-to".into(),

@@ -13,7 +13,8 @@ pub mod regions;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, CurveAxis, DatasetData, Figure,
-    ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status, TestKind,
+    MetricSpec, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
+    TestKind,
 };
 
 use beamproof_curve_tools::{
@@ -23,6 +24,63 @@ use metrics::{fff, profile};
 
 /// Plugin id used in campaign files.
 pub const NAME: &str = "profile";
+
+/// Every id a criteria set's `metrics:` may give levels for, with the unit of the judged
+/// difference (calculated minus measured; `pp` percentage points, `%` of the measured value
+/// for ratios) and meaning. The analysis judges exactly these ids (checked when the
+/// comparison is made, in debug builds).
+pub const JUDGED: &[(&str, &str, &str)] = &[
+    ("field-size-mm", "mm", "field size between the 50 % points"),
+    (
+        "centre-mm",
+        "mm",
+        "field centre, mid-point of the 50 % points",
+    ),
+    ("penumbra-left-mm", "mm", "penumbra 80/20, left"),
+    ("penumbra-right-mm", "mm", "penumbra 80/20, right"),
+    ("penumbra90-left-mm", "mm", "penumbra 90/10, left"),
+    ("penumbra90-right-mm", "mm", "penumbra 90/10, right"),
+    (
+        "flatness",
+        "pp",
+        "flatness, IEC 100 Dmax/Dmin (flattened beams)",
+    ),
+    (
+        "symmetry",
+        "pp",
+        "symmetry, IEC 100 max D(x)/D(-x) (flattened beams)",
+    ),
+    (
+        "flatness-variation",
+        "pp",
+        "flatness, 100 (Dmax-Dmin)/(Dmax+Dmin) (flattened beams)",
+    ),
+    (
+        "symmetry-point",
+        "pp",
+        "symmetry, 100 max |D(x)-D(-x)|/D(centre) (flattened beams)",
+    ),
+    ("in-field-max", "pp", "maximum in the flattened region"),
+    ("in-field-min", "pp", "minimum in the flattened region"),
+    (
+        "fff-field-size-mm",
+        "mm",
+        "FFF field size, renormalised (Fogliata et al 2012)",
+    ),
+    (
+        "fff-penumbra-left-mm",
+        "mm",
+        "FFF penumbra 80/20 left, renormalised",
+    ),
+    (
+        "fff-penumbra-right-mm",
+        "mm",
+        "FFF penumbra 80/20 right, renormalised",
+    ),
+    ("unflatness", "%", "FFF unflatness D(0)/D(80 % FS)"),
+    ("slope", "%", "FFF slope between FS/6 and FS/3"),
+    ("peak-mm", "mm", "FFF peak position"),
+];
 
 /// The profile analysis.
 #[derive(Debug, Default, Clone, Copy)]
@@ -136,6 +194,13 @@ impl Analysis for Profile {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Profile metrics: field size, centre, 80/20 and 90/10 penumbrae, IEC flatness and symmetry; FFF parameters (Fogliata et al 2012) for flattening-filter-free beams; measured against calculated".into(),
             kinds: vec![TestKind::Profile],
+            judged_metrics: Some(
+                JUDGED
+                    .iter()
+                    .map(|(id, unit, what)| MetricSpec::new(id, &[TestKind::Profile], unit, what))
+                    .collect(),
+            ),
+            needs: Vec::new(),
             params: vec![
                 ParamSpec {
                     name: "normalise".into(),
@@ -422,7 +487,7 @@ fn build_output(
         mut statuses,
         table,
         note: unjudged_note,
-    } = compare_quantities("Profile metrics", rows, &input.criteria);
+    } = compare_quantities("Profile metrics", rows, &input.criteria, JUDGED);
     let (regional_metrics, regional_table) = regional_output(regional, judge_regions);
     // The in-field tolerance (delta3) of the regional comparison as a band on the difference.
     let bands: Vec<Band> = regional
