@@ -38,6 +38,19 @@ fn the_report_states_verdict_tests_cautions_and_checksums() {
     for caution in beamproof_engine::run::CAUTIONS {
         assert!(text.contains(caution), "caution missing: {caution}");
     }
+    // The MU checks' set gives no levels of its own; the TG-114 defaults the MU check applied
+    // (AAPM TG-114, simple geometry: 1 % tolerance, 2 % action) are stated with the set, never
+    // "informational".
+    let mu_set = text
+        .split("Criteria set mu-simple")
+        .nth(1)
+        .expect("the mu-simple set is listed");
+    let mu_set = &mu_set[..mu_set.find("Criteria set").unwrap_or(mu_set.len())];
+    assert!(
+        mu_set.contains("default of `mu-check`") && mu_set.contains("1.00 %") && mu_set.contains("2.00 %"),
+        "{mu_set}"
+    );
+    assert!(!mu_set.contains("informational"), "{mu_set}");
     let r = results(&out);
     for site in r["sites"].as_array().expect("sites") {
         for t in site["tests"].as_array().expect("tests") {

@@ -353,7 +353,11 @@ impl View {
         let view = View {
             run_id: r.run.id.clone(),
             methods,
-            criteria: r.criteria.iter().map(criteria_view).collect(),
+            criteria: r
+                .criteria
+                .iter()
+                .map(|c| criteria_view(c, &r.sites))
+                .collect(),
             manifest,
             results_sha256,
             template: r.report.template.clone(),
@@ -504,7 +508,66 @@ fn manifest(r: &Results) -> Vec<FileIn> {
         .collect()
 }
 
-fn criteria_view(c: &CriteriaSet) -> CriteriaView {
+/// A criteria set's levels, then the levels the analyses of its tests applied on their own
+/// (defaults such as the MU check's TG-114 levels, or the film checks'), so that the report
+/// states every level that was applied, not only the set's.
+fn criteria_view(c: &CriteriaSet, sites: &[SiteIn]) -> CriteriaView {
+    let mut rows = own_criteria_rows(c);
+    let mut own: Vec<(f64, f64)> = Vec::new();
+    own.extend(c.dose_difference_percent.map(|l| (l.tolerance, l.action)));
+    own.extend(
+        c.gamma
+            .iter()
+            .map(|g| (g.tolerance_pass_percent, g.action_pass_percent)),
+    );
+    own.extend(c.metrics.values().map(|l| (l.tolerance, l.action)));
+    let is_own = |t: f64, a: f64| own.iter().any(|&(ot, oa)| ot == t && oa == a);
+    // (plugin, unit, tolerance, action) -> (first metric label, how many metrics)
+    let mut defaults: Vec<((String, String, f64, f64), (String, usize))> = Vec::new();
+    for t in sites
+        .iter()
+        .flat_map(|s| &s.tests)
+        .filter(|t| t.criteria == c.name)
+    {
+        for a in &t.analyses {
+            for m in a.output.iter().flat_map(|o| &o.metrics) {
+                let Some(l) = &m.limits else { continue };
+                if is_own(l.tolerance, l.action) {
+                    continue;
+                }
+                let key = (a.plugin.clone(), m.unit.clone(), l.tolerance, l.action);
+                match defaults.iter_mut().find(|(k, _)| *k == key) {
+                    Some((_, (_, n))) => *n += 1,
+                    None => defaults.push((key, (m.label.clone(), 1))),
+                }
+            }
+        }
+    }
+    for ((plugin, unit, tolerance, action), (label, n)) in defaults {
+        let unit = if unit.is_empty() {
+            String::new()
+        } else {
+            format!(" {unit}")
+        };
+        rows.push(CriterionRow {
+            quantity: format!("default of `{plugin}`"),
+            detail: if n > 1 {
+                format!("{label} and {} more", n - 1)
+            } else {
+                label
+            },
+            tolerance: format!("{}{unit}", fixed(tolerance, 2)),
+            action: format!("{}{unit}", fixed(action, 2)),
+        });
+    }
+    CriteriaView {
+        name: c.name.clone(),
+        rows,
+    }
+}
+
+/// The levels a criteria set gives itself.
+fn own_criteria_rows(c: &CriteriaSet) -> Vec<CriterionRow> {
     let mut rows = Vec::new();
     if let Some(l) = &c.dose_difference_percent {
         rows.push(CriterionRow {
@@ -540,10 +603,7 @@ fn criteria_view(c: &CriteriaSet) -> CriteriaView {
             action: fixed(l.action, 2),
         });
     }
-    CriteriaView {
-        name: c.name.clone(),
-        rows,
-    }
+    rows
 }
 
 fn params_text(p: &serde_json::Map<String, serde_json::Value>) -> String {
