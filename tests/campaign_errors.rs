@@ -239,3 +239,41 @@ fn a_campaign_without_a_date_fails_check_as_it_fails_run() {
     ]);
     assert_eq!(o.code, 0, "{}", o.stderr);
 }
+
+#[test]
+fn a_point_label_that_matches_nothing_is_found_at_check() {
+    let campaign = crate::support::demo_copy("err-point-label");
+    // The brain-metastasis array labels its detectors b001, b002, ...
+    let test = "        measured: data/{machine}/array-brain-mets-6x.csv\n        calculated:\n          file: data/tps/brain-mets-6x.dcm\n          patient-position: HFS\n          isocentre-mm: [10.0, -50.0, 25.0]\n        criteria: array-plans\n        analyses: [gamma]\n";
+    edit(
+        &campaign,
+        test,
+        &test.replace(
+            "analyses: [gamma]",
+            "analyses:\n          - plugin: gamma\n            params: {relative: true, normalisation-point: b0001}",
+        ),
+    );
+    let (line, column) = place(&campaign, "normalisation-point: b0001");
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains(&format!(
+            "error: `normalisation-point` of `gamma` names point `b0001`, which no point of data/lin-a/array-brain-mets-6x.csv carries\n  --> campaign.yaml:{line}:{column}\n"
+        )) && msg.contains("= help: did you mean `b001`?"),
+        "{msg}"
+    );
+    // A malformed coordinate triple is refused as a parameter.
+    let campaign = crate::support::demo_copy("err-point-xyz");
+    edit(
+        &campaign,
+        test,
+        &test.replace(
+            "analyses: [gamma]",
+            "analyses:\n          - plugin: gamma\n            params: {relative: true, normalisation-point: '1,2'}",
+        ),
+    );
+    let msg = fails(&campaign);
+    assert!(
+        msg.contains("parameter `normalisation-point` of `gamma` must be `x,y,z` (three numbers, mm) or a point label without commas, found \"1,2\""),
+        "{msg}"
+    );
+}

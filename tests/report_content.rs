@@ -47,7 +47,9 @@ fn the_report_states_verdict_tests_cautions_and_checksums() {
         .expect("the mu-simple set is listed");
     let mu_set = &mu_set[..mu_set.find("Criteria set").unwrap_or(mu_set.len())];
     assert!(
-        mu_set.contains("default of `mu-check`") && mu_set.contains("1.00 %") && mu_set.contains("2.00 %"),
+        mu_set.contains("default of `mu-check`")
+            && mu_set.contains("1.00 %")
+            && mu_set.contains("2.00 %"),
         "{mu_set}"
     );
     assert!(!mu_set.contains("informational"), "{mu_set}");

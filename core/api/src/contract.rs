@@ -59,11 +59,22 @@ impl TestKind {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "type", rename_all = "kebab-case")]
 pub enum ParamType {
-    Number { min: Option<f64>, max: Option<f64> },
-    Integer { min: Option<i64>, max: Option<i64> },
+    Number {
+        min: Option<f64>,
+        max: Option<f64>,
+    },
+    Integer {
+        min: Option<i64>,
+        max: Option<i64>,
+    },
     Bool,
-    Choice { choices: Vec<String> },
+    Choice {
+        choices: Vec<String>,
+    },
     Text,
+    /// A point of the test: `x,y,z` in mm, or the label of a point of the test's measured or
+    /// calculated point set, which `check` looks up (ABI 1.3).
+    PointRef,
 }
 
 /// One parameter a plugin accepts in a test's `params:` block.

@@ -285,6 +285,16 @@ pub fn prepare(
                     diags.push(d);
                     continue;
                 }
+                let refs = check_point_refs(
+                    campaign,
+                    registry,
+                    spec,
+                    &[measured.as_ref(), calculated.as_ref()],
+                );
+                if !refs.is_empty() {
+                    diags.extend(refs);
+                    continue;
+                }
                 // The decoder has checked that the criteria set exists.
                 let Some(criteria) = campaign.criteria_set(&spec.criteria.0).cloned() else {
                     continue;
@@ -441,6 +451,7 @@ pub fn validate_params(
             }
             (ParamType::Bool, serde_json::Value::Bool(_))
             | (ParamType::Text, serde_json::Value::String(_)) => None,
+            (ParamType::PointRef, serde_json::Value::String(s)) => point_ref_problem(s),
             (ParamType::Choice { choices }, serde_json::Value::String(s))
                 if choices.contains(s) =>
             {
@@ -476,6 +487,91 @@ pub fn validate_params(
     }
 }
 
+/// What a point reference must be: three finite numbers `x,y,z` when it holds a comma, else a
+/// label (looked up once the test's data are read, see [`check_point_refs`]).
+fn point_ref_problem(s: &str) -> Option<String> {
+    if !s.contains(',') {
+        return s
+            .trim()
+            .is_empty()
+            .then(|| "must name a point label or give `x,y,z` in mm".to_string());
+    }
+    let ok = s
+        .split(',')
+        .map(|p| p.trim().parse::<f64>().ok().filter(|v| v.is_finite()))
+        .collect::<Option<Vec<f64>>>()
+        .is_some_and(|v| v.len() == 3);
+    (!ok).then(|| "must be `x,y,z` (three numbers, mm) or a point label without commas".into())
+}
+
+/// Every point-reference parameter that names a label must name a point of the test's
+/// measured or calculated point set (a label that matches nothing would otherwise only fail
+/// when the analysis runs).
+fn check_point_refs(
+    campaign: &Campaign,
+    registry: &Registry,
+    spec: &TestSpec,
+    data: &[Option<&PreparedInput>],
+) -> Vec<Diagnostic> {
+    let mut diags = Vec::new();
+    let sets: Vec<(&str, &beamproof_api::PointSet)> = data
+        .iter()
+        .flatten()
+        .filter_map(|i| match &i.dataset.data {
+            DatasetData::Points(p) => Some((i.rel.as_str(), p)),
+            _ => None,
+        })
+        .collect();
+    for a in &spec.analyses {
+        let Some(plugin) = registry.get(&a.plugin) else {
+            continue;
+        };
+        for (name, value, pos) in &a.params {
+            let is_ref = plugin
+                .manifest
+                .params
+                .iter()
+                .any(|p| &p.name == name && p.kind == ParamType::PointRef);
+            let Some(label) = value.as_str().filter(|s| is_ref && !s.contains(',')) else {
+                continue;
+            };
+            let label = label.trim();
+            if sets
+                .iter()
+                .any(|(_, p)| p.labels.iter().any(|l| l == label))
+            {
+                continue;
+            }
+            let at = |m: String| Diagnostic::at(&campaign.path, pos.line, pos.column, m);
+            let d = match sets.as_slice() {
+                [] => at(format!(
+                    "`{name}` of `{}` names point `{label}`, but test `{}` has no point set to find it in",
+                    a.plugin, spec.id
+                ))
+                .help("give the point as `x,y,z` in mm"),
+                _ => {
+                    let labels: Vec<&str> = sets
+                        .iter()
+                        .flat_map(|(_, p)| p.labels.iter().map(String::as_str))
+                        .filter(|l| !l.is_empty())
+                        .collect();
+                    let files: Vec<&str> = sets.iter().map(|(f, _)| *f).collect();
+                    at(format!(
+                        "`{name}` of `{}` names point `{label}`, which no point of {} carries",
+                        a.plugin,
+                        files.join(" or ")
+                    ))
+                    .help(did_you_mean(label, labels.iter().copied(), || {
+                        format!("labels there: {}", labels.join(", "))
+                    }))
+                }
+            };
+            diags.push(d);
+        }
+    }
+    diags
+}
+
 fn range_problem(v: f64, min: Option<f64>, max: Option<f64>) -> Option<String> {
     match (min, max) {
         (Some(lo), _) if v < lo => Some(format!("must be at least {lo}")),
@@ -491,6 +587,7 @@ fn kind_word(kind: &ParamType) -> &'static str {
         ParamType::Bool => "true or false",
         ParamType::Choice { .. } => "one of the listed words",
         ParamType::Text => "text",
+        ParamType::PointRef => "`x,y,z` in mm or a point label",
     }
 }
 

@@ -349,7 +349,7 @@ impl Analysis for Gamma {
                 },
                 ParamSpec {
                     name: "normalisation-point".into(),
-                    kind: ParamType::Text,
+                    kind: ParamType::PointRef,
                     default: None,
                     unit: String::new(),
                     description: "Global normalisation at a point: `x,y,z` in mm, or the label of a reference point; with `relative`, both distributions are normalised to their dose there".into(),
