@@ -523,7 +523,8 @@ fn criteria_view(c: &CriteriaSet, sites: &[SiteIn]) -> CriteriaView {
     own.extend(c.metrics.values().map(|l| (l.tolerance, l.action)));
     let is_own = |t: f64, a: f64| own.iter().any(|&(ot, oa)| ot == t && oa == a);
     // (plugin, unit, tolerance, action) -> (first metric label, how many metrics)
-    let mut defaults: Vec<((String, String, f64, f64), (String, usize))> = Vec::new();
+    type Key = (String, String, f64, f64);
+    let mut defaults: Vec<(Key, (String, usize))> = Vec::new();
     for t in sites
         .iter()
         .flat_map(|s| &s.tests)
