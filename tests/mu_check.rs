@@ -409,3 +409,49 @@ fn per_beam_rt_doses_are_sampled_at_the_point() {
         ]
     );
 }
+
+#[test]
+fn a_pdd_table_measured_at_another_ssd_is_converted_by_the_mayneord_factor() {
+    // The same SSD-setup beam (SSD 110 cm, 10 cm deep) with the PDD table stated as measured
+    // at SSD 100 cm (the normalisation SSD, the default) and at 110 cm (no conversion): the
+    // difference metrics differ exactly by the Mayneord F factor (Khan, The Physics of
+    // Radiation Therapy): F = ((110 + 1.5)/(100 + 1.5))^2 ((100 + 10)/(110 + 10))^2 =
+    // 1.014006, d0 = 1.5 cm being the PDD's normalisation depth.
+    let tests = "      - id: mu-far
+        name: one beam at an extended SSD
+        kind: mu-check
+        beam: 6x
+        criteria: mu-default
+        mu:
+          beam-data: beam-data/beam-data.yaml
+          beams:
+            - {id: far, field-cm: [10, 10], ssd-cm: 110, depth-cm: 10, setup: ssd, mu: 150, tps-dose-gy: 0.85}
+        analyses: [mu-check]
+";
+    let independent = |pdd_ssd: Option<&str>| {
+        let c = campaign(&format!("mu-far-{}", pdd_ssd.unwrap_or("default")), tests);
+        if let Some(s) = pdd_ssd {
+            let bd = c.with_file_name("beam-data/beam-data.yaml");
+            let text = std::fs::read_to_string(&bd).expect("beam data");
+            std::fs::write(
+                &bd,
+                text.replace("sad-cm: 100\n", &format!("sad-cm: 100\npdd-ssd-cm: {s}\n")),
+            )
+            .expect("write");
+        }
+        let (out, o) = run_into_folder(&c, "lin-a");
+        assert!(o.code <= 1, "{}{}", o.stdout, o.stderr);
+        let r = results(&out);
+        let (d, _) = metric(&r, 0);
+        // The independent dose for the planned MU, from its difference to the TPS dose.
+        0.85 * (1.0 + d / 100.0)
+    };
+    let converted = independent(None);
+    let as_measured = independent(Some("110"));
+    let f = (111.5f64 / 101.5).powi(2) * (110.0f64 / 120.0).powi(2);
+    assert!((f - 1.014006).abs() < 5e-7);
+    assert!(
+        (converted / as_measured - f).abs() < 1e-9,
+        "{converted} / {as_measured}"
+    );
+}

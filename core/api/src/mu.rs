@@ -48,8 +48,11 @@ pub struct BeamData {
     pub d0_cm: f64,
     pub field0_cm: f64,
     pub dose_per_mu_cgy: f64,
-    /// PDD in percent at SSD0 against depth and field side at the surface.
+    /// PDD in percent against depth and field side at the surface, measured at SSD
+    /// `pdd_ssd_cm` (SSD0 when `None`); converted to a treatment SSD by the Mayneord F factor.
     pub pdd: Option<Table2>,
+    #[serde(default)]
+    pub pdd_ssd_cm: Option<f64>,
     /// TPR (normalised at d0) against depth and field side at the depth.
     pub tpr: Option<Table2>,
     /// Collimator scatter against collimator field side at the isocentre.

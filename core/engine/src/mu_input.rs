@@ -436,6 +436,7 @@ mod tests {
             fff: false,
             sad_cm: 100.0,
             ssd0_cm: 100.0,
+            pdd_ssd_cm: None,
             d0_cm: 1.5,
             field0_cm: 10.0,
             dose_per_mu_cgy: 1.0,

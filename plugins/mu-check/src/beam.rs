@@ -22,8 +22,9 @@ pub struct BeamData {
     pub sad_cm: f64,
     pub sc: Table1D,
     pub sp: Table1D,
-    /// PDD (%) against depth and field at the surface, at SSD0.
+    /// PDD (%) against depth and field at the surface, measured at SSD `pdd_ssd_cm`.
     pub pdd: Option<Table2D>,
+    pub pdd_ssd_cm: f64,
     /// TPR against depth and field at the point.
     pub tpr: Option<Table2D>,
     /// Off-axis ratio against depth (rows) and off-axis distance at the isocentre plane
@@ -146,6 +147,8 @@ pub fn calculate(data: &BeamData, beam: &BeamGeometry) -> Result<MuResult, Table
                 sc: data.sc.at(rc)?,
                 sp: data.sp.at(r_d0)?,
                 pdd_percent: pdd.at(beam.depth_cm, r_surface)?,
+                pdd_ssd_cm: data.pdd_ssd_cm,
+                depth_cm: beam.depth_cm,
                 wedge: beam.wedge,
                 tray: beam.tray,
                 oar,
@@ -191,6 +194,7 @@ mod tests {
             d0_cm: 1.5,
             ssd0_cm: 100.0,
             sad_cm: 100.0,
+            pdd_ssd_cm: 100.0,
             sc: t1("Sc", [0.970, 1.010, 1.030]),
             sp: t1("Sp", [0.980, 1.008, 1.020]),
             pdd: Some(
@@ -225,7 +229,8 @@ mod tests {
 
     #[test]
     fn isocentric_example_end_to_end_from_tables() {
-        // REFERENCES 6.1 example M1 recomputed through the tables: 12 x 12 cm at the isocentre,
+        // The hand calculation of formalism::tests::sad_worked_example_m1 (TG-71 SAD formula,
+        // Gibbons et al 2014) recomputed through the tables: 12 x 12 cm at the isocentre,
         // 10 cm deep, SPD 100 cm -> Sc 1.010, Sp 1.008, TPR 0.800 looked up -> 238.36 MU.
         let beam = BeamGeometry {
             field_cm: (12.0, 12.0),

@@ -90,6 +90,7 @@ pub fn beam_data(d: &mu::BeamData) -> Result<BeamData, TableError> {
         d0_cm: d.d0_cm,
         ssd0_cm: d.ssd0_cm,
         sad_cm: d.sad_cm,
+        pdd_ssd_cm: d.pdd_ssd_cm.unwrap_or(d.ssd0_cm),
         sc: Table1D::new("Sc", d.sc.axis.clone(), d.sc.values.clone())?,
         sp: Table1D::new("Sp", d.sp.axis.clone(), d.sp.values.clone())?,
         pdd: d.pdd.as_ref().map(|t| two("PDD", t, true)).transpose()?,
@@ -458,7 +459,7 @@ mod tests {
     use beamproof_api::{CriteriaSet, TestInfo};
     use std::collections::BTreeMap;
 
-    /// Beam data holding the factors of the reconstructed TG-71 example M1 (REFERENCES 6.1) at
+    /// Beam data holding the factors of the TG-71 SAD hand calculation (formalism tests) at
     /// 12 x 12 cm and 10 cm, other entries invented around them (test data).
     fn raw() -> mu::BeamData {
         mu::BeamData {
@@ -469,6 +470,7 @@ mod tests {
             fff: false,
             sad_cm: 100.0,
             ssd0_cm: 100.0,
+            pdd_ssd_cm: None,
             d0_cm: 1.5,
             field0_cm: 10.0,
             dose_per_mu_cgy: 1.0,
@@ -561,7 +563,8 @@ mod tests {
 
     #[test]
     fn isocentric_beam_by_hand() {
-        // Hand calculation (TG-71 SAD form, REFERENCES 6.1 M1 factors): D/MU = 1.000 x Sc 1.010
+        // Hand calculation (TG-71 SAD form, Gibbons et al 2014; the factors of the formalism's
+        // SAD hand calculation): D/MU = 1.000 x Sc 1.010
         // x Sp 1.008 x TPR 0.800 x ISF (101.5/100)^2 = 0.839081 cGy/MU. 240 MU deliver
         // 2.013795 Gy against a TPS dose of 2.000 Gy: +0.690 %, within the simple-geometry
         // tolerance of 1 % (default levels). Independent MU for 2 Gy: 238.36.

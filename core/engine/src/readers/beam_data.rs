@@ -23,6 +23,7 @@ pub const BEAM_DATA_KEYS: &[&str] = &[
     "fff",
     "description",
     "sad-cm",
+    "pdd-ssd-cm",
     "normalisation",
     "tables",
     "tray-factor",
@@ -176,6 +177,7 @@ pub fn read(store: &mut InputStore, rel: &str) -> Result<BeamDataFiles, Vec<Diag
                 fff: h.fff,
                 sad_cm: h.sad_cm,
                 ssd0_cm: h.ssd0_cm,
+                pdd_ssd_cm: h.pdd_ssd_cm,
                 d0_cm: h.d0_cm,
                 field0_cm: h.field0_cm,
                 dose_per_mu_cgy: h.dose_per_mu_cgy,
@@ -204,6 +206,7 @@ struct Header {
     fff: bool,
     sad_cm: f64,
     ssd0_cm: f64,
+    pdd_ssd_cm: Option<f64>,
     d0_cm: f64,
     field0_cm: f64,
     dose_per_mu_cgy: f64,
@@ -242,6 +245,7 @@ fn decode(d: &mut Decoder, root: &Node) -> Option<Header> {
     let fff = d.opt_bool(&f, "fff").unwrap_or(false);
     let _ = d.opt_string(&f, "description");
     let sad_cm = d.req_number(&f, "sad-cm", 50.0, 200.0, "cm");
+    let pdd_ssd_cm = d.opt_number(&f, "pdd-ssd-cm", 50.0, 200.0, "cm");
     let norm = d
         .required(
             &f,
@@ -320,6 +324,7 @@ fn decode(d: &mut Decoder, root: &Node) -> Option<Header> {
         fff,
         sad_cm: sad_cm?,
         ssd0_cm: ssd0?,
+        pdd_ssd_cm,
         d0_cm: d0?,
         field0_cm: field0?,
         dose_per_mu_cgy: dpm?,
