@@ -59,13 +59,15 @@ fn demo_lin_b_is_go_with_a_warning() {
     assert_eq!(o.code, 0, "{}{}", o.stdout, o.stderr);
     let r = results(&out);
     assert_eq!(r["summary"]["verdict"], "GO");
+    // The 6 MV 5 x 5 and 20 x 20 cm profiles no longer warn: their flatness differences of
+    // -1.0 and -1.2 percentage points were the scans' 0.2 % detector noise read at single
+    // samples; read from the in-field fit they are -0.16 and -0.70 (the planted error is in
+    // the field size, not in the flatness).
     assert_eq!(
         r["summary"]["warnings"],
         serde_json::json!([
             "standard-fields/cax-6x-10x10: WARN",
             "standard-fields/profile-6x-10x10-x: WARN",
-            "standard-fields/profile-6x-5x5-x: WARN",
-            "standard-fields/profile-6x-20x20-x: WARN",
             "standard-fields/profile-6x-10x10-x-d15: WARN",
             "standard-fields/profile-6x-10x10-x-d50: WARN",
             "standard-fields/profile-6x-10x10-x-d200: WARN",

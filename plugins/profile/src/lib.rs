@@ -217,6 +217,13 @@ impl Analysis for Profile {
                     description: "Savitzky-Golay (quadratic) smoothing window applied to both profiles before the metrics; 0 is off, else odd".into(),
                 },
                 ParamSpec {
+                    name: "in-field-window-mm".into(),
+                    kind: ParamType::Number { min: Some(0.0), max: Some(50.0) },
+                    default: Some(metrics::IN_FIELD_WINDOW_MM.into()),
+                    unit: "mm".into(),
+                    description: "Full width of the local quadratic fit (Savitzky and Golay 1964) inside the flattened region that flatness, symmetry and the in-field extremes are read from, so detector noise does not read as flatness; 0 reads the samples as they are. Edges and penumbrae always come from the samples".into(),
+                },
+                ParamSpec {
                     name: "centre-on-edges".into(),
                     kind: ParamType::Bool,
                     default: Some(false.into()),
@@ -254,9 +261,12 @@ impl Analysis for Profile {
         let fail = |role: &str, e: metrics::ProfileError| {
             AnalysisError::new(format!("{role} profile: {}", e.0))
         };
-        let a = profile(&m.positions, &m.percent, m.origin, diagonal)
+        let window = input
+            .number_opt("in-field-window-mm")
+            .unwrap_or(metrics::IN_FIELD_WINDOW_MM);
+        let a = profile(&m.positions, &m.percent, m.origin, diagonal, window)
             .map_err(|e| fail("measured", e))?;
-        let b = profile(&c.positions, &c.percent, c.origin, diagonal)
+        let b = profile(&c.positions, &c.percent, c.origin, diagonal, window)
             .map_err(|e| fail("calculated", e))?;
         let row = |id, label, unit, measured, calculated| Row {
             id,
@@ -429,6 +439,11 @@ impl Analysis for Profile {
             "Edges, penumbrae and the flattened region are taken about the field centre; the region excludes {:.1} mm from each 50 % edge of the measured profile (IEC 60976 table, central 80 % below 5 cm).",
             a.field_size_mm / 2.0 - a.region_half_mm
         )];
+        notes.push(if window > 0.0 {
+            format!("Flatness, symmetry and the in-field extremes are read from a local quadratic fit (Savitzky and Golay 1964) {window} mm wide, using only samples inside the flattened region, so detector noise does not read as flatness; edges and penumbrae come from the samples as measured.")
+        } else {
+            "Flatness, symmetry and the in-field extremes are read from the samples as measured (`in-field-window-mm: 0`).".to_string()
+        });
         notes.extend(m.note.clone());
         notes.extend(c.note.clone());
         if fff_beam {
