@@ -196,7 +196,7 @@ fn a_mistyped_metric_id_is_refused_before_it_can_leave_a_metric_unjudged() {
     let msg = fails(&campaign);
     assert!(
         msg.contains("gives levels for metric `field-width`, which no analysis of its tests judges")
-            && msg.contains("= help: metric ids the analyses of the tests using `small-fields` judge: centre-mm, dmax-mm, e0-mev, "),
+            && msg.contains("= help: metric ids the analyses of the tests using `small-fields` judge: centre-mm, dmax-mm, dref-mm, e0-mev, "),
         "{msg}"
     );
 }

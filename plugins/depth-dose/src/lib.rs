@@ -2,11 +2,7 @@
 //! calculated central-axis curve, and their differences judged against the criteria set's
 //! metric levels. Combine it with the `gamma` analysis in the same test for a 1D gamma.
 //!
-//! Metric ids (for `metrics:` levels in the criteria set; differences are calculated minus
-//! measured): photons `dmax-mm`, `surface`, `pdd5`, `pdd10`, `pdd20` (percentage points),
-//! `pdd20-10`, `tpr20-10`, `pdd10x` (PDD20,10 and TPR20,10 in percent of the measured value,
-//! %dd(10)x in percentage points); electrons `dmax-mm`, `r90-mm`, `r80-mm`, `r50-mm`, `rp-mm`
-//! and `e0-mev`.
+//! Metric ids for `metrics:` levels: [`JUDGED`] (differences are calculated minus measured).
 
 pub mod metrics;
 
@@ -28,7 +24,7 @@ pub const JUDGED: &[(&str, &str, &str)] = &[
     (
         "surface",
         "pp",
-        "surface dose (first point), percent of maximum (photons)",
+        "surface dose (first point), percent of maximum",
     ),
     ("pdd5", "pp", "PDD at 5 cm (photons)"),
     ("pdd10", "pp", "PDD at 10 cm (photons)"),
@@ -41,6 +37,16 @@ pub const JUDGED: &[(&str, &str, &str)] = &[
     ("r50-mm", "mm", "R50 (electrons)"),
     ("rp-mm", "mm", "practical range Rp (electrons)"),
     ("e0-mev", "MeV", "mean energy at the surface E0 (electrons)"),
+    (
+        "dref-mm",
+        "mm",
+        "reference depth d_ref = 0.6 R50 - 0.1 cm (electrons)",
+    ),
+    (
+        "ep0-mev",
+        "MeV",
+        "most probable energy at the surface Ep,0 from Rp (electrons)",
+    ),
 ];
 
 /// Plugin id used in campaign files.
@@ -164,6 +170,30 @@ impl Analysis for DepthDose {
                     "MeV",
                     a.e0_mev,
                     b.e0_mev,
+                    false,
+                ),
+                row(
+                    "ep0-mev",
+                    "Most probable energy at the surface Ep,0 = 0.22 + 1.98 Rp + 0.0025 Rp^2",
+                    "MeV",
+                    a.ep0_mev,
+                    b.ep0_mev,
+                    false,
+                ),
+                row(
+                    "dref-mm",
+                    "Reference depth d_ref = 0.6 R50 - 0.1 cm",
+                    "mm",
+                    a.dref_mm,
+                    b.dref_mm,
+                    false,
+                ),
+                row(
+                    "surface",
+                    "Surface dose (first point)",
+                    "%",
+                    a.surface_percent,
+                    b.surface_percent,
                     false,
                 ),
             ]
@@ -424,6 +454,21 @@ mod tests {
             .find(|m| m.id == "difference:e0-mev")
             .expect("e0");
         assert!((e0.value - 0.466).abs() < 1e-6, "{}", e0.value);
+        // d_ref = 0.6 R50 - 0.1 cm (TRS-398, TG-51): 0.6 x 2 mm = 1.2 mm deeper.
+        let dref = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:dref-mm")
+            .expect("dref");
+        assert!((dref.value - 1.2).abs() < 1e-6, "{}", dref.value);
+        // Ep,0 = 0.22 + 1.98 Rp + 0.0025 Rp^2 (ICRU 35): a 2 mm deeper Rp adds
+        // 1.98 x 0.2 + 0.0025 ((Rp + 0.2)^2 - Rp^2) MeV, at least 0.396.
+        let ep0 = out
+            .metrics
+            .iter()
+            .find(|m| m.id == "difference:ep0-mev")
+            .expect("ep0");
+        assert!(ep0.value > 0.396 && ep0.value < 0.41, "{}", ep0.value);
     }
 
     #[test]

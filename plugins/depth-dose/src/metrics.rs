@@ -40,6 +40,15 @@ pub struct ElectronMetrics {
     pub dref_mm: f64,
     /// Mean energy at the surface, E0 = 2.33 R50 (R50 in cm), MeV.
     pub e0_mev: f64,
+    /// Most probable energy at the surface from the practical range (ICRU Report 35, as in
+    /// IAEA TRS-398): Ep,0 = 0.22 + 1.98 Rp + 0.0025 Rp^2 (Rp in cm), MeV.
+    pub ep0_mev: f64,
+}
+
+/// Most probable energy at the surface (MeV) from the practical range `rp_cm` (ICRU Report 35,
+/// as quoted in IAEA TRS-398).
+pub fn ep0_from_rp(rp_cm: f64) -> f64 {
+    0.22 + 1.98 * rp_cm + 0.0025 * rp_cm * rp_cm
 }
 
 /// TRS-398 (IAEA 2000, from Followill et al 1998): TPR20,10 = 1.2661 PDD20,10 - 0.0595.
@@ -254,12 +263,20 @@ pub fn electron(depth: &[f64], pct: &[f64]) -> Result<ElectronMetrics, CurveErro
         rp_mm: rp,
         dref_mm: 10.0 * (0.6 * r50 / 10.0 - 0.1),
         e0_mev: 2.33 * r50 / 10.0,
+        ep0_mev: ep0_from_rp(rp / 10.0),
     })
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn most_probable_energy_from_the_practical_range() {
+        // ICRU Report 35 relation as quoted in IAEA TRS-398, evaluated by hand: Rp = 3.0 cm ->
+        // 0.22 + 5.94 + 0.0225 = 6.1825 MeV.
+        assert!((ep0_from_rp(3.0) - 6.1825).abs() < 1e-12);
+    }
 
     fn close(a: f64, b: f64, tol: f64) -> bool {
         (a - b).abs() <= tol

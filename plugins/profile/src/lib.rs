@@ -60,6 +60,11 @@ pub const JUDGED: &[(&str, &str, &str)] = &[
         "pp",
         "symmetry, 100 max |D(x)-D(-x)|/D(centre) (flattened beams)",
     ),
+    (
+        "symmetry-area",
+        "pp",
+        "symmetry, 100 (A_L - A_R)/(A_L + A_R) over the flattened region (flattened beams)",
+    ),
     ("in-field-max", "pp", "maximum in the flattened region"),
     ("in-field-min", "pp", "minimum in the flattened region"),
     (
@@ -80,6 +85,21 @@ pub const JUDGED: &[(&str, &str, &str)] = &[
     ("unflatness", "%", "FFF unflatness D(0)/D(80 % FS)"),
     ("slope", "%", "FFF slope between FS/6 and FS/3"),
     ("peak-mm", "mm", "FFF peak position"),
+    ("fff-inflection-left-mm", "mm", "FFF left inflection point"),
+    (
+        "fff-inflection-right-mm",
+        "mm",
+        "FFF right inflection point",
+    ),
+    (
+        "fff-renormalisation",
+        "%",
+        "FFF renormalisation factor bringing the inflection points to 50 %",
+    ),
+    ("unflatness-left", "%", "FFF unflatness D(0)/D(-0.4 FS)"),
+    ("unflatness-right", "%", "FFF unflatness D(0)/D(+0.4 FS)"),
+    ("slope-left", "%", "FFF slope between FS/6 and FS/3, left"),
+    ("slope-right", "%", "FFF slope between FS/6 and FS/3, right"),
 ];
 
 /// The profile analysis.
@@ -362,6 +382,60 @@ impl Analysis for Profile {
                     relative: true,
                 },
                 row("peak-mm", "Peak position", "mm", fa.peak_mm, fb.peak_mm),
+                row(
+                    "fff-inflection-left-mm",
+                    "Left inflection point",
+                    "mm",
+                    fa.left_inflection_mm,
+                    fb.left_inflection_mm,
+                ),
+                row(
+                    "fff-inflection-right-mm",
+                    "Right inflection point",
+                    "mm",
+                    fa.right_inflection_mm,
+                    fb.right_inflection_mm,
+                ),
+                Row {
+                    id: "fff-renormalisation",
+                    label: "Renormalisation factor (inflection points to 50 %)",
+                    unit: "",
+                    measured: fa.renormalisation,
+                    calculated: fb.renormalisation,
+                    relative: true,
+                },
+                Row {
+                    id: "unflatness-left",
+                    label: "Unflatness left D(0)/D(-0.4 FS)",
+                    unit: "",
+                    measured: fa.unflatness_left,
+                    calculated: fb.unflatness_left,
+                    relative: true,
+                },
+                Row {
+                    id: "unflatness-right",
+                    label: "Unflatness right D(0)/D(+0.4 FS)",
+                    unit: "",
+                    measured: fa.unflatness_right,
+                    calculated: fb.unflatness_right,
+                    relative: true,
+                },
+                Row {
+                    id: "slope-left",
+                    label: "Slope left (FS/6 to FS/3)",
+                    unit: "%/mm",
+                    measured: fa.slope_left_percent_per_mm,
+                    calculated: fb.slope_left_percent_per_mm,
+                    relative: true,
+                },
+                Row {
+                    id: "slope-right",
+                    label: "Slope right (FS/6 to FS/3)",
+                    unit: "%/mm",
+                    measured: fa.slope_right_percent_per_mm,
+                    calculated: fb.slope_right_percent_per_mm,
+                    relative: true,
+                },
             ]);
         } else {
             rows.extend([
@@ -392,6 +466,13 @@ impl Analysis for Profile {
                     "%",
                     a.symmetry_point,
                     b.symmetry_point,
+                ),
+                row(
+                    "symmetry-area",
+                    "Symmetry, 100 (A_L - A_R)/(A_L + A_R)",
+                    "%",
+                    a.symmetry_area,
+                    b.symmetry_area,
                 ),
             ]);
         }

@@ -39,6 +39,8 @@ pub struct ProfileMetrics {
     pub symmetry_iec: f64,
     /// Point difference: 100 max |D(x) - D(-x)| / D(centre), percent.
     pub symmetry_point: f64,
+    /// Area form: 100 (A_L - A_R) / (A_L + A_R) over the flattened region, percent.
+    pub symmetry_area: f64,
     pub max_in_region: f64,
     pub min_in_region: f64,
 }
@@ -56,9 +58,15 @@ pub struct FffMetrics {
     pub penumbra80_20_right_mm: f64,
     /// D(centre) / mean D at +-0.4 field size (the points at 80 % of the field size).
     pub unflatness: f64,
+    /// D(centre) / D at -0.4 and +0.4 field size.
+    pub unflatness_left: f64,
+    pub unflatness_right: f64,
     /// Mean |gradient| between 1/3 and 2/3 of the half field (FS/6 to FS/3 from the centre),
     /// percent of the renormalised profile per mm.
     pub slope_percent_per_mm: f64,
+    /// The same on the left and on the right side.
+    pub slope_left_percent_per_mm: f64,
+    pub slope_right_percent_per_mm: f64,
     /// Position of the profile maximum.
     pub peak_mm: f64,
 }
@@ -228,6 +236,29 @@ pub fn in_field(x: &[f64], d: &[f64], centre: f64) -> (f64, f64, f64, f64, f64, 
     )
 }
 
+/// Area symmetry 100 (A_L - A_R) / (A_L + A_R) of the curve (`x` sorted, `d`) about `centre`,
+/// over the widest span `h` that both sides cover: A_L the area from centre - h to the centre,
+/// A_R from the centre to centre + h, by the trapezoid rule on 400 mirrored steps (the area
+/// form of symmetry, common practice, no single source).
+pub fn area_symmetry(x: &[f64], d: &[f64], centre: f64) -> f64 {
+    let (Some(&lo), Some(&hi)) = (x.first(), x.last()) else {
+        return f64::NAN;
+    };
+    let h = (centre - lo).min(hi - centre);
+    if h <= 0.0 {
+        return f64::NAN;
+    }
+    let n = 400;
+    let (mut left, mut right) = (0.0, 0.0);
+    for k in 0..=n {
+        let u = h * k as f64 / n as f64;
+        let w = if k == 0 || k == n { 0.5 } else { 1.0 };
+        left += w * at(x, d, centre - u).unwrap_or(f64::NAN);
+        right += w * at(x, d, centre + u).unwrap_or(f64::NAN);
+    }
+    100.0 * (left - right) / (left + right)
+}
+
 /// Profile metrics. `d` must already be in percent of the chosen normalisation; `origin` is
 /// where the edge search starts (the central axis, or the maximum for an off-axis field).
 /// Edges and penumbrae come from the samples as they are; flatness, symmetry and the in-field
@@ -284,6 +315,7 @@ pub fn profile(
     let xs: Vec<f64> = inside.iter().map(|&i| x[i]).collect();
     let (flatness_iec, flatness_variation, symmetry_iec, symmetry_point, max, min) =
         in_field(&xs, &fitted, centre);
+    let symmetry_area = area_symmetry(&xs, &fitted, centre);
     Ok(ProfileMetrics {
         left50_mm: l50,
         right50_mm: r50,
@@ -304,6 +336,7 @@ pub fn profile(
         flatness_variation,
         symmetry_iec,
         symmetry_point,
+        symmetry_area,
         max_in_region: max,
         min_in_region: min,
     })
@@ -403,9 +436,12 @@ pub fn fff(x: &[f64], d: &[f64], origin: f64) -> Result<FffMetrics, ProfileError
             ))
         })
     };
-    let unflatness = d_c / (0.5 * (off(-0.4 * fs)? + off(0.4 * fs)?));
+    let (at_left, at_right) = (off(-0.4 * fs)?, off(0.4 * fs)?);
+    let unflatness = d_c / (0.5 * (at_left + at_right));
     let (a, b) = (fs / 6.0, fs / 3.0);
-    let slope = 0.5 * ((off(-a)? - off(-b)?).abs() + (off(a)? - off(b)?).abs()) / (b - a);
+    let slope_left = (off(-a)? - off(-b)?).abs() / (b - a);
+    let slope_right = (off(a)? - off(b)?).abs() / (b - a);
+    let slope = 0.5 * (slope_left + slope_right);
     // The peak: vertex of the least-squares parabola through the samples within FS/6 of the
     // centre (inside the slope region of Fogliata et al, so the top alone), which noise moves
     // far less than the largest sample; the largest sample when the top is not concave.
@@ -424,7 +460,11 @@ pub fn fff(x: &[f64], d: &[f64], origin: f64) -> Result<FffMetrics, ProfileError
         penumbra80_20_left_mm: l80 - l20,
         penumbra80_20_right_mm: r20 - r80,
         unflatness,
+        unflatness_left: d_c / at_left,
+        unflatness_right: d_c / at_right,
         slope_percent_per_mm: slope,
+        slope_left_percent_per_mm: slope_left,
+        slope_right_percent_per_mm: slope_right,
         peak_mm: peak,
     })
 }
@@ -588,6 +628,13 @@ mod tests {
             "{}",
             m.symmetry_point
         );
+        // Area form over the widest mirrored span, h = 41 mm (algebra): A_L = 100 h - 0.025 h^2,
+        // A_R = 100 h + 0.025 h^2, so 100 (A_L - A_R)/(A_L + A_R) = -0.025 h = -1.025 %.
+        assert!(
+            (m.symmetry_area + 1.025).abs() < 1e-6,
+            "{}",
+            m.symmetry_area
+        );
     }
 
     #[test]
@@ -597,6 +644,21 @@ mod tests {
         assert_eq!(region_half_width(200.0, false), 80.0);
         assert_eq!(region_half_width(400.0, false), 170.0);
         assert_eq!(region_half_width(200.0, true), 60.0);
+    }
+
+    #[test]
+    fn fff_left_and_right_parameters_of_a_tilted_top() {
+        // A linearly tilted top 150 (1 + 0.001 u) with erf edges (sigma 2 mm) at +-50 mm
+        // (algebra; the edge factor is 1 to 1e-12 at 40 mm): D(0)/D(-40) = 1/0.96 = 1.041667,
+        // D(0)/D(+40) = 1/1.04 = 0.961538; both slopes 150 x 0.001 x renormalisation, with the
+        // inflection doses 75 (1 -+ 0.05) averaging 75: renormalisation 2/3, slope 0.1 %/mm.
+        let (x, d) = erf_field(50.0, 2.0, |u| 150.0 * (1.0 + 0.001 * u));
+        let f = fff(&x, &d, 0.0).expect("fff");
+        assert!((f.renormalisation - 2.0 / 3.0).abs() < 1e-3, "{f:?}");
+        assert!((f.unflatness_left - 1.0 / 0.96).abs() < 2e-3, "{f:?}");
+        assert!((f.unflatness_right - 1.0 / 1.04).abs() < 2e-3, "{f:?}");
+        assert!((f.slope_left_percent_per_mm - 0.1).abs() < 1e-3, "{f:?}");
+        assert!((f.slope_right_percent_per_mm - 0.1).abs() < 1e-3, "{f:?}");
     }
 
     #[test]
