@@ -162,3 +162,39 @@ fn dicom_against_csv_needs_the_isocentre() {
         "error: a DICOM dose compared with CSV data needs the isocentre\n  = help: add --isocentre X,Y,Z (the isocentre in the DICOM file's patient coordinates, mm) and --patient-position if not HFS\n"
     );
 }
+
+#[test]
+fn the_json_output_carries_the_numbers_of_the_text() {
+    // Flat 100 % against flat 102 % at 3 %/2 mm global: gamma = 2/3 everywhere (Low et al
+    // 1998, flat region: dose difference over the dose criterion), all 81 points pass.
+    let dir = scratch("gamma-cmd-json");
+    let r = flat_curve(&dir, "r.csv", 100.0);
+    let e = flat_curve(&dir, "e.csv", 102.0);
+    let o = cli(&[
+        "gamma",
+        r.to_str().expect("utf8"),
+        e.to_str().expect("utf8"),
+        "--json",
+    ]);
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&o.stdout).expect("JSON");
+    let a = &doc["analysis"];
+    assert_eq!(a["plugin"], "gamma");
+    assert_eq!(a["status"], "pass");
+    let metric = |id: &str| {
+        a["output"]["metrics"]
+            .as_array()
+            .expect("metrics")
+            .iter()
+            .find(|m| m["id"] == id)
+            .and_then(|m| m["value"].as_f64())
+            .unwrap_or_else(|| panic!("{id} missing"))
+    };
+    assert_eq!(metric("pass-rate:3%/2mm-global"), 100.0);
+    assert!((metric("gamma-max") - 2.0 / 3.0).abs() < 1e-12);
+    assert!(
+        doc["cautions"]
+            .as_array()
+            .is_some_and(|c| c.len() == beamproof_engine::run::CAUTIONS.len())
+    );
+}

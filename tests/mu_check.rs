@@ -455,3 +455,53 @@ fn a_pdd_table_measured_at_another_ssd_is_converted_by_the_mayneord_factor() {
         "{converted} / {as_measured}"
     );
 }
+
+#[test]
+fn the_mu_command_json_agrees_with_its_line_by_line_calculation() {
+    // The text output computes each beam itself; --json runs the campaign's MU-check plugin.
+    // Both must give the same difference for every beam (two paths, one formalism: TG-71).
+    let fx = root().join("tests/fixtures");
+    let (data, plan) = (fx.join("mu/beam-data.yaml"), fx.join("rtplan/mu_plan.dcm"));
+    let args = [
+        "mu",
+        "--beam-data",
+        data.to_str().expect("utf8"),
+        "--plan",
+        plan.to_str().expect("utf8"),
+    ];
+    let text = cli(&args);
+    let mut with_json = args.to_vec();
+    with_json.push("--json");
+    let json = cli(&with_json);
+    assert_eq!(text.code, json.code, "{}", json.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&json.stdout).expect("JSON");
+    let metrics = doc["analysis"]["output"]["metrics"]
+        .as_array()
+        .expect("metrics")
+        .clone();
+    let beams: Vec<&serde_json::Value> = metrics
+        .iter()
+        .filter(|m| m["id"] != "difference-total")
+        .collect();
+    assert!(beams.len() >= 3, "{}", json.stdout);
+    for m in beams {
+        let diff = m["value"].as_f64().expect("value");
+        let shown = format!(
+            "Gy planning system ({}): {}{:.2} %",
+            "beam dose of mu_plan.dcm",
+            if diff >= 0.0 { "+" } else { "" },
+            diff
+        );
+        assert!(
+            text.stdout.contains(&shown),
+            "{shown} not in\n{}",
+            text.stdout
+        );
+        // The compared doses are numbers the difference follows from.
+        let (ind, tps) = (
+            m["measured"].as_f64().expect("independent"),
+            m["calculated"].as_f64().expect("tps"),
+        );
+        assert!((100.0 * (ind - tps) / tps - diff).abs() < 1e-9);
+    }
+}

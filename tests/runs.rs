@@ -269,3 +269,46 @@ fn plugins_lists_the_built_ins_with_versions_and_parameters() {
         o.stdout
     );
 }
+
+/// Every compared quantity of the demo is in results.json as numbers at full precision, and
+/// each difference follows from them by its stated formula: calculated minus measured for
+/// distances and percentage points, 100 (calculated - measured) / measured for ratios and
+/// local point doses, 100 (independent - TPS) / TPS for MU checks (TG-114's form).
+#[test]
+fn compared_values_are_numbers_the_differences_follow_from() {
+    let (out, _) = run_demo("numbers-lin-a", "lin-a");
+    let r = results(&out);
+    let mut checked = 0;
+    for site in r["sites"].as_array().expect("sites") {
+        for t in site["tests"].as_array().expect("tests") {
+            for a in t["analyses"].as_array().expect("analyses") {
+                let plugin = a["plugin"].as_str().expect("plugin");
+                let global = a["params"]["difference-relative-to"] == "reference-dose";
+                for m in a["output"]["metrics"].as_array().into_iter().flatten() {
+                    let (Some(meas), Some(calc), Some(v)) = (
+                        m["measured"].as_f64(),
+                        m["calculated"].as_f64(),
+                        m["value"].as_f64(),
+                    ) else {
+                        continue;
+                    };
+                    let unit = m["unit"].as_str().expect("unit");
+                    let want = match (plugin, unit) {
+                        ("mu-check", _) => 100.0 * (meas - calc) / calc,
+                        ("point-dose", _) if global => continue,
+                        (_, "%") => 100.0 * (calc - meas) / meas,
+                        _ => calc - meas,
+                    };
+                    assert!(
+                        (v - want).abs() <= 1e-9 * want.abs().max(1.0),
+                        "{} {}: {v} vs {want}",
+                        t["id"],
+                        m["id"]
+                    );
+                    checked += 1;
+                }
+            }
+        }
+    }
+    assert!(checked > 300, "only {checked} compared metrics");
+}

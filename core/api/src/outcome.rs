@@ -111,8 +111,24 @@ mod finite_or_null {
     }
 }
 
+/// An optional number; a value that is not finite is written as `null`.
+mod optional_finite {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(v: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+        match v {
+            Some(x) if x.is_finite() => s.serialize_f64(*x),
+            _ => s.serialize_none(),
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
+        Option::<f64>::deserialize(d)
+    }
+}
+
 /// One named number with its unit, the limits it was judged against and its status.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 pub struct Metric {
     /// Stable machine name (kebab-case), e.g. `max-abs-difference`.
     pub id: String,
@@ -126,6 +142,23 @@ pub struct Metric {
     /// Present when the metric was judged; informational metrics have none.
     pub limits: Option<Limits>,
     pub status: Option<Status>,
+    /// For a comparison: the measured (or reference) and the calculated (or evaluated) value
+    /// the metric compares, at full precision in `compared_unit`, so results can be used as
+    /// numbers and not only read from the tables (ABI 1.3; absent otherwise).
+    #[serde(
+        default,
+        skip_serializing_if = "Option::is_none",
+        with = "optional_finite"
+    )]
+    pub measured: Option<f64>,
+    #[serde(
+        default,
+        skip_serializing_if = "Option::is_none",
+        with = "optional_finite"
+    )]
+    pub calculated: Option<f64>,
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub compared_unit: String,
 }
 
 /// A table of text cells; numbers are formatted by the analysis, which knows their precision.
@@ -282,6 +315,7 @@ mod tests {
             unit: String::new(),
             limits: None,
             status: None,
+            ..Default::default()
         };
         let json = serde_json::to_string(&m).expect("serialise");
         assert!(json.contains("\"value\":null"), "{json}");
@@ -298,6 +332,7 @@ mod tests {
             unit: String::new(),
             limits: None,
             status: s,
+            ..Default::default()
         };
         let out = AnalysisOutput {
             metrics: vec![m(Some(Status::Pass)), m(None), m(Some(Status::Warn))],

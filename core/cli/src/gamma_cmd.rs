@@ -6,8 +6,8 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 use beamproof_api::{
-    AnalysisInput, CriteriaSet, CurveAxis, DatasetData, GammaCriterion, Normalisation, Status,
-    TestInfo, TestKind,
+    AnalysisInput, CriteriaSet, CurveAxis, DatasetData, GammaCriterion, Normalisation, TestInfo,
+    TestKind,
 };
 use beamproof_engine::campaign::{
     DicomPlacement, GAMMA_DOSE_PERCENT, GAMMA_DTA_MM, GAMMA_THRESHOLD_PERCENT, PatientPosition,
@@ -15,7 +15,7 @@ use beamproof_engine::campaign::{
 use beamproof_engine::diag::Diagnostic;
 use beamproof_engine::readers::{read_dataset, read_file};
 
-use crate::{EXIT_CANNOT_RUN, EXIT_GO, EXIT_NO_GO, Failure, Io};
+use crate::{EXIT_CANNOT_RUN, Failure, Io};
 
 /// Options of the `gamma` command.
 #[derive(clap::Args)]
@@ -52,6 +52,9 @@ pub struct GammaArgs {
     /// for the others (first-criterion), or every statistic for each (every-criterion, slower)
     #[arg(long, default_value = "first-criterion", value_parser = ["first-criterion", "every-criterion"])]
     pub statistics: String,
+    /// Print the analysis as JSON, in the shape results.json records it, instead of text
+    #[arg(long)]
+    pub json: bool,
 }
 
 fn usage(msg: String, help: &str) -> Failure {
@@ -199,6 +202,18 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
             "check that the two files overlap and hold valid doses",
         )
     })?;
+    if a.json {
+        use beamproof_api::Analysis as _;
+        let manifest = beamproof_plugin_gamma::Gamma.manifest();
+        outln(
+            io,
+            &beamproof_engine::run::standalone_json(&manifest, &input.params, &output),
+        );
+        if let Some(path) = &a.map {
+            write_map(path, &per_point)?;
+        }
+        return Ok(crate::exit_for(output.overall_status()));
+    }
     outln(
         io,
         &format!(
@@ -231,11 +246,7 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
         write_map(path, &per_point)?;
         outln(io, &format!("gamma map written to {}", path.display()));
     }
-    Ok(if output.overall_status() >= Status::Fail {
-        EXIT_NO_GO
-    } else {
-        EXIT_GO
-    })
+    Ok(crate::exit_for(output.overall_status()))
 }
 
 fn outln(io: &mut Io, line: &str) {

@@ -319,6 +319,15 @@ pub fn main_with(args: impl IntoIterator<Item = OsString>, io: &mut Io) -> u8 {
     }
 }
 
+/// Exit code of a one-off analysis: 1 when anything failed, else 0.
+pub(crate) fn exit_for(worst: beamproof_api::Status) -> u8 {
+    if worst >= beamproof_api::Status::Fail {
+        EXIT_NO_GO
+    } else {
+        EXIT_GO
+    }
+}
+
 /// Which machines a command prepares.
 enum Machines<'a> {
     All,

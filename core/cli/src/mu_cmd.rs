@@ -9,7 +9,7 @@ use beamproof_api::Status;
 use beamproof_api::mu::MuSetup;
 use beamproof_plugin_mu_check::{beam_data, calculate_beam, default_levels};
 
-use crate::{EXIT_CANNOT_RUN, EXIT_GO, EXIT_NO_GO, Failure, Io};
+use crate::{EXIT_CANNOT_RUN, Failure, Io};
 
 /// Options of the `mu` command.
 #[derive(clap::Args)]
@@ -32,6 +32,44 @@ pub struct MuArgs {
     /// Number of Clarkson sectors
     #[arg(long, default_value_t = 36, value_parser = clap::value_parser!(u32).range(8..=360))]
     pub sectors: u32,
+    /// Print the analysis as JSON, in the shape results.json records an MU check, instead of
+    /// the calculation line by line
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// The MU check through the plugin a campaign uses, printed as JSON.
+fn run_json(io: &mut Io, a: &MuArgs, input: beamproof_api::mu::MuInput) -> Result<u8, Failure> {
+    use beamproof_api::Analysis as _;
+    let params = std::collections::BTreeMap::from([
+        ("geometry".to_string(), serde_json::json!(a.geometry)),
+        ("scatter".to_string(), serde_json::json!(a.scatter)),
+        ("sectors".to_string(), serde_json::json!(a.sectors)),
+    ]);
+    let analysis_input = beamproof_api::AnalysisInput {
+        test: beamproof_api::TestInfo::standalone(beamproof_api::TestKind::MuCheck),
+        params: params.clone(),
+        criteria: beamproof_api::CriteriaSet {
+            name: "command line (TG-114 defaults of the geometry)".into(),
+            dose_difference_percent: None,
+            gamma: Vec::new(),
+            metrics: Default::default(),
+        },
+        measured: None,
+        calculated: None,
+        mu: Some(input),
+        film: None,
+    };
+    let plugin = beamproof_plugin_mu_check::MuCheck;
+    let output = plugin
+        .analyse(&analysis_input)
+        .map_err(|e| usage(e.message, "check the plan against the beam data"))?;
+    let _ = writeln!(
+        io.out,
+        "{}",
+        beamproof_engine::run::standalone_json(&plugin.manifest(), &params, &output)
+    );
+    Ok(crate::exit_for(output.overall_status()))
 }
 
 fn usage(msg: String, help: &str) -> Failure {
@@ -61,6 +99,9 @@ pub fn run(io: &mut Io, a: MuArgs) -> Result<u8, Failure> {
         })?;
     let point = [p[0], p[1], p[2]];
     let input = beamproof_engine::mu_input::standalone(&a.beam_data, &a.plan, point)?;
+    if a.json {
+        return run_json(io, &a, input);
+    }
     let raw = &input.beam_data;
     let data = beam_data(raw).map_err(|e| {
         usage(
@@ -186,9 +227,5 @@ pub fn run(io: &mut Io, a: MuArgs) -> Result<u8, Failure> {
     for c in beamproof_engine::run::CAUTIONS {
         let _ = writeln!(w, "caution: {c}");
     }
-    Ok(if worst >= Status::Fail {
-        EXIT_NO_GO
-    } else {
-        EXIT_GO
-    })
+    Ok(crate::exit_for(worst))
 }

@@ -571,3 +571,30 @@ pub fn verdict_in(results_json: &[u8]) -> Option<String> {
 
 /// Verdicts a signature needs no acknowledgement for.
 pub const CLEAN_VERDICTS: [&str; 2] = ["GO", "MATCHED"];
+
+/// The JSON document a one-off command (`gamma`, `mu`) prints with `--json`: the analysis in
+/// the shape `results.json` records it (plugin, version, params, status, error, output), and
+/// the cautions.
+pub fn standalone_json(
+    manifest: &beamproof_api::PluginManifest,
+    params: &BTreeMap<String, serde_json::Value>,
+    output: &AnalysisOutput,
+) -> String {
+    #[derive(Serialize)]
+    struct Doc<'a> {
+        analysis: AnalysisRecord,
+        cautions: &'a [&'a str],
+    }
+    let doc = Doc {
+        analysis: AnalysisRecord {
+            plugin: manifest.name.clone(),
+            version: manifest.version.clone(),
+            params: params.clone(),
+            status: output.overall_status(),
+            error: None,
+            output: Some(output.clone()),
+        },
+        cautions: &CAUTIONS,
+    };
+    serde_json::to_string_pretty(&doc).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
+}

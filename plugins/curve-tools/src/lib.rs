@@ -156,6 +156,9 @@ pub fn compare_quantities(
                 action: l.action,
             }),
             status,
+            measured: Some(r.measured),
+            calculated: Some(r.calculated),
+            compared_unit: r.unit.into(),
         });
     }
     let table = Table {
@@ -281,6 +284,7 @@ pub fn regional_output(regions: &[Region], judge: bool) -> (Vec<Metric>, Table) 
                     action: r.tolerance,
                 }),
                 status,
+                ..Default::default()
             }
         })
         .collect();

@@ -90,6 +90,7 @@ impl Analysis for MeanDoseRatio {
                     levels.tolerance,
                     levels.action,
                 )),
+                ..Default::default()
             }],
             notes: vec![format!("Ratio of means: {ratio:.5}.")],
             ..Default::default()

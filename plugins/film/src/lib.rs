@@ -145,6 +145,7 @@ fn judged(id: &str, label: &str, value: f64, unit: &str, levels: Levels) -> Metr
             levels.tolerance,
             levels.action,
         )),
+        ..Default::default()
     }
 }
 
@@ -157,6 +158,7 @@ fn info(id: &str, label: &str, value: f64, unit: &str) -> Metric {
         unit: unit.into(),
         limits: None,
         status: None,
+        ..Default::default()
     }
 }
 

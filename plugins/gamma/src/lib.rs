@@ -803,6 +803,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
                 action: g.action_pass_percent,
             }),
             status: Some(status),
+            ..Default::default()
         });
         // Statistics of values that are only upper bounds are not shown.
         let stat = |v: f64| {
@@ -840,6 +841,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
             unit: String::new(),
             limits: None,
             status: None,
+            ..Default::default()
         });
     }
     metrics.push(Metric {
@@ -849,6 +851,7 @@ fn build_output(b: &BuildInput) -> AnalysisOutput {
         unit: "points".into(),
         limits: None,
         status: None,
+        ..Default::default()
     });
     let mut tables = vec![Table {
         title: "Gamma by criterion".into(),

@@ -114,6 +114,8 @@ pub struct BeamCheck {
     pub result: MuResult,
     /// Dose the TPS MU deliver by the independent calculation, Gy.
     pub independent_gy: f64,
+    /// The planning system's dose at the point, Gy.
+    pub tps_gy: f64,
     /// MU the independent calculation needs for the TPS dose.
     pub independent_mu: f64,
     pub difference_percent: f64,
@@ -147,6 +149,7 @@ pub fn check_beam(
         independent_mu: result.mu,
         difference_percent: 100.0 * (independent_gy - tps_gy) / tps_gy,
         independent_gy,
+        tps_gy,
         result,
     })
 }
@@ -322,6 +325,11 @@ impl Analysis for MuCheck {
                 unit: "%".into(),
                 limits: Some(limits("|value| <= limit")),
                 status: Some(status),
+                // The independent dose plays the reference, the planning system's the
+                // evaluated value.
+                measured: Some(c.independent_gy),
+                calculated: Some(c.tps_gy),
+                compared_unit: "Gy".into(),
             });
         }
         if checks.len() > 1 {
@@ -335,6 +343,9 @@ impl Analysis for MuCheck {
                 unit: "%".into(),
                 limits: Some(limits("|value| <= limit")),
                 status: Some(Status::from_deviation(d, levels.tolerance, levels.action)),
+                measured: Some(ind),
+                calculated: Some(tps),
+                compared_unit: "Gy".into(),
             });
         }
         let mut tables = vec![Table {

@@ -217,6 +217,9 @@ fn build_output(
                 unit: "%".into(),
                 limits: Some(limits.clone()),
                 status: Some(r.status),
+                measured: Some(r.measured_gy),
+                calculated: r.calculated_gy,
+                compared_unit: "Gy".into(),
             })
         })
         .collect();
@@ -231,6 +234,7 @@ fn build_output(
             unit: "%".into(),
             limits: None,
             status: None,
+            ..Default::default()
         });
         metrics.push(Metric {
             id: "mean-difference".into(),
@@ -239,6 +243,7 @@ fn build_output(
             unit: "%".into(),
             limits: None,
             status: None,
+            ..Default::default()
         });
     }
     let mut notes = vec![match reference_dose {
