@@ -482,21 +482,21 @@ fn check_seals(
         };
         let who = format!("{} ({})", printable(f[3]), printable(f[4]));
         if let Some(keys) = trusted {
-            match keys.iter().find(|k| k.public_key == f[5]) {
-                None => {
+            match crate::signing::holder(keys, f[5], f[3], f[4]) {
+                crate::signing::Holder::Unknown => {
                     r.problems.push(format!(
                         "seal {name} by {who} was made with a key that is not trusted"
                     ));
                     continue;
                 }
-                Some(k) if k.name != f[3] || k.role != f[4] => {
+                crate::signing::Holder::Differs(k) => {
                     r.problems.push(format!(
                         "seal {name} is signed as {who}, but the trusted key file {} records this key's holder as {} ({})",
                         k.file, k.name, k.role
                     ));
                     continue;
                 }
-                Some(_) => {}
+                crate::signing::Holder::Matches => {}
             }
         }
         if n == 0 || n > lines.len() {

@@ -30,6 +30,17 @@ const KEY_HEADER: &str = "beamproof-signing-key: 1";
 const PUB_HEADER: &str = "beamproof-public-key: 1";
 const SIG_HEADER_V1: &str = "beamproof-signature: 1";
 const SIG_HEADER: &str = "beamproof-signature: 2";
+/// The lines of a signature after its header, in order.
+const SIG_KEYS: [&str; 8] = [
+    "manifest-sha256",
+    "verdict",
+    "name",
+    "role",
+    "date",
+    "statement",
+    "public-key",
+    "signature",
+];
 
 fn hex(bytes: &[u8]) -> String {
     bytes.iter().map(|b| format!("{b:02x}")).collect()
@@ -255,6 +266,26 @@ pub struct TrustedKey {
     pub file: String,
 }
 
+/// How a signed name and role stand against the trusted keys.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Holder<'a> {
+    /// The key is not among the trusted keys.
+    Unknown,
+    /// Trusted, and the record names this holder.
+    Matches,
+    /// Trusted, but its record names another holder.
+    Differs(&'a TrustedKey),
+}
+
+/// Whether `public_key` is trusted and its record names `name` in `role`.
+pub fn holder<'a>(keys: &'a [TrustedKey], public_key: &str, name: &str, role: &str) -> Holder<'a> {
+    match keys.iter().find(|k| k.public_key == public_key) {
+        None => Holder::Unknown,
+        Some(k) if k.name != name || k.role != role => Holder::Differs(k),
+        Some(_) => Holder::Matches,
+    }
+}
+
 /// The public keys in a folder of trusted keys (`*.pub`), with their holders. The same key
 /// recorded twice with different holders is refused: the record would be ambiguous.
 pub fn trusted_keys(dir: &Path) -> Result<Vec<TrustedKey>, String> {
@@ -404,29 +435,13 @@ fn check_one(bytes: &[u8], manifest_sha: &str, trusted: Option<&[TrustedKey]>) -
     let invalid = |reason: String| SignatureCheck::Invalid { reason };
     let text = String::from_utf8_lossy(bytes);
     let v1 = text.starts_with(&format!("{SIG_HEADER_V1}\n"));
-    let keys: &[&str] = if v1 {
-        &[
-            "manifest-sha256",
-            "name",
-            "role",
-            "date",
-            "statement",
-            "public-key",
-            "signature",
-        ]
-    } else {
-        &[
-            "manifest-sha256",
-            "verdict",
-            "name",
-            "role",
-            "date",
-            "statement",
-            "public-key",
-            "signature",
-        ]
-    };
-    let f = match fields(&text, if v1 { SIG_HEADER_V1 } else { SIG_HEADER }, keys) {
+    // Version 2 added the verdict line; version 1 has every other line.
+    let keys: Vec<&str> = SIG_KEYS
+        .iter()
+        .copied()
+        .filter(|k| !v1 || *k != "verdict")
+        .collect();
+    let f = match fields(&text, if v1 { SIG_HEADER_V1 } else { SIG_HEADER }, &keys) {
         Ok(f) => f,
         Err(why) => return invalid(format!("not a beamproof signature: {}", printable(&why))),
     };
@@ -470,10 +485,10 @@ fn check_one(bytes: &[u8], manifest_sha: &str, trusted: Option<&[TrustedKey]>) -
             printable(&s.manifest_sha256)
         ));
     }
-    let trusted = match trusted.map(|keys| keys.iter().find(|k| k.public_key == s.public_key)) {
+    let trusted = match trusted.map(|keys| holder(keys, &s.public_key, &s.name, &s.role)) {
         None => None,
-        Some(None) => Some(false),
-        Some(Some(k)) if k.name != s.name || k.role != s.role => {
+        Some(Holder::Unknown) => Some(false),
+        Some(Holder::Differs(k)) => {
             return invalid(format!(
                 "it is signed as {} ({}), but the trusted key file {} records this key's holder as {} ({})",
                 printable(&s.name),
@@ -483,7 +498,7 @@ fn check_one(bytes: &[u8], manifest_sha: &str, trusted: Option<&[TrustedKey]>) -
                 k.role
             ));
         }
-        Some(Some(_)) => Some(true),
+        Some(Holder::Matches) => Some(true),
     };
     SignatureCheck::Valid {
         statement: s,

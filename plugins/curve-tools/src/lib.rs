@@ -4,7 +4,7 @@
 
 use beamproof_api::{
     AnalysisInput, BeamInfo, CriteriaSet, Curve, Dataset, DatasetData, DoseUnit, Levels, Limits,
-    Metric, PluginManifest, Status, Table, TestInfo, TestKind, fixed,
+    Metric, MetricSpec, PluginManifest, Status, Table, TestInfo, TestKind, fixed,
 };
 
 /// Test support for the curve plugins: an input comparing two relative curves for a 6 MV
@@ -106,6 +106,15 @@ impl Compared {
             (false, u) => u,
         }
     }
+}
+
+/// A plugin's judged-metric declaration (id, unit of the levels, meaning) as manifest entries
+/// for test kind `kind`.
+pub fn judged_specs(judged: &[(&str, &str, &str)], kind: TestKind) -> Vec<MetricSpec> {
+    judged
+        .iter()
+        .map(|(id, unit, what)| MetricSpec::new(id, &[kind], unit, what))
+        .collect()
 }
 
 /// Metrics, statuses, table and a note for compared quantities.

@@ -8,8 +8,8 @@ pub mod metrics;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, Curve, CurveAxis, DatasetData,
-    Figure, MetricSpec, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span,
-    Status, TestKind,
+    Figure, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
+    TestKind,
 };
 
 use beamproof_curve_tools::{Comparison, Geometry, compare_quantities, regional_output};
@@ -95,12 +95,10 @@ impl Analysis for DepthDose {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Depth-dose and beam-quality metrics (d_max, PDD, PDD20,10, TPR20,10, %dd(10)x; electron R90, R80, R50, Rp, E0), measured against calculated".into(),
             kinds: vec![TestKind::DepthDose],
-            judged_metrics: Some(
-                JUDGED
-                    .iter()
-                    .map(|(id, unit, what)| MetricSpec::new(id, &[TestKind::DepthDose], unit, what))
-                    .collect(),
-            ),
+            judged_metrics: Some(beamproof_curve_tools::judged_specs(
+                JUDGED,
+                TestKind::DepthDose,
+            )),
             needs: Vec::new(),
             params: vec![
                 ParamSpec {
@@ -396,6 +394,14 @@ mod tests {
         }
     }
 
+    /// The metric `id` of an output.
+    fn metric<'a>(out: &'a AnalysisOutput, id: &str) -> &'a beamproof_api::Metric {
+        out.metrics
+            .iter()
+            .find(|m| m.id == id)
+            .unwrap_or_else(|| panic!("{id} missing"))
+    }
+
     fn input(m: Curve, c: Curve, levels: &[(&str, f64, f64)]) -> AnalysisInput {
         beamproof_curve_tools::curve_test_input(
             &DepthDose.manifest(),
@@ -440,34 +446,18 @@ mod tests {
         inp.params
             .insert("modality".into(), serde_json::json!("electron"));
         let out = DepthDose.analyse(&inp).expect("runs");
-        let r50 = out
-            .metrics
-            .iter()
-            .find(|m| m.id == "difference:r50-mm")
-            .expect("r50");
+        let r50 = metric(&out, "difference:r50-mm");
         assert!((r50.value - 2.0).abs() < 1e-6, "{}", r50.value);
         assert_eq!(r50.status, Some(Status::Fail));
         // E0 = 2.33 R50 (IAEA TRS-398): 2 mm deeper is 0.466 MeV more.
-        let e0 = out
-            .metrics
-            .iter()
-            .find(|m| m.id == "difference:e0-mev")
-            .expect("e0");
+        let e0 = metric(&out, "difference:e0-mev");
         assert!((e0.value - 0.466).abs() < 1e-6, "{}", e0.value);
         // d_ref = 0.6 R50 - 0.1 cm (TRS-398, TG-51): 0.6 x 2 mm = 1.2 mm deeper.
-        let dref = out
-            .metrics
-            .iter()
-            .find(|m| m.id == "difference:dref-mm")
-            .expect("dref");
+        let dref = metric(&out, "difference:dref-mm");
         assert!((dref.value - 1.2).abs() < 1e-6, "{}", dref.value);
         // Ep,0 = 0.22 + 1.98 Rp + 0.0025 Rp^2 (ICRU 35): a 2 mm deeper Rp adds
         // 1.98 x 0.2 + 0.0025 ((Rp + 0.2)^2 - Rp^2) MeV, at least 0.396.
-        let ep0 = out
-            .metrics
-            .iter()
-            .find(|m| m.id == "difference:ep0-mev")
-            .expect("ep0");
+        let ep0 = metric(&out, "difference:ep0-mev");
         assert!(ep0.value > 0.396 && ep0.value < 0.41, "{}", ep0.value);
     }
 
@@ -489,11 +479,7 @@ mod tests {
         let out = DepthDose
             .analyse(&input(pdd(0.0), pdd(4.0), &[("dmax-mm", 2.0, 3.0)]))
             .expect("runs");
-        let dmax = out
-            .metrics
-            .iter()
-            .find(|m| m.id == "difference:dmax-mm")
-            .expect("dmax");
+        let dmax = metric(&out, "difference:dmax-mm");
         assert!((dmax.value - 4.0).abs() < 0.2, "{}", dmax.value);
         assert_eq!(out.status, Some(Status::Fail));
     }

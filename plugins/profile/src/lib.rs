@@ -13,8 +13,7 @@ pub mod regions;
 
 use beamproof_api::{
     Analysis, AnalysisError, AnalysisInput, AnalysisOutput, Band, CurveAxis, DatasetData, Figure,
-    MetricSpec, ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status,
-    TestKind,
+    ParamSpec, ParamType, PluginManifest, Reference, Series, SeriesStyle, Span, Status, TestKind,
 };
 
 use beamproof_curve_tools::{
@@ -214,12 +213,10 @@ impl Analysis for Profile {
             version: env!("CARGO_PKG_VERSION").into(),
             description: "Profile metrics: field size, centre, 80/20 and 90/10 penumbrae, IEC flatness and symmetry; FFF parameters (Fogliata et al 2012) for flattening-filter-free beams; measured against calculated".into(),
             kinds: vec![TestKind::Profile],
-            judged_metrics: Some(
-                JUDGED
-                    .iter()
-                    .map(|(id, unit, what)| MetricSpec::new(id, &[TestKind::Profile], unit, what))
-                    .collect(),
-            ),
+            judged_metrics: Some(beamproof_curve_tools::judged_specs(
+                JUDGED,
+                TestKind::Profile,
+            )),
             needs: Vec::new(),
             params: vec![
                 ParamSpec {
