@@ -401,7 +401,7 @@ pub enum Geometry {
     MoreComplex,
 }
 
-/// Tolerances of one geometry class (Venselaar et al 2001, as tabulated in REFERENCES 3.2).
+/// Tolerances of one geometry class (Venselaar, Welleweerd & Mijnheer 2001, Radiother Oncol 60:191, their table of tolerances).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Tolerances {
     /// delta1: central axis beyond build-up, local dose deviation, %.
@@ -447,7 +447,7 @@ impl Geometry {
 }
 
 /// Mean, sample standard deviation and confidence limit |mean| + 1.5 SD of deviations
-/// (Venselaar et al 2001; the 1.5 factor is value from memory in REFERENCES 3.2). NaN for an
+/// (Venselaar et al 2001; the 1.5 factor: value from memory). NaN for an
 /// empty set; SD 0 for one value.
 pub fn confidence(v: &[f64]) -> (f64, f64, f64) {
     if v.is_empty() {
@@ -517,7 +517,7 @@ mod tests {
 
     #[test]
     fn tolerance_table() {
-        // Venselaar et al 2001 (REFERENCES 3.2, found): simple geometry 2 %, 2 mm, 3 %, 3 %.
+        // Venselaar et al 2001, their table of tolerances: simple geometry 2 %, 2 mm, 3 %, 3 %.
         let t = Geometry::Simple.tolerances();
         assert_eq!(
             (

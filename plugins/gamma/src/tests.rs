@@ -1,4 +1,4 @@
-//! Gamma against analytic cases (REFERENCES 1.7, derived from the definition of Low et al
+//! Gamma against analytic cases (derived from the definition of Low et al
 //! 1998: for a linear ramp of gradient g shifted by a and offset by c, gamma is the point-to-
 //! line distance |c - g a| / sqrt(dD^2 + g^2 dd^2)), against a brute-force search, and for
 //! its properties.
@@ -90,7 +90,8 @@ fn flat_fields_give_the_dose_difference_over_the_criterion() {
 
 #[test]
 fn shifted_ramps_match_the_point_to_line_distance() {
-    // G3-G11 of REFERENCES 1.7: (gradient, shift, offset, dose %, DTA, expected gamma).
+    // Shifted and offset ramps, values from the closed form above (derived from Low et al 1998):
+    // (gradient, shift, offset, dose %, DTA, expected gamma).
     let cases = [
         (1.0, 3.0, 0.0, 3.0, 3.0, 1.0 / 2f64.sqrt()),
         (1.0, 2.0, 0.0, 3.0, 3.0, 2.0 / 18f64.sqrt()),
@@ -154,7 +155,7 @@ fn no_interpolation_misses_the_continuous_optimum() {
 
 #[test]
 fn sampled_search_hits_the_ramp_optimum_on_its_lattice() {
-    // G3 with sampling every DTA/10 = 0.3 mm: the optimum at u* = 1.5 mm (REFERENCES 1.7,
+    // G3 with sampling every DTA/10 = 0.3 mm: the optimum at u* = 1.5 mm (closed form from Low et al 1998,
     // u* = g^2 a dd^2 / (dD^2 + g^2 dd^2)) is a lattice point, so the sampled search is exact.
     let field = curve_field(&steps(-40.0, 40.0, 1.0), |x| 500.0 + (x - 3.0));
     let c = crit(3.0, 3.0, 100.0, false);
@@ -659,7 +660,7 @@ fn pass_only_criteria_pass_and_fail_where_the_exhaustive_minimum_does() {
 
 #[test]
 fn a_uniform_scaling_passes_pass_only_criteria_at_exactly_one() {
-    // A uniform field scaled by 2 % (REFERENCES 1.7: gamma = 2 / dD in a flat region): under
+    // A uniform field scaled by 2 % (Low et al 1998: gamma = 2 / dD in a flat region): under
     // 2 %/2 mm and 2 %/1 mm gamma is 1 to rounding, a pass; under 1 %/1 mm it is 2, a fail;
     // under 4 %/4 mm 0.5. The pass/fail-only search must land on the same side of 1.
     let xs = steps(-8.0, 8.0, 1.0);
@@ -939,7 +940,7 @@ mod plugin {
 
     #[test]
     fn a_sweep_shows_every_statistic_only_when_asked() {
-        // Flat 2.00 Gy against 2.07 Gy (REFERENCES 1.7: gamma = 0.07 Gy / dD in a flat
+        // Flat 2.00 Gy against 2.07 Gy (Low et al 1998: gamma = 0.07 Gy / dD in a flat
         // field, dD a percentage of 2.00 Gy): 3 %/2 mm 1.17, 2 %/2 mm 1.75, 1 %/1 mm 3.5,
         // 4 %/4 mm 0.875. By default the criteria proportional to each other but not to the
         // first get exact pass rates and no other statistics; `every-criterion` gives them all.

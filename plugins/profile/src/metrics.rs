@@ -500,7 +500,7 @@ mod tests {
 
     #[test]
     fn erf_edges_give_the_analytic_penumbra_and_field_size() {
-        // REFERENCES 4.1 (derived): an error-function edge has its 50 % point at the edge and
+        // Algebra of the error function: an error-function edge has its 50 % point at the edge and
         // an 80-20 % width of 2 x 0.841621 sigma = 1.683242 sigma (3.3665 mm for sigma 2 mm),
         // 90-10 % = 2.563103 sigma. The field is wide enough for the far edge not to matter.
         let (x, d) = erf_field(50.0, 2.0, |_| 100.0);
@@ -639,7 +639,7 @@ mod tests {
 
     #[test]
     fn iec_region_follows_the_field_size_table() {
-        // IEC 60976 table as summarised in REFERENCES 4.1 (value from memory there).
+        // The IEC 60976 table of the flattened region (value from memory).
         assert_eq!(region_half_width(100.0, false), 40.0);
         assert_eq!(region_half_width(200.0, false), 80.0);
         assert_eq!(region_half_width(400.0, false), 170.0);
@@ -675,7 +675,7 @@ mod tests {
         assert!((f.renormalisation - 50.0 / 75.0).abs() < 1e-3);
         assert!((f.field_size_mm - 100.0).abs() < 0.05);
         assert!((f.unflatness - 1.0).abs() < 1e-6 && f.slope_percent_per_mm.abs() < 1e-6);
-        // A cone-shaped top 100 - 0.0025 x^2 (REFERENCES 4.2 consistency check): the slope
+        // A cone-shaped top 100 - 0.0025 x^2 (the slope of Fogliata et al 2012 evaluated by hand): the slope
         // between FS/6 and FS/3 is the mean gradient 0.0025 (a + b) in renormalised units.
         let (x, d) = erf_field(50.0, 2.0, |u| 100.0 - 0.0025 * u * u);
         let f = fff(&x, &d, 0.0).expect("fff");

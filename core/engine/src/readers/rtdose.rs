@@ -259,7 +259,7 @@ pub fn read_raw(path: &Path, bytes: &[u8]) -> Result<RawDoseGrid, Diagnostic> {
 ///
 /// Derived from the axis definitions: DICOM patient coordinates are LPS (+x patient left,
 /// +y posterior, +z head); IEC 61217 fixed has +X to the right of an observer facing the gantry,
-/// +Y towards the gantry, +Z up (REFERENCES 9.1). Head first supine: the patient's left is on
+/// +Y towards the gantry, +Z up (IEC 61217). Head first supine: the patient's left is on
 /// the observer's right, the head points to the gantry and anterior is up.
 pub fn iec_axes(position: PatientPosition) -> [(usize, f64); 3] {
     match position {
