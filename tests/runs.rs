@@ -268,6 +268,18 @@ fn plugins_lists_the_built_ins_with_versions_and_parameters() {
         "{}",
         o.stdout
     );
+    // What each judges, from its manifest: the criteria-set keys a user may write.
+    assert!(
+        o.stdout
+            .contains("    judges `metrics:` ids: field-size-mm, centre-mm, penumbra-left-mm, "),
+        "{}",
+        o.stdout
+    );
+    assert!(
+        o.stdout.contains("    needs `gamma` in its criteria set\n"),
+        "{}",
+        o.stdout
+    );
 }
 
 /// Every compared quantity of the demo is in results.json as numbers at full precision, and

@@ -1104,6 +1104,20 @@ fn plugins(io: &mut Io, campaign: Option<&Path>, plugin_dirs: &[PathBuf]) -> Res
                 .unwrap_or_default();
             outln!(io, "    - {}{}: {}", param.name, default, param.description);
         }
+        match &p.manifest.judged_metrics {
+            Some(ms) if !ms.is_empty() => {
+                let ids: Vec<&str> = ms.iter().map(|m| m.id.as_str()).collect();
+                outln!(io, "    judges `metrics:` ids: {}", ids.join(", "));
+            }
+            Some(_) => {}
+            None => outln!(
+                io,
+                "    declares no judged metric ids (built before ABI 1.3): its `metrics:` ids are not checked"
+            ),
+        }
+        for need in &p.manifest.needs {
+            outln!(io, "    needs `{}` in its criteria set", need.key());
+        }
     }
     Ok(EXIT_GO)
 }
