@@ -130,13 +130,16 @@ pub const IN_FIELD_WINDOW_MM: f64 = 20.0;
 /// samples in a window keep the sample.
 pub fn local_quadratic(x: &[f64], d: &[f64], ids: &[usize], window: f64) -> Vec<f64> {
     let half = 0.5 * window;
+    // `ids` are in increasing position: each window is a contiguous run of them, found by
+    // binary search; a window of more than MAX_FIT samples (a very finely sampled scan) is
+    // thinned evenly, so the work stays bounded whatever the sampling.
+    const MAX_FIT: usize = 401;
     ids.iter()
         .map(|&i| {
-            let near: Vec<usize> = ids
-                .iter()
-                .copied()
-                .filter(|&j| (x[j] - x[i]).abs() <= half + 1e-9)
-                .collect();
+            let from = ids.partition_point(|&j| x[j] < x[i] - half - 1e-9);
+            let to = ids.partition_point(|&j| x[j] <= x[i] + half + 1e-9);
+            let stride = (to - from).div_ceil(MAX_FIT).max(1);
+            let near: Vec<usize> = ids[from..to].iter().copied().step_by(stride).collect();
             if half <= 0.0 || near.len() < 5 {
                 return d[i];
             }

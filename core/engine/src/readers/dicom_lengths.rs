@@ -219,7 +219,20 @@ pub fn check(rest: &[u8], encoding: Encoding) -> Result<(), String> {
         bytes: rest,
         base: 132,
     };
-    w.elements(0, rest.len(), encoding, 0, false).map(|_| ())
+    // A stray delimiter at the top level ends no sequence: the walk goes on after it, so
+    // nothing behind it escapes the check.
+    let mut pos = 0;
+    while pos < rest.len() {
+        let next = w.elements(pos, rest.len(), encoding, 0, false)?;
+        if next <= pos {
+            return Err(format!(
+                "the data set stops making sense at byte {}",
+                132 + pos
+            ));
+        }
+        pos = next;
+    }
+    Ok(())
 }
 
 #[cfg(test)]
@@ -318,6 +331,15 @@ mod tests {
         px.extend(item(6, &[0xFF, 0xD8, 0x11, 0x22, 0xFF, 0xD9]));
         px.extend([0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0]);
         assert_eq!(check(&px, Encoding::ExplicitLittle), Ok(()));
+    }
+
+    #[test]
+    fn a_stray_delimiter_does_not_hide_what_follows() {
+        // A sequence delimitation item (PS3.5 7.5) at the top level, then Pixel Data
+        // declaring 4 GB: still refused.
+        let mut v = vec![0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0];
+        v.extend(long(0x7FE0, 0x0010, b"OW", 0xF000_0000, &[0; 8]));
+        assert!(check(&v, Encoding::ExplicitLittle).is_err());
     }
 
     #[test]
