@@ -144,3 +144,50 @@ fn the_schema_offers_the_metric_ids_the_plugins_judge() {
         .collect();
     assert_eq!(offered, declared);
 }
+
+/// The published results schema (docs/results.schema.json) accepts the demo's results, run and
+/// matching run, and refuses results whose numbers are not numbers.
+#[test]
+fn the_results_schema_describes_the_demo_results() {
+    let schema: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(root().join("docs/results.schema.json")).expect("schema"),
+    )
+    .expect("schema is JSON");
+    let validator = jsonschema::validator_for(&schema).expect("a valid JSON Schema");
+    let errors = |v: &serde_json::Value| -> Vec<String> {
+        validator
+            .iter_errors(v)
+            .take(5)
+            .map(|e| format!("{} at {}", e, e.instance_path()))
+            .collect()
+    };
+    let campaign_a = crate::support::demo_copy("results-schema-a");
+    let (run_a, o) = crate::support::run_into_folder(&campaign_a, "lin-a");
+    assert_eq!(o.code, 1, "{}", o.stderr);
+    let campaign_b = crate::support::demo_copy("results-schema-b");
+    let (run_b, o) = crate::support::run_into_folder(&campaign_b, "lin-b");
+    assert_eq!(o.code, 0, "{}", o.stderr);
+    let matching = crate::support::scratch("results-schema-match").join("match");
+    let o = crate::support::cli(&[
+        "compare",
+        crate::support::arg(&run_a),
+        crate::support::arg(&run_b),
+        "--date",
+        "2026-11-20",
+        "--out",
+        crate::support::arg(&matching),
+    ]);
+    assert!(o.code <= 1, "{}", o.stderr);
+    for dir in [&run_a, &run_b, &matching] {
+        let r = crate::support::results(dir);
+        assert_eq!(errors(&r), Vec::<String>::new(), "{}", dir.display());
+    }
+    // A metric value written as text, and an unknown verdict, are refused.
+    let mut bad = crate::support::results(&run_a);
+    bad["sites"][0]["tests"][0]["analyses"][0]["output"]["metrics"][0]["value"] =
+        serde_json::json!("1.5");
+    assert!(!errors(&bad).is_empty());
+    let mut bad = crate::support::results(&run_a);
+    bad["summary"]["verdict"] = serde_json::json!("PROBABLY FINE");
+    assert!(!errors(&bad).is_empty());
+}
