@@ -18,5 +18,5 @@ pub use data::{
 };
 pub use outcome::{
     AnalysisOutput, Band, Figure, LIMIT_SLACK, Limits, Metric, Reference, Series, SeriesStyle,
-    Span, Status, Table, fixed,
+    Span, Status, Table, decimals_for, fixed, fixed_for,
 };

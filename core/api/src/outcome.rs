@@ -17,6 +17,27 @@ pub fn fixed(value: f64, digits: usize) -> String {
     }
 }
 
+/// Decimals a value of `unit` is shown with: the report's one rule per unit (doses in Gy to
+/// 0.001 Gy, percentages and percentage points to 0.01, distances to 0.01 mm, energies to
+/// 0.01 MeV, gradients to 0.001 %/mm, counts whole, pure ratios to 0.0001). Results keep
+/// every value at full precision; this is only how it is printed.
+pub fn decimals_for(unit: &str) -> usize {
+    match unit {
+        "Gy" => 3,
+        "cGy" => 1,
+        "mGy" | "points" | "samples" => 0,
+        "%" | "pp" | "mm" | "MeV" | "deg" => 2,
+        "%/mm" | "cGy/MU" => 3,
+        "" => 4,
+        _ => 3,
+    }
+}
+
+/// `value` with the decimals of its unit ([`decimals_for`]).
+pub fn fixed_for(value: f64, unit: &str) -> String {
+    fixed(value, decimals_for(unit))
+}
+
 /// Absolute slack applied when a value is compared with a limit: far below any clinically
 /// meaningful difference, far above the rounding error of decimal inputs.
 pub const LIMIT_SLACK: f64 = 1e-9;
@@ -281,6 +302,18 @@ impl AnalysisOutput {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn one_print_rule_per_unit() {
+        // The report's rule (common practice, no source): doses to 0.001 Gy, percentages and
+        // distances to 0.01, counts whole, ratios to 0.0001; never "-0.000".
+        assert_eq!(fixed_for(2.01349, "Gy"), "2.013");
+        assert_eq!(fixed_for(-0.0004, "Gy"), "0.000");
+        assert_eq!(fixed_for(1.2345, "%"), "1.23");
+        assert_eq!(fixed_for(0.005, "mm"), "0.01");
+        assert_eq!(fixed_for(1234.0, "points"), "1234");
+        assert_eq!(fixed_for(0.670214, ""), "0.6702");
+    }
 
     #[test]
     fn deviation_levels_include_their_boundary() {

@@ -1,7 +1,7 @@
 //! The report's view of a run: built from `results.json` alone (the report never runs an
 //! analysis), with every number formatted here, because typst has no fixed-decimal formatting.
 
-use beamproof_api::{CriteriaSet, Figure, Normalisation};
+use beamproof_api::{CriteriaSet, Figure, Normalisation, fixed_for};
 use serde::{Deserialize, Serialize};
 
 use crate::plot;
@@ -649,23 +649,20 @@ fn test_view(t: TestIn, svgs: &mut Vec<String>) -> TestView {
                         o.metrics
                             .into_iter()
                             .map(|m| MetricView {
-                                // Counts are whole numbers; everything else gets two decimals.
+                                // One rule per unit (beamproof_api::decimals_for).
                                 value: match m.value {
-                                    Some(v) => with_unit(
-                                        fixed(v, if m.unit == "points" { 0 } else { 2 }),
-                                        &m.unit,
-                                    ),
+                                    Some(v) => with_unit(fixed_for(v, &m.unit), &m.unit),
                                     None => "undefined".into(),
                                 },
                                 tolerance: m
                                     .limits
                                     .as_ref()
-                                    .map(|l| with_unit(fixed(l.tolerance, 2), &m.unit))
+                                    .map(|l| with_unit(fixed_for(l.tolerance, &m.unit), &m.unit))
                                     .unwrap_or_default(),
                                 action: m
                                     .limits
                                     .as_ref()
-                                    .map(|l| with_unit(fixed(l.action, 2), &m.unit))
+                                    .map(|l| with_unit(fixed_for(l.action, &m.unit), &m.unit))
                                     .unwrap_or_default(),
                                 status: m
                                     .status
