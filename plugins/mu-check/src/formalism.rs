@@ -164,6 +164,26 @@ pub fn mayneord(f1_cm: f64, f2_cm: f64, dmax_cm: f64, depth_cm: f64) -> f64 {
 mod tests {
     use super::*;
 
+    /// An SSD-setup case with unit output, scatter and modifiers: D0' 1 cGy/MU at d0 1.5 cm
+    /// and SSD0 100 cm, 10 cm deep.
+    fn ssd_case(dose_cgy: f64, pdd_percent: f64, pdd_ssd_cm: f64, ssd_cm: f64) -> SsdFactors {
+        SsdFactors {
+            dose_cgy,
+            d0_prime_cgy_per_mu: 1.0,
+            sc: 1.0,
+            sp: 1.0,
+            pdd_percent,
+            pdd_ssd_cm,
+            depth_cm: 10.0,
+            wedge: 1.0,
+            tray: 1.0,
+            oar: 1.0,
+            ssd0_cm: 100.0,
+            d0_cm: 1.5,
+            ssd_cm,
+        }
+    }
+
     #[test]
     fn sad_worked_example_m1() {
         // Hand calculation from the TG-71 SAD formula (Gibbons et al 2014) with round
@@ -198,21 +218,7 @@ mod tests {
         // Hand calculation from the TG-71 SSD formula (Gibbons et al 2014), illustrative inputs:
         // 200 cGy at 10 cm, SSD 100 cm, 10 x 10 cm, Sc = Sp = 1, PDD 66.5 % -> 300.75 MU
         // (D0' 1 cGy/MU at d_max 1.5 cm, ISF 1, PDD measured at the treatment SSD: F = 1).
-        let r = mu_ssd(&SsdFactors {
-            dose_cgy: 200.0,
-            d0_prime_cgy_per_mu: 1.0,
-            sc: 1.0,
-            sp: 1.0,
-            pdd_percent: 66.5,
-            pdd_ssd_cm: 100.0,
-            depth_cm: 10.0,
-            wedge: 1.0,
-            tray: 1.0,
-            oar: 1.0,
-            ssd0_cm: 100.0,
-            d0_cm: 1.5,
-            ssd_cm: 100.0,
-        });
+        let r = mu_ssd(&ssd_case(200.0, 66.5, 100.0, 100.0));
         assert!((r.mu - 300.75).abs() < 0.005, "{}", r.mu);
     }
 
@@ -225,21 +231,7 @@ mod tests {
         let f = mayneord(100.0, 110.0, 1.5, 10.0);
         assert!((f - 1.014006).abs() < 5e-7, "{f}");
         assert!((66.5 * f - 67.43).abs() < 0.005);
-        let r = mu_ssd(&SsdFactors {
-            dose_cgy: 100.0,
-            d0_prime_cgy_per_mu: 1.0,
-            sc: 1.0,
-            sp: 1.0,
-            pdd_percent: 100.0,
-            pdd_ssd_cm: 110.0,
-            depth_cm: 10.0,
-            wedge: 1.0,
-            tray: 1.0,
-            oar: 1.0,
-            ssd0_cm: 100.0,
-            d0_cm: 1.5,
-            ssd_cm: 110.0,
-        });
+        let r = mu_ssd(&ssd_case(100.0, 100.0, 110.0, 110.0));
         assert!((r.dose_per_mu_cgy - 0.828671).abs() < 5e-7);
     }
 
@@ -255,21 +247,7 @@ mod tests {
         //   SSD 90:  F = (91.5/101.5)^2 (110/100)^2 = 0.983321, ISF = (101.5/91.5)^2 = 1.230523,
         //            D/MU = 0.804650 -> 248.56 MU (244.41 unchanged).
         for (ssd, mu, f) in [(110.0, 357.92, 1.014006), (90.0, 248.555, 0.983321)] {
-            let r = mu_ssd(&SsdFactors {
-                dose_cgy: 200.0,
-                d0_prime_cgy_per_mu: 1.0,
-                sc: 1.0,
-                sp: 1.0,
-                pdd_percent: 66.5,
-                pdd_ssd_cm: 100.0,
-                depth_cm: 10.0,
-                wedge: 1.0,
-                tray: 1.0,
-                oar: 1.0,
-                ssd0_cm: 100.0,
-                d0_cm: 1.5,
-                ssd_cm: ssd,
-            });
+            let r = mu_ssd(&ssd_case(200.0, 66.5, 100.0, ssd));
             assert!((r.mu - mu).abs() < 0.005, "SSD {ssd}: {}", r.mu);
             let shown = r.factors.iter().find(|x| x.symbol == "F").expect("F shown");
             assert!((shown.value - f).abs() < 5e-7, "{}", shown.value);
