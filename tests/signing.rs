@@ -331,6 +331,19 @@ fn files_planted_in_a_run_folder_fail_verification_and_block_signing() {
         o.stderr
     );
     std::fs::remove_file(run.join("inputs/data/extra.csv")).expect("rm");
+    // Only signature files may lie outside the manifest, and only under signatures/.
+    std::fs::create_dir_all(run.join("signatures")).expect("mkdir");
+    std::fs::write(run.join("signatures/readme.txt"), "not a signature\n").expect("plant");
+    let o = verify(&run, None);
+    assert_eq!(o.code, 3, "{}", o.stdout);
+    assert!(
+        o.stdout
+            .contains("not covered by the manifest: signatures/readme.txt"),
+        "{}",
+        o.stdout
+    );
+    std::fs::remove_file(run.join("signatures/readme.txt")).expect("rm");
+    assert_eq!(verify(&run, None).code, 0);
     // A listed file replaced by a symbolic link to identical bytes is not the file signed.
     #[cfg(unix)]
     {

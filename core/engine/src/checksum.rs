@@ -76,12 +76,13 @@ impl Verification {
         self.findings.is_empty() && self.planted().next().is_none()
     }
 
-    /// Entries outside the manifest other than signatures (planted files, links).
+    /// Entries outside the manifest other than signature files (`signatures/*.sig`, regular
+    /// files): planted files, links, anything else put under `signatures/`.
     pub fn planted(&self) -> impl Iterator<Item = &String> {
         let sig_prefix = format!("{}/", crate::signing::SIGNATURES_DIR);
-        self.uncovered
-            .iter()
-            .filter(move |u| !u.starts_with(&sig_prefix))
+        self.uncovered.iter().filter(move |u| {
+            !(u.starts_with(&sig_prefix) && u.ends_with(".sig") && self.files.contains_key(*u))
+        })
     }
 
     /// The signature files (`signatures/*.sig`) with their bytes.
