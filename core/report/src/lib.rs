@@ -177,7 +177,9 @@ pub fn render_pdf(
     templates: Option<TemplateFolder<'_>>,
 ) -> Result<Vec<u8>, ReportError> {
     let (data, svgs) = prepare(results_json)?;
-    let source = render_view(&data, report_template(templates)?, escape_markup)?;
+    let template = report_template(templates)?;
+    let template_name = template.1.clone();
+    let source = render_view(&data, template, escape_markup)?;
     let mut files: Vec<(String, Vec<u8>)> = match templates {
         Some(dir) => dir
             .files
@@ -191,34 +193,9 @@ pub fn render_pdf(
             .enumerate()
             .map(|(n, svg)| (format!("fig/{n}.svg"), svg.into_bytes())),
     );
-    // Only the fields the PDF's metadata needs (a full JSON tree of a large run would take
-    // many times the results' size).
-    #[derive(serde::Deserialize)]
-    struct Run {
-        date: String,
-    }
-    #[derive(serde::Deserialize)]
-    struct CampaignHead {
-        #[serde(default)]
-        sha256: String,
-    }
-    #[derive(serde::Deserialize)]
-    struct MachineHead {
-        #[serde(default)]
-        id: String,
-    }
-    #[derive(serde::Deserialize)]
-    struct Head {
-        run: Run,
-        campaign: CampaignHead,
-        machine: MachineHead,
-    }
-    let head: Head =
-        serde_json::from_slice(results_json).map_err(|e| ReportError::Results(e.to_string()))?;
-    let date = head.run.date;
-    let ymd = parse_date(&date).ok_or(ReportError::Date(date))?;
-    let ident = format!("beamproof:{}:{}", head.campaign.sha256, head.machine.id);
-    let template_name = report_template(templates)?.1;
+    // The PDF's metadata from the view the results were already read into.
+    let ymd = parse_date(&data.run_date).ok_or_else(|| ReportError::Date(data.run_date.clone()))?;
+    let ident = format!("beamproof:{}:{}", data.campaign_sha256, data.machine_id);
     typeset::compile_pdf(source, ymd, &ident, files).map_err(|problems| {
         let p = problems
             .into_iter()
