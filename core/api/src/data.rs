@@ -182,9 +182,30 @@ impl Dataset {
     }
 }
 
+/// A point written `x,y,z`: three finite numbers (mm), spaces allowed around each; `None`
+/// otherwise. The one parser of campaign parameters and command-line options that name a
+/// point.
+pub fn parse_xyz(s: &str) -> Option<[f64; 3]> {
+    let v: Vec<f64> = s
+        .split(',')
+        .map(|p| p.trim().parse::<f64>().ok().filter(|x| x.is_finite()))
+        .collect::<Option<_>>()?;
+    (v.len() == 3).then(|| [v[0], v[1], v[2]])
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn points_are_three_finite_numbers() {
+        // Common practice, no source: the campaign's and the command line's `x,y,z`.
+        assert_eq!(parse_xyz(" 1, -2.5 ,3e1"), Some([1.0, -2.5, 30.0]));
+        assert_eq!(parse_xyz("1,2"), None);
+        assert_eq!(parse_xyz("1,2,3,4"), None);
+        assert_eq!(parse_xyz("1,NaN,3"), None);
+        assert_eq!(parse_xyz("b001"), None);
+    }
 
     fn ramp_grid() -> Grid {
         // dose = 2x + 3y - z + 10 : trilinear interpolation reproduces any function that is

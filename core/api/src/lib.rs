@@ -15,6 +15,7 @@ pub use contract::{
 };
 pub use data::{
     Curve, CurveAxis, Dataset, DatasetData, DoseUnit, Grid, PointSet, SINGLETON_AXIS_TOLERANCE_MM,
+    parse_xyz,
 };
 pub use outcome::{
     AnalysisOutput, Band, Figure, LIMIT_SLACK, Limits, Metric, Reference, Series, SeriesStyle,

@@ -74,14 +74,6 @@ pub fn parse_criterion(s: &str) -> Option<(f64, f64)> {
     (within(d, GAMMA_DOSE_PERCENT) && within(t, GAMMA_DTA_MM)).then_some((d, t))
 }
 
-fn parse_isocentre(s: &str) -> Option<[f64; 3]> {
-    let v: Vec<f64> = s
-        .split(',')
-        .map(|p| p.trim().parse::<f64>().ok().filter(|x| x.is_finite()))
-        .collect::<Option<_>>()?;
-    (v.len() == 3).then(|| [v[0], v[1], v[2]])
-}
-
 pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
     let criteria: Vec<(f64, f64)> = a
         .criteria
@@ -106,7 +98,7 @@ pub fn run(io: &mut Io, a: GammaArgs) -> Result<u8, Failure> {
         &a.isocentre,
         is_dicom(&a.reference) && is_dicom(&a.evaluated),
     ) {
-        (Some(s), _) => Some(parse_isocentre(s).ok_or_else(|| {
+        (Some(s), _) => Some(beamproof_api::parse_xyz(s).ok_or_else(|| {
             usage(
                 format!("isocentre `{s}` is not X,Y,Z"),
                 "write three numbers in mm, e.g. --isocentre 10,-50,25",

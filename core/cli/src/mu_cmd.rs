@@ -84,20 +84,12 @@ fn f(v: f64, d: usize) -> String {
 }
 
 pub fn run(io: &mut Io, a: MuArgs) -> Result<u8, Failure> {
-    let p: Vec<f64> = a
-        .point
-        .split(',')
-        .map(|s| s.trim().parse::<f64>())
-        .collect::<Result<_, _>>()
-        .ok()
-        .filter(|v: &Vec<f64>| v.len() == 3 && v.iter().all(|x| x.is_finite()))
-        .ok_or_else(|| {
-            usage(
-                format!("`--point {}` is not three numbers", a.point),
-                "write --point x,y,z in mm relative to the isocentre, e.g. --point 0,0,-20",
-            )
-        })?;
-    let point = [p[0], p[1], p[2]];
+    let point = beamproof_api::parse_xyz(&a.point).ok_or_else(|| {
+        usage(
+            format!("`--point {}` is not three numbers", a.point),
+            "write --point x,y,z in mm relative to the isocentre, e.g. --point 0,0,-20",
+        )
+    })?;
     let input = beamproof_engine::mu_input::standalone(&a.beam_data, &a.plan, point)?;
     if a.json {
         return run_json(io, &a, input);

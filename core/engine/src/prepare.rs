@@ -496,12 +496,9 @@ fn point_ref_problem(s: &str) -> Option<String> {
             .is_empty()
             .then(|| "must name a point label or give `x,y,z` in mm".to_string());
     }
-    let ok = s
-        .split(',')
-        .map(|p| p.trim().parse::<f64>().ok().filter(|v| v.is_finite()))
-        .collect::<Option<Vec<f64>>>()
-        .is_some_and(|v| v.len() == 3);
-    (!ok).then(|| "must be `x,y,z` (three numbers, mm) or a point label without commas".into())
+    beamproof_api::parse_xyz(s)
+        .is_none()
+        .then(|| "must be `x,y,z` (three numbers, mm) or a point label without commas".into())
 }
 
 /// Every point-reference parameter that names a label must name a point of the test's

@@ -602,13 +602,8 @@ fn normalisation_point(
     ref_dose: &[f64],
     field: &Field,
 ) -> Result<NormPoint, AnalysisError> {
-    let coords: Option<Vec<f64>> = spec
-        .split(',')
-        .map(|p| p.trim().parse::<f64>().ok())
-        .collect();
-    let (pos, d_ref) = match (coords, &reference.data) {
-        (Some(c), data) if c.len() == 3 => {
-            let pos = [c[0], c[1], c[2]];
+    let (pos, d_ref) = match (beamproof_api::parse_xyz(spec), &reference.data) {
+        (Some(pos), data) => {
             let d = match data {
                 DatasetData::Grid(g) => {
                     Field::from_grid(g).and_then(|f| f.local(pos).map(|u| f.interpolate(&u)))
