@@ -103,18 +103,19 @@ pub fn parse_manifest(bytes: &[u8]) -> Result<std::collections::BTreeMap<String,
         std::str::from_utf8(bytes).map_err(|_| "the manifest is not UTF-8 text".to_string())?;
     let mut out = std::collections::BTreeMap::new();
     for (i, line) in text.lines().enumerate() {
-        match line.split_once("  ") {
-            Some((hash, rel))
-                if hash.len() == 64
-                    && hash.chars().all(|c| c.is_ascii_hexdigit())
-                    && safe_relative(rel) =>
-            {
-                out.insert(rel.to_string(), hash.to_ascii_lowercase());
-            }
-            _ => return Err(format!("manifest line {} is malformed", i + 1)),
-        }
+        let (hash, rel) =
+            manifest_line(line).ok_or_else(|| format!("manifest line {} is malformed", i + 1))?;
+        out.insert(rel.to_string(), hash);
     }
     Ok(out)
+}
+
+/// One manifest line, `SHA256  PATH`: the checksum in lower case and a path that stays inside
+/// the run folder; `None` for anything else.
+fn manifest_line(line: &str) -> Option<(String, &str)> {
+    let (hash, rel) = line.split_once("  ")?;
+    (hash.len() == 64 && hash.chars().all(|c| c.is_ascii_hexdigit()) && safe_relative(rel))
+        .then(|| (hash.to_ascii_lowercase(), rel))
 }
 
 /// Largest single file of a run folder read for verification (4 GiB).
@@ -165,14 +166,10 @@ pub fn verify_run(dir: &Path) -> Result<Verification, String> {
     };
     let mut listed = std::collections::BTreeSet::new();
     for (i, line) in text.lines().enumerate() {
-        let Some((hash, rel)) = line.split_once("  ") else {
+        let Some((hash, rel)) = manifest_line(line) else {
             v.findings.push(Finding::BadLine(i + 1, line.to_string()));
             continue;
         };
-        if hash.len() != 64 || !hash.chars().all(|c| c.is_ascii_hexdigit()) || !safe_relative(rel) {
-            v.findings.push(Finding::BadLine(i + 1, line.to_string()));
-            continue;
-        }
         listed.insert(rel.to_string());
         match (files.get(rel), special.get(rel)) {
             (Some(bytes), _) if sha256_hex(bytes) == hash => v.ok.push(rel.to_string()),
