@@ -146,18 +146,28 @@ impl Analysis for DepthDose {
             calculated,
             relative,
         };
+        // Depth of maximum and surface dose, the same for both modalities.
+        let common = |dmax: (f64, f64), surface: (f64, f64)| {
+            vec![
+                row("dmax-mm", "Depth of maximum", "mm", dmax.0, dmax.1, false),
+                row(
+                    "surface",
+                    "Surface dose (first point)",
+                    "%",
+                    surface.0,
+                    surface.1,
+                    false,
+                ),
+            ]
+        };
         let rows: Vec<Row> = if electrons {
             let a = electron(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
             let b = electron(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
-            vec![
-                row(
-                    "dmax-mm",
-                    "Depth of maximum",
-                    "mm",
-                    a.dmax_mm,
-                    b.dmax_mm,
-                    false,
-                ),
+            let mut rows = common(
+                (a.dmax_mm, b.dmax_mm),
+                (a.surface_percent, b.surface_percent),
+            );
+            rows.extend([
                 row("r90-mm", "R90", "mm", a.r90_mm, b.r90_mm, false),
                 row("r80-mm", "R80", "mm", a.r80_mm, b.r80_mm, false),
                 row("r50-mm", "R50", "mm", a.r50_mm, b.r50_mm, false),
@@ -186,35 +196,16 @@ impl Analysis for DepthDose {
                     b.dref_mm,
                     false,
                 ),
-                row(
-                    "surface",
-                    "Surface dose (first point)",
-                    "%",
-                    a.surface_percent,
-                    b.surface_percent,
-                    false,
-                ),
-            ]
+            ]);
+            rows
         } else {
             let a = photon(&m.positions_mm, &mp).map_err(|e| fail("measured", e))?;
             let b = photon(&c.positions_mm, &cp).map_err(|e| fail("calculated", e))?;
-            vec![
-                row(
-                    "dmax-mm",
-                    "Depth of maximum",
-                    "mm",
-                    a.dmax_mm,
-                    b.dmax_mm,
-                    false,
-                ),
-                row(
-                    "surface",
-                    "Surface dose (first point)",
-                    "%",
-                    a.surface_percent,
-                    b.surface_percent,
-                    false,
-                ),
+            let mut rows = common(
+                (a.dmax_mm, b.dmax_mm),
+                (a.surface_percent, b.surface_percent),
+            );
+            rows.extend([
                 row("pdd5", "PDD at 5 cm", "%", a.pdd5, b.pdd5, false),
                 row("pdd10", "PDD at 10 cm", "%", a.pdd10, b.pdd10, false),
                 row("pdd20", "PDD at 20 cm", "%", a.pdd20, b.pdd20, false),
@@ -235,7 +226,8 @@ impl Analysis for DepthDose {
                     b.pdd10x,
                     false,
                 ),
-            ]
+            ]);
+            rows
         };
         let regional = input.text("regional-tolerances")?;
         let regions = if electrons {
