@@ -117,8 +117,8 @@ fn nearest(x: &[f64], v: f64) -> usize {
 /// analytic flattened profile with 2.5 % horns and 0.3 % (1 sigma) noise it keeps flatness
 /// and symmetry within 0.5 percentage points of the noiseless values at 0.5 mm steps (over 200
 /// noise realisations at most 0.50) and mostly at 1 mm steps (95 % of realisations; at most
-/// 0.67), while reading the noiseless flatness 0.07 percentage points low (tested; run
-/// `explore_windows` for the figures).
+/// 0.67), while reading the noiseless flatness 0.07 percentage points low (checked by
+/// `in_field_metrics_of_noisy_scans_stay_near_the_noiseless_values`).
 pub const IN_FIELD_WINDOW_MM: f64 = 20.0;
 
 /// Value at each `x[i]` of `ids` of the least-squares quadratic through the samples of `ids`
@@ -743,8 +743,8 @@ mod tests {
     fn in_field_metrics_of_noisy_scans_stay_near_the_noiseless_values() {
         // The noisy-scan target: 0.3 % (1 sigma, of the maximum) Gaussian noise moves flatness
         // and symmetry (every form) by at most 0.5 percentage points and the field size by at
-        // most 0.25 mm. Checked over 40 seeded realisations: every one at 0.5 mm steps; at
-        // 1 mm steps 90 % of them, none beyond 0.7 (half the samples carry the same noise).
+        // most 0.25 mm. Checked over 200 seeded realisations: every one at 0.5 mm steps; at
+        // 1 mm steps 95 % of them, none beyond 0.7 (half the samples carry the same noise).
         // The model: a flattened beam with 2.5 % horns and a 0.5 % tilt (invented, analytic).
         let top = |u: f64| 100.0 * (1.0 + 0.025 * (u / 45.0).powi(4) + 0.005 * u / 45.0);
         for step in [0.5, 1.0] {
@@ -760,7 +760,7 @@ mod tests {
             );
             let max = d.iter().copied().fold(0.0, f64::max);
             let (mut errors, mut raw_errors) = (Vec::new(), Vec::new());
-            for seed in 0..40 {
+            for seed in 0..200 {
                 let nd = noisy(&d, 0.003 * max, seed);
                 let m = profile(&x, &nd, 0.0, false, IN_FIELD_WINDOW_MM).expect("noisy");
                 let r = profile(&x, &nd, 0.0, false, 0.0).expect("noisy raw");
@@ -783,64 +783,20 @@ mod tests {
             }
             errors.sort_by(f64::total_cmp);
             raw_errors.sort_by(f64::total_cmp);
-            let (p90, worst) = (errors[35], errors[39]);
+            let (p95, worst) = (errors[189], errors[199]);
             if step == 0.5 {
                 assert!(worst <= 0.5, "step {step}: worst {worst}");
             } else {
                 assert!(
-                    p90 <= 0.5 && worst <= 0.7,
-                    "step {step}: p90 {p90}, worst {worst}"
+                    p95 <= 0.5 && worst <= 0.7,
+                    "step {step}: p95 {p95}, worst {worst}"
                 );
             }
             // The samples as they are would not meet the target: the fit is what does.
             assert!(
-                raw_errors[35] > 0.5,
+                raw_errors[179] > 0.5,
                 "step {step}: raw flatness moved only {raw_errors:?}"
             );
-        }
-    }
-
-    /// The figures behind `IN_FIELD_WINDOW_MM`: bias and worst error of each form over 200
-    /// noise realisations for several windows (`cargo test -p beamproof-plugin-profile
-    /// explore_windows -- --ignored --nocapture`). A measurement, not a check.
-    #[test]
-    #[ignore]
-    fn explore_windows() {
-        let top = |u: f64| 100.0 * (1.0 + 0.025 * (u / 45.0).powi(4) + 0.005 * u / 45.0);
-        for w in [10.0, 12.0, 15.0, 18.0, 20.0, 25.0] {
-            for step in [0.5, 1.0] {
-                let (x, d) = model(step, top);
-                let clean = profile(&x, &d, 0.0, false, w).expect("clean");
-                let raw = profile(&x, &d, 0.0, false, 0.0).expect("clean");
-                let mut worst = [0.0f64; 4];
-                let mut all = Vec::new();
-                for seed in 0..200 {
-                    let max = d.iter().copied().fold(0.0, f64::max);
-                    let nd = noisy(&d, 0.003 * max, seed);
-                    let m = profile(&x, &nd, 0.0, false, w).expect("noisy");
-                    for (k, (a, b)) in [
-                        (m.flatness_iec, clean.flatness_iec),
-                        (m.flatness_variation, clean.flatness_variation),
-                        (m.symmetry_iec, clean.symmetry_iec),
-                        (m.symmetry_point, clean.symmetry_point),
-                    ]
-                    .into_iter()
-                    .enumerate()
-                    {
-                        worst[k] = worst[k].max((a - b).abs());
-                        if k == 0 {
-                            all.push((a - b).abs());
-                        }
-                    }
-                }
-                all.sort_by(f64::total_cmp);
-                println!(
-                    "w {w} step {step}: bias {:.3} worst {:.3?} flatness p95 {:.3}",
-                    clean.flatness_iec - raw.flatness_iec,
-                    worst,
-                    all[190]
-                );
-            }
         }
     }
 
